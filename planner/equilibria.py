@@ -1,0 +1,682 @@
+"""Equilibrium curves against the control: continuation, folds, stability, window and verdict.
+
+Method (pseudo-arclength continuation, e.g. Keller 1977; Allgower & Georg 2003, Introduction to
+Numerical Continuation Methods, ch. 2): equilibria f(x, u) = 0 form curves in (x, u). Each curve is
+traced by a tangent predictor and a Newton corrector on the hyperplane orthogonal to the tangent,
+in coordinates scaled so that state and control weigh alike, with a step that adapts to the
+curvature. Curves are seeded from every equilibrium found at several control values (root
+brackets in 1-D, a cloud of Newton starts in n-D), so isolated branches are found too. A fold
+(saddle-node) is a sign change of the control component of the tangent, refined by Newton on the
+extended system f = 0, J v = 0, c.v = 1 until |f| < 1e-10. Stability is read from the real parts
+of the Jacobian's eigenvalues.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+from scipy.optimize import brentq
+
+from planner.models import System
+from planner.simulate import Status, settle
+
+# Tuning constants (scaled units: state by its magnitude, control by the range width).
+EXTEND = 0.5  # continue this fraction of the range width beyond each end, to find folds just out
+SEED_CONTROLS_1D = 41
+SEED_CONTROLS_ND = 9
+SEED_GRID_1D = 4000
+NEWTON_STARTS_ND = 256
+STEP_START = 0.002
+STEP_MAX = 0.01
+STEP_MIN = 1e-9
+PREDICTOR_ERROR = 2e-4  # target distance between predicted and corrected point
+CORRECTOR_ITERATIONS = 8
+CORRECTOR_TOL = 1e-10
+MAX_POINTS = 20000
+FOLD_TOL = 1e-10
+COVER_DISTANCE = 2e-3
+SAME_POINT = 1e-7
+
+Classification = Literal["reversible", "hysteretic", "irreversible"]
+FoldKind = Literal["collapse", "recovery", "fold"]
+
+
+@dataclass(frozen=True)
+class Fold:
+    """A saddle-node: where two equilibria meet and vanish as the control passes ``control``.
+
+    ``vanish_direction`` is +1 when they vanish as the control rises past the fold, -1 when it
+    falls. ``kind``: collapse (passing it loses the desired state), recovery (passing it loses
+    the undesired state), fold (neither, e.g. the state leaves every equilibrium).
+    """
+
+    control: float
+    state: np.ndarray
+    kind: FoldKind
+    residual: float
+    vanish_direction: int
+    in_range: bool
+
+
+@dataclass(frozen=True)
+class Branch:
+    """One traced equilibrium curve, in arclength order."""
+
+    controls: np.ndarray
+    states: np.ndarray  # (k, n)
+    stable: np.ndarray  # (k,) bool
+    closed: bool = False
+
+    def runs(self) -> list[tuple[bool, slice]]:
+        """Maximal runs of equal stability; neighbouring runs share their end point."""
+        out: list[tuple[bool, slice]] = []
+        start = 0
+        for i in range(1, len(self.stable) + 1):
+            if i == len(self.stable) or self.stable[i] != self.stable[start]:
+                out.append((bool(self.stable[start]), slice(start, min(i + 1, len(self.stable)))))
+                start = i
+        return out
+
+
+@dataclass(frozen=True)
+class Equilibrium:
+    state: np.ndarray
+    stable: bool
+    eigenvalues: np.ndarray
+
+
+@dataclass(frozen=True)
+class StabilityChange:
+    """Where a branch changes stability away from a fold (``oscillatory``: a complex pair
+    crosses, a Hopf point; otherwise a real eigenvalue crosses). Located by linear
+    interpolation between traced points, not refined."""
+
+    control: float
+    state: np.ndarray
+    oscillatory: bool
+    in_range: bool
+
+
+@dataclass(frozen=True)
+class Window:
+    """A bistable window: between the recovery and the collapse threshold."""
+
+    recovery: float | None
+    collapse: float | None
+
+
+@dataclass(frozen=True)
+class Diagram:
+    """Everything known about the equilibria of one system over one control range."""
+
+    system: System
+    control_range: tuple[float, float]
+    least: float
+    target_index: int
+    regime: Literal["lowest", "highest"]
+    branches: list[Branch]
+    folds: list[Fold]
+    windows: list[Window]
+    window: Window | None
+    classification: Classification
+    scale: np.ndarray = field(repr=False)
+    stability_changes: list[StabilityChange] = field(default_factory=list)
+
+    @property
+    def recovery_threshold(self) -> float | None:
+        return None if self.window is None else self.window.recovery
+
+    @property
+    def collapse_threshold(self) -> float | None:
+        return None if self.window is None else self.window.collapse
+
+    def equilibria_at(self, u: float) -> list[Equilibrium]:
+        """All traced equilibria at control ``u``, polished by Newton, in branch order."""
+        found: list[Equilibrium] = []
+        for branch in self.branches:
+            c = branch.controls
+            crossing = np.nonzero((c[:-1] - u) * (c[1:] - u) <= 0)[0]
+            for i in crossing:
+                if c[i + 1] == c[i]:
+                    guess = branch.states[i]
+                else:
+                    w = (u - c[i]) / (c[i + 1] - c[i])
+                    guess = (1 - w) * branch.states[i] + w * branch.states[i + 1]
+                x = _newton_fixed_control(self.system, guess, u)
+                if x is None:
+                    continue
+                if any(np.max(np.abs(x - e.state) / self.scale[:-1]) < 1e-6 for e in found):
+                    continue
+                eigenvalues = np.linalg.eigvals(self.system.jac(x, u))
+                found.append(Equilibrium(x, bool(np.max(eigenvalues.real) < 0), eigenvalues))
+        return found
+
+    def desired_attractor(self, u: float) -> Equilibrium | None:
+        """The stable equilibrium at ``u`` with the lowest (or highest) target variable."""
+        stable = [e for e in self.equilibria_at(u) if e.stable]
+        if not stable:
+            return None
+        sign = 1.0 if self.regime == "lowest" else -1.0
+        return min(stable, key=lambda e: sign * e.state[self.target_index])
+
+    def is_desired(self, x: np.ndarray, u: float, tolerance: float = 1e-3) -> bool:
+        """Whether state ``x`` sits on the desired attractor at ``u`` (scaled distance)."""
+        best = self.desired_attractor(u)
+        if best is None:
+            return False
+        return bool(np.max(np.abs(x - best.state) / self.scale[:-1]) < tolerance)
+
+
+# ---------------------------------------------------------------------------------------------
+# Newton helpers
+
+
+def _newton_fixed_control(system: System, x: np.ndarray, u: float) -> np.ndarray | None:
+    x = np.array(x, dtype=float)
+    for _ in range(30):
+        f = system.rhs(x, u)
+        try:
+            dx = np.linalg.solve(system.jac(x, u), -f)
+        except np.linalg.LinAlgError:
+            return None
+        x = x + dx
+        if not np.all(np.isfinite(x)):
+            return None
+        if np.max(np.abs(dx) / np.maximum(np.abs(x), 1e-12)) < 1e-13:
+            break
+    if np.max(np.abs(system.rhs(x, u))) > 1e-8 * (1 + np.max(np.abs(x))):
+        return None
+    return x
+
+
+def _batched_newton(system: System, x: np.ndarray, u: float, nonnegative: bool) -> np.ndarray:
+    """Newton from many starts at once; x is (n, P). Returns the converged columns."""
+    x = np.array(x, dtype=float)
+    for _ in range(60):
+        f = system.rhs(x, u)
+        jac = np.moveaxis(system.jac(x, u), -1, 0)
+        with np.errstate(all="ignore"):
+            ok = np.isfinite(jac).all(axis=(1, 2)) & (np.abs(np.linalg.det(jac)) > 1e-300)
+            step = np.zeros_like(x)
+            if ok.any():
+                step[:, ok] = -np.linalg.solve(jac[ok], f.T[ok][..., None])[..., 0].T
+        limit = 0.5 * np.maximum(np.abs(x), 1e-3)  # damping: at most half the magnitude per step
+        step = np.clip(step, -limit * 4, limit * 4)
+        new = x + step
+        if nonnegative:
+            new = np.where(new < 0, x / 4, new)
+        x = np.where(ok, new, np.nan)
+    f = system.rhs(x, u)
+    with np.errstate(invalid="ignore"):
+        good = np.all(np.isfinite(x), axis=0) & np.all(
+            np.abs(f) < 1e-9 * (1 + np.abs(x)), axis=0
+        )
+    return x[:, good]
+
+
+def _unique_columns(x: np.ndarray, scale: np.ndarray) -> list[np.ndarray]:
+    out: list[np.ndarray] = []
+    for column in x.T:
+        if not any(np.max(np.abs(column - y) / scale) < 1e-6 for y in out):
+            out.append(column)
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Seeds
+
+
+def _seeds_1d(system: System, controls: np.ndarray, span: float, nonnegative: bool) -> list:
+    """All roots of the scalar f(x, u) at each control, from sign changes on a wide grid."""
+    linear = np.linspace(0.0 if nonnegative else -span, span, SEED_GRID_1D)
+    logs = np.logspace(-8, 6, 1500)
+    grid = np.unique(np.concatenate([linear, logs] if nonnegative else [linear, logs, -logs]))
+    with np.errstate(all="ignore"):
+        values = system.rhs(grid[None, :, None], controls[None, :])[0]  # (grid, controls)
+    seeds = []
+    for k, u in enumerate(controls):
+        v = values[:, k]
+        finite = np.isfinite(v)
+        for i in np.nonzero(finite[:-1] & finite[1:] & (np.sign(v[:-1]) * np.sign(v[1:]) <= 0))[0]:
+            a, b = grid[i], grid[i + 1]
+            if v[i] == 0:
+                root = a
+            elif v[i + 1] == 0:
+                continue
+            else:
+                root = brentq(lambda x: float(system.rhs(np.array([x]), u)[0]), a, b, xtol=1e-14)
+            seeds.append((np.array([root]), float(u)))
+    return seeds
+
+
+def _seeds_nd(
+    system: System, controls: np.ndarray, reference: np.ndarray, nonnegative: bool, limit: float
+) -> list:
+    rng = np.random.default_rng(20261202)
+    n = system.n
+    high = 10 * np.maximum(np.abs(reference), 1.0)
+    starts = np.exp(rng.uniform(np.log(1e-4), np.log(high)[:, None], size=(n, NEWTON_STARTS_ND)))
+    if not nonnegative:
+        starts *= rng.choice([-1.0, 1.0], size=starts.shape)
+    starts = np.concatenate([starts, reference[:, None]], axis=1)
+    seeds = []
+    for u in controls:
+        roots = _batched_newton(system, starts, float(u), nonnegative)
+        run = settle(system, reference, float(u), cap=1e5, limit=limit)
+        if run.status is Status.SETTLED:
+            roots = np.concatenate([roots, run.state[:, None]], axis=1)
+        for x in _unique_columns(roots, np.maximum(np.abs(reference), 1e-3)):
+            seeds.append((x, float(u)))
+    return seeds
+
+
+# ---------------------------------------------------------------------------------------------
+# Continuation
+
+
+@dataclass
+class _Tracer:
+    system: System
+    scale: np.ndarray  # (n + 1,): state scales, then the control scale
+    u_bounds: tuple[float, float]
+    nonnegative: bool
+    limit: float
+
+    def residual(self, z: np.ndarray) -> np.ndarray:
+        return self.system.rhs(z[:-1] * self.scale[:-1], z[-1] * self.scale[-1])
+
+    def derivative(self, z: np.ndarray) -> np.ndarray:
+        x, u = z[:-1] * self.scale[:-1], z[-1] * self.scale[-1]
+        jac = self.system.jac(x, u) * self.scale[:-1][None, :]
+        dfdu = self.system.dfdu(x, u) * self.scale[-1]
+        return np.column_stack([jac, dfdu])
+
+    def tangent(self, z: np.ndarray, previous: np.ndarray | None) -> np.ndarray:
+        _, _, vt = np.linalg.svd(self.derivative(z))
+        t = vt[-1]
+        if previous is not None and t @ previous < 0:
+            t = -t
+        return t / np.linalg.norm(t)
+
+    def correct(self, z_pred: np.ndarray, t: np.ndarray) -> np.ndarray | None:
+        z = z_pred.copy()
+        for _ in range(CORRECTOR_ITERATIONS):
+            with np.errstate(all="ignore"):
+                g = np.concatenate([self.residual(z), [t @ (z - z_pred)]])
+                a = np.vstack([self.derivative(z), t])
+            if not (np.all(np.isfinite(g)) and np.all(np.isfinite(a))):
+                return None
+            try:
+                dz = np.linalg.solve(a, -g)
+            except np.linalg.LinAlgError:
+                return None
+            z = z + dz
+            if np.max(np.abs(dz)) < CORRECTOR_TOL:
+                return z
+        return None
+
+    def inside(self, z: np.ndarray) -> bool:
+        x, u = z[:-1] * self.scale[:-1], z[-1] * self.scale[-1]
+        if not (self.u_bounds[0] <= u <= self.u_bounds[1]):
+            return False
+        if not np.all(np.isfinite(x)) or np.max(np.abs(x)) > self.limit:
+            return False
+        return not (self.nonnegative and np.min(x) < 0)
+
+    def trace(self, z0: np.ndarray, direction: float) -> tuple[list[np.ndarray], bool]:
+        """Follow the curve from z0 in one direction; returns points and whether it closed."""
+        t = direction * self.tangent(z0, None)
+        points = [z0]
+        h = STEP_START
+        z = z0
+        travelled = 0.0
+        while len(points) < MAX_POINTS:
+            z_pred = z + h * t
+            z_new = self.correct(z_pred, t)
+            if z_new is not None:
+                t_new = self.tangent(z_new, t)
+                error = np.linalg.norm(z_new - z_pred)
+                turn = t_new @ t
+                if error > 4 * PREDICTOR_ERROR or turn < 0.95:
+                    z_new = None  # too far from the prediction or too sharp a turn: smaller step
+            if z_new is None:
+                h /= 2
+                if h < STEP_MIN:
+                    break
+                continue
+            if not self.inside(z_new):
+                end = self._boundary_point(z, z_new)
+                if end is not None:
+                    points.append(end)
+                break
+            travelled += np.linalg.norm(z_new - z)
+            points.append(z_new)
+            if travelled > 10 * h and np.linalg.norm(z_new - z0) < 1.5 * h and t_new @ (z0 - z_new) > 0:
+                points.append(z0)
+                return points, True
+            z, t = z_new, t_new
+            factor = np.sqrt(PREDICTOR_ERROR / max(error, 1e-12))
+            h = float(np.clip(h * min(max(factor, 0.5), 2.0), STEP_MIN, STEP_MAX))
+        return points, False
+
+    def _boundary_point(self, z_in: np.ndarray, z_out: np.ndarray) -> np.ndarray | None:
+        """Where the segment leaves the control range, corrected onto the curve (plots end there)."""
+        u_in, u_out = z_in[-1] * self.scale[-1], z_out[-1] * self.scale[-1]
+        low, high = self.u_bounds
+        edge = high if u_out > high else low if u_out < low else None
+        if edge is None or u_out == u_in:
+            return None
+        w = (edge - u_in) / (u_out - u_in)
+        guess = ((1 - w) * z_in + w * z_out)[:-1] * self.scale[:-1]
+        x = _newton_fixed_control(self.system, guess, edge)
+        if x is None:
+            return None
+        z = np.concatenate([x / self.scale[:-1], [edge / self.scale[-1]]])
+        return z if np.linalg.norm(z - z_in) < 4 * STEP_MAX else None
+
+
+def _refine_fold(system: System, x: np.ndarray, u: float) -> tuple[np.ndarray, float, float]:
+    """Newton on f = 0, J v = 0, c.v = 1 (unknowns x, u, v). Returns x, u and |f|."""
+    n = system.n
+    _, _, vt = np.linalg.svd(system.jac(x, u))
+    v = vt[-1]
+    c = v.copy()
+    for _ in range(40):
+        f = system.rhs(x, u)
+        jac = system.jac(x, u)
+        g = np.concatenate([f, jac @ v, [c @ v - 1.0]])
+        a = np.zeros((2 * n + 1, 2 * n + 1))
+        a[:n, :n] = jac
+        a[:n, n] = system.dfdu(x, u)
+        a[n : 2 * n, :n] = np.einsum("ijk,j->ik", system.hessians(x, u), v)
+        a[n : 2 * n, n] = system.jac_u(x, u) @ v
+        a[n : 2 * n, n + 1 :] = jac
+        a[2 * n, n + 1 :] = c
+        try:
+            step = np.linalg.solve(a, -g)
+        except np.linalg.LinAlgError:
+            break
+        x, u, v = x + step[:n], u + step[n], v + step[n + 1 :]
+        if not (np.all(np.isfinite(x)) and np.isfinite(u)):
+            raise FloatingPointError("fold refinement left the finite numbers")
+        if np.max(np.abs(step)) < 1e-14 * (1 + np.max(np.abs(np.concatenate([x, [u]])))):
+            break
+    return x, float(u), float(np.max(np.abs(system.rhs(x, u))))
+
+
+# ---------------------------------------------------------------------------------------------
+# The diagram
+
+
+def _distance_to_polyline(point: np.ndarray, line: np.ndarray) -> float:
+    if len(line) == 1:
+        return float(np.linalg.norm(point - line[0]))
+    a, b = line[:-1], line[1:]
+    ab = b - a
+    length2 = np.maximum(np.sum(ab * ab, axis=1), 1e-300)
+    w = np.clip(np.sum((point - a) * ab, axis=1) / length2, 0.0, 1.0)
+    nearest = a + w[:, None] * ab
+    return float(np.min(np.linalg.norm(point - nearest, axis=1)))
+
+
+def compute_diagram(
+    system: System,
+    control_range: tuple[float, float],
+    *,
+    reference_state: np.ndarray,
+    target_index: int = 0,
+    regime: Literal["lowest", "highest"] = "lowest",
+    least: float | None = None,
+    current_control: float | None = None,
+    limit: float = 1e6,
+    progress: Callable[[float, str], None] | None = None,
+) -> Diagram:
+    """Trace every equilibrium curve of ``system`` over ``control_range`` and classify the lake.
+
+    ``reference_state`` (the current state) sets the state scales and the Newton starts;
+    ``least`` is the lowest achievable control (default: the lower end of the range).
+    """
+    report = progress or (lambda fraction, message: None)
+    low, high = map(float, control_range)
+    least = low if least is None else float(least)
+    width = high - low
+    u_bounds = (low - EXTEND * width, high + EXTEND * width)
+    nonnegative = system.model.spec.nonnegative_state
+    reference = np.asarray(reference_state, dtype=float)
+
+    report(0.0, "finding equilibria at seed control values")
+    if system.n == 1:
+        controls = np.linspace(u_bounds[0], u_bounds[1], SEED_CONTROLS_1D)
+        seeds = _seeds_1d(system, controls, 10 * max(abs(reference[0]), 1.0), nonnegative)
+    else:
+        controls = np.linspace(u_bounds[0], u_bounds[1], SEED_CONTROLS_ND)
+        seeds = _seeds_nd(system, controls, reference, nonnegative, limit)
+
+    magnitude = np.max(np.abs([x for x, _ in seeds]), axis=0) if seeds else np.abs(reference)
+    scale = np.concatenate([np.maximum(np.maximum(magnitude, np.abs(reference)), 1e-3), [width]])
+    tracer = _Tracer(system, scale, u_bounds, nonnegative, limit)
+
+    traced: list[np.ndarray] = []
+    closed_flags: list[bool] = []
+    for k, (x, u) in enumerate(seeds):
+        report(0.1 + 0.7 * k / max(len(seeds), 1), f"tracing equilibrium curves ({len(traced)} so far)")
+        z0 = np.concatenate([x / scale[:-1], [u / scale[-1]]])
+        if any(_distance_to_polyline(z0, line) < COVER_DISTANCE for line in traced):
+            continue
+        forward, closed = tracer.trace(z0, +1.0)
+        if closed:
+            line = np.array(forward)
+        else:
+            backward, _ = tracer.trace(z0, -1.0)
+            line = np.array(backward[::-1] + forward[1:])
+        traced.append(line)
+        closed_flags.append(closed)
+
+    report(0.8, "refining folds and stability")
+    branches = []
+    raw_folds = []
+    changes: list[StabilityChange] = []
+    for line, closed in zip(traced, closed_flags, strict=True):
+        states = line[:, :-1] * scale[:-1]
+        controls_b = line[:, -1] * scale[-1]
+        jac = np.moveaxis(system.jac(states.T, controls_b), -1, 0)
+        eigenvalues = np.linalg.eigvals(jac)
+        leading = np.max(eigenvalues.real, axis=1)
+        stable = leading < 0
+        branches.append(Branch(controls_b, states, stable, closed))
+        steps = np.diff(controls_b)
+        extremes = np.nonzero(np.sign(steps[:-1]) * np.sign(steps[1:]) < 0)[0] + 1
+        for i in np.nonzero(stable[:-1] != stable[1:])[0]:
+            if np.min(np.abs(extremes - i), initial=99) <= 2 or np.min(np.abs(extremes - i - 1), initial=99) <= 2:
+                continue  # the change belongs to a fold
+            w = leading[i] / (leading[i] - leading[i + 1])
+            u_c = float((1 - w) * controls_b[i] + w * controls_b[i + 1])
+            oscillatory = bool(np.any(np.abs(eigenvalues[i : i + 2].imag) > 0))
+            changes.append(
+                StabilityChange(u_c, (1 - w) * states[i] + w * states[i + 1], oscillatory, low <= u_c <= high)
+            )
+        for extreme in extremes:
+            x_f, u_f, residual = _refine_fold(system, states[extreme], controls_b[extreme])
+            side = np.sign(controls_b[extreme - 1] - controls_b[extreme])
+            raw_folds.append((len(branches) - 1, extreme, x_f, u_f, residual, -int(side or 1)))
+
+    folds: list[Fold] = []
+    fold_places: list[tuple[int, int]] = []
+    for branch_index, index, x_f, u_f, residual, vanish in raw_folds:
+        if any(abs(u_f - f.control) < 1e-9 * width and np.allclose(x_f, f.state, rtol=1e-7) for f in folds):
+            continue
+        kind = _fold_kind(system, x_f, u_f, vanish, width, target_index, regime, limit)
+        folds.append(Fold(float(u_f), x_f, kind, residual, vanish, bool(low <= u_f <= high)))
+        fold_places.append((branch_index, index))
+
+    windows = _windows(branches, folds, fold_places)
+    diagram = Diagram(
+        system=system,
+        control_range=(low, high),
+        least=least,
+        target_index=target_index,
+        regime=regime,
+        branches=branches,
+        folds=folds,
+        windows=windows,
+        window=None,
+        classification="reversible",
+        scale=scale,
+        stability_changes=changes,
+    )
+    u_now = least if current_control is None else float(current_control)
+    window = _main_window(windows, u_now, (low, high))
+    stable_at_least = [e for e in diagram.equilibria_at(least) if e.stable]
+    if len(stable_at_least) >= 2:
+        classification: Classification = "irreversible"
+    elif any(_overlap(w, (low, high)) > 0 for w in windows):
+        classification = "hysteretic"
+    else:
+        classification = "reversible"
+    report(1.0, "done")
+    return Diagram(**{**diagram.__dict__, "window": window, "classification": classification})
+
+
+def _fold_kind(
+    system: System,
+    x_f: np.ndarray,
+    u_f: float,
+    vanish: int,
+    width: float,
+    target_index: int,
+    regime: str,
+    limit: float,
+) -> FoldKind:
+    """Pass the fold by a little and see where the state goes: lower (desired) or higher.
+
+    The kind follows the jump, not the local stability: in slow-fast lakes the turbid
+    equilibrium can lose stability (a Hopf point) before its fold, and the fold still marks
+    where the turbid branch ends; :attr:`Diagram.stability_changes` reports such points.
+    """
+    run = settle(system, x_f, u_f + vanish * 1e-3 * width, cap=1e5, limit=limit)
+    if run.status is not Status.SETTLED:
+        return "fold"
+    change = run.state[target_index] - x_f[target_index]
+    if abs(change) < 1e-6 * max(abs(x_f[target_index]), 1e-9):
+        return "fold"
+    improves = change < 0 if regime == "lowest" else change > 0
+    return "recovery" if improves else "collapse"
+
+
+def _windows(branches: list[Branch], folds: list[Fold], places: list[tuple[int, int]]) -> list[Window]:
+    """Pair consecutive recovery and collapse folds along each branch into bistable windows.
+
+    A fold left without its partner (the other one lies beyond the search) gives a half-open
+    window: Window(None, collapse) means the undesired state persists below the whole search.
+    """
+    windows = []
+    for b in range(len(branches)):
+        on_branch = sorted(
+            ((index, fold) for (bb, index), fold in zip(places, folds, strict=True) if bb == b),
+            key=lambda pair: pair[0],
+        )
+        kinds = [fold for _, fold in on_branch if fold.kind in ("recovery", "collapse")]
+        paired: set[int] = set()
+        for first, second in zip(kinds, kinds[1:], strict=False):
+            if {first.kind, second.kind} == {"recovery", "collapse"}:
+                recovery = first if first.kind == "recovery" else second
+                collapse = second if recovery is first else first
+                if recovery.control < collapse.control:
+                    windows.append(Window(recovery.control, collapse.control))
+                    paired.update({id(first), id(second)})
+        for fold in kinds:
+            if id(fold) in paired:
+                continue
+            if fold.kind == "collapse":
+                windows.append(Window(None, fold.control))
+            else:
+                windows.append(Window(fold.control, None))
+    return windows
+
+
+def _overlap(window: Window, interval: tuple[float, float]) -> float:
+    low = -np.inf if window.recovery is None else window.recovery
+    high = np.inf if window.collapse is None else window.collapse
+    return max(0.0, min(high, interval[1]) - max(low, interval[0]))
+
+
+def _main_window(windows: list[Window], u_now: float, interval: tuple[float, float]) -> Window | None:
+    """The window holding the current control, else the one overlapping the range most."""
+    if not windows:
+        return None
+    holding = [w for w in windows if _contains(w, u_now)]
+    if holding:
+        return holding[0]
+    return max(windows, key=lambda w: _overlap(w, interval))
+
+
+def _contains(window: Window, u: float) -> bool:
+    low = -np.inf if window.recovery is None else window.recovery
+    high = np.inf if window.collapse is None else window.collapse
+    return bool(low <= u <= high)
+
+
+# ---------------------------------------------------------------------------------------------
+# Where the current state stands
+
+
+@dataclass(frozen=True)
+class Standing:
+    """Where the lake is now: the attractor its basin leads to and how far each threshold is.
+
+    ``separatrix`` (1-D models) lists the unstable equilibria at the current control: the basin
+    boundaries. ``to_recovery`` is how far the control must still fall to pass the recovery
+    threshold (negative: already below it); ``to_collapse`` how far it may rise before collapse.
+    """
+
+    control: float
+    state: np.ndarray
+    attractor: np.ndarray | None
+    desired: bool | None
+    status: str
+    separatrix: list[float]
+    stable_equilibria: list[np.ndarray]
+    to_recovery: float | None
+    to_collapse: float | None
+
+
+def locate(diagram: Diagram, state: np.ndarray, control: float, *, limit: float = 1e6) -> Standing:
+    """Integrate at the frozen current control to the attractor of the current state's basin."""
+    equilibria = diagram.equilibria_at(control)
+    stable = [e.state for e in equilibria if e.stable]
+    separatrix = (
+        sorted(float(e.state[0]) for e in equilibria if not e.stable) if diagram.system.n == 1 else []
+    )
+    run = settle(diagram.system, np.asarray(state, dtype=float), control, cap=1e5, limit=limit)
+    attractor = run.state if run.status is Status.SETTLED else None
+    desired = None if attractor is None else diagram.is_desired(attractor, control)
+    recovery, collapse = diagram.recovery_threshold, diagram.collapse_threshold
+    return Standing(
+        control=float(control),
+        state=np.asarray(state, dtype=float),
+        attractor=attractor,
+        desired=desired,
+        status=run.status.value,
+        separatrix=separatrix,
+        stable_equilibria=stable,
+        to_recovery=None if recovery is None else float(control - recovery),
+        to_collapse=None if collapse is None else float(collapse - control),
+    )
+
+
+def diagram_for(scenario, progress: Callable[[float, str], None] | None = None) -> Diagram:
+    """The diagram of a scenario: its system over its control range, with its target."""
+    return compute_diagram(
+        scenario.system(),
+        scenario.control.range,
+        reference_state=scenario.initial_state,
+        target_index=scenario.target_index,
+        regime=scenario.target.regime,
+        least=scenario.control.least,
+        current_control=scenario.current_control,
+        limit=scenario.simulation.state_limit,
+        progress=progress,
+    )

@@ -1,0 +1,193 @@
+"""Model specifications as sympy expressions, compiled once to vectorised numpy functions.
+
+Every model, built-in or written by the user as formulas, is a :class:`ModelSpec`: state
+variables, parameters and one sympy right-hand side per variable. :func:`compile_model` turns a
+spec plus the name of the control parameter into numpy functions for the right-hand side, its
+Jacobian in the state and its derivative in the control; :class:`System` binds parameter values
+and is what every numerical routine (continuation, integration, ensembles) calls.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from functools import cache
+
+import numpy as np
+import sympy
+
+Array = np.ndarray
+
+
+@dataclass(frozen=True)
+class ParameterInfo:
+    """What a parameter means and which values are physical.
+
+    ``lower`` is the smallest allowed value (None: no bound); ``strict`` makes it exclusive.
+    """
+
+    name: str
+    meaning: str = ""
+    lower: float | None = None
+    strict: bool = False
+
+    def violation(self, value: float) -> str | None:
+        """Return why ``value`` is not physical for this parameter, or None when it is."""
+        if self.lower is None:
+            return None
+        if self.strict and not value > self.lower:
+            return f"must be greater than {self.lower:g} ({self.meaning or self.name})"
+        if not self.strict and not value >= self.lower:
+            return f"must be at least {self.lower:g} ({self.meaning or self.name})"
+        return None
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """A model as symbolic equations: d(variable)/dt = equation, for each variable in order."""
+
+    kind: str
+    variables: tuple[str, ...]
+    parameters: tuple[ParameterInfo, ...]
+    equations: tuple[sympy.Expr, ...]
+    nonnegative_state: bool = False
+    source: str = ""
+    variable_meanings: tuple[str, ...] = field(default=())
+
+    @property
+    def parameter_names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.parameters)
+
+    def parameter_info(self, name: str) -> ParameterInfo:
+        for info in self.parameters:
+            if info.name == name:
+                return info
+        raise KeyError(name)
+
+
+def _broadcast_stack(values: Sequence[object], shape: tuple[int, ...]) -> Array:
+    """Stack lambdified outputs that may be scalars (constant entries) into one array."""
+    return np.stack([np.broadcast_to(np.asarray(v, dtype=float), shape) for v in values])
+
+
+@dataclass(frozen=True)
+class CompiledModel:
+    """Numpy functions of (state..., parameters...) for one spec and one control parameter."""
+
+    spec: ModelSpec
+    control: str
+    _rhs: Callable[..., object]
+    _jac: Callable[..., object]
+    _dfdu: Callable[..., object]
+    _d2f: Callable[..., object]
+    _d2fdxdu: Callable[..., object]
+
+    @property
+    def n_variables(self) -> int:
+        return len(self.spec.variables)
+
+    def bind(self, parameters: Mapping[str, float | Array]) -> System:
+        """Fix every non-control parameter; the control stays free (it is an argument)."""
+        missing = [p for p in self.spec.parameter_names if p not in parameters]
+        if missing:
+            raise KeyError(f"parameters without a value: {', '.join(missing)}")
+        values = tuple(
+            None if name == self.control else parameters[name]
+            for name in self.spec.parameter_names
+        )
+        return System(self, values)
+
+
+@cache
+def compile_model(spec: ModelSpec, control: str) -> CompiledModel:
+    """Compile a spec once per control parameter (cached): rhs, Jacobian, d/du, second derivatives.
+
+    The second derivatives of each equation in the state (a Hessian per equation) serve fold
+    analysis (the quadratic coefficient of the normal form).
+    """
+    if control not in spec.parameter_names:
+        raise KeyError(f"control {control!r} is not a parameter of model {spec.kind!r}")
+    state_symbols = [sympy.Symbol(v) for v in spec.variables]
+    parameter_symbols = [sympy.Symbol(p) for p in spec.parameter_names]
+    arguments = [*state_symbols, *parameter_symbols]
+    rhs = list(spec.equations)
+    jac = [sympy.diff(f, x) for f in rhs for x in state_symbols]
+    dfdu = [sympy.diff(f, sympy.Symbol(control)) for f in rhs]
+    d2f = [sympy.diff(f, x, y) for f in rhs for x in state_symbols for y in state_symbols]
+    d2fdxdu = [sympy.diff(entry, sympy.Symbol(control)) for entry in jac]
+    compile_list = lambda exprs: sympy.lambdify(arguments, exprs, modules="numpy", cse=True)  # noqa: E731
+    return CompiledModel(
+        spec=spec,
+        control=control,
+        _rhs=compile_list(rhs),
+        _jac=compile_list(jac),
+        _dfdu=compile_list(dfdu),
+        _d2f=compile_list(d2f),
+        _d2fdxdu=compile_list(d2fdxdu),
+    )
+
+
+@dataclass(frozen=True)
+class System:
+    """A compiled model with its parameters fixed; the control ``u`` is passed per call.
+
+    Shapes: ``x`` is (n, *batch) and ``u`` broadcasts against ``batch``. ``rhs`` returns
+    (n, *batch), ``jac`` (n, n, *batch), ``dfdu`` (n, *batch). Parameter values may themselves be
+    arrays over the batch (ensemble members).
+    """
+
+    model: CompiledModel
+    parameter_values: tuple[object, ...]
+
+    @property
+    def n(self) -> int:
+        return self.model.n_variables
+
+    @property
+    def variables(self) -> tuple[str, ...]:
+        return self.model.spec.variables
+
+    def _arguments(self, x: Array, u: float | Array) -> tuple[list[object], tuple[int, ...]]:
+        x = np.asarray(x, dtype=float)
+        params = [u if value is None else value for value in self.parameter_values]
+        shape = np.broadcast_shapes(x.shape[1:], *(np.shape(p) for p in params))
+        return [*x, *params], shape
+
+    def rhs(self, x: Array, u: float | Array) -> Array:
+        args, shape = self._arguments(x, u)
+        return _broadcast_stack(self.model._rhs(*args), shape)
+
+    def jac(self, x: Array, u: float | Array) -> Array:
+        args, shape = self._arguments(x, u)
+        n = self.n
+        return _broadcast_stack(self.model._jac(*args), shape).reshape(n, n, *shape)
+
+    def dfdu(self, x: Array, u: float | Array) -> Array:
+        args, shape = self._arguments(x, u)
+        return _broadcast_stack(self.model._dfdu(*args), shape)
+
+    def hessians(self, x: Array, u: float | Array) -> Array:
+        """Second derivatives d2 f_i / dx_j dx_k, shape (n, n, n, *batch)."""
+        args, shape = self._arguments(x, u)
+        n = self.n
+        return _broadcast_stack(self.model._d2f(*args), shape).reshape(n, n, n, *shape)
+
+    def jac_u(self, x: Array, u: float | Array) -> Array:
+        """Derivative of the Jacobian in the control, shape (n, n, *batch)."""
+        args, shape = self._arguments(x, u)
+        n = self.n
+        return _broadcast_stack(self.model._d2fdxdu(*args), shape).reshape(n, n, *shape)
+
+    def with_parameters(self, **overrides: float | Array) -> System:
+        """A copy with some non-control parameters replaced (actions, ensembles)."""
+        names = self.model.spec.parameter_names
+        values = list(self.parameter_values)
+        for name, value in overrides.items():
+            index = names.index(name)
+            if values[index] is None:
+                raise ValueError(f"{name!r} is the control; pass it as u instead")
+            values[index] = value
+        return System(self.model, tuple(values))
+
+    def parameter(self, name: str) -> object:
+        return self.parameter_values[self.model.spec.parameter_names.index(name)]

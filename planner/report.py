@@ -1,0 +1,195 @@
+"""Plain-data views of results (JSON for `--json`, rows for tables, text summaries).
+
+The CLI prints these and the web app shows them; neither computes anything itself.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from planner.equilibria import Branch, Diagram, Standing
+
+CAUTION = (
+    "Caution: this is a screening tool. Results are estimates from simplified models of "
+    "phosphorus cycling; thresholds fitted from data are uncertain, lakes respond with long "
+    "lags, and algal blooms can be toxic. Decisions on loads, in-lake treatments and public "
+    "water use must follow local regulations and the judgement of licensed professionals."
+)
+
+
+def state_dict(variables: tuple[str, ...], x: np.ndarray) -> dict[str, float]:
+    return {name: float(value) for name, value in zip(variables, x, strict=True)}
+
+
+def clipped_runs(branch: Branch, low: float, high: float) -> list[tuple[bool, np.ndarray, np.ndarray]]:
+    """Runs of equal stability cut to the control range, with interpolated end points."""
+    pieces = []
+    for stable, part in branch.runs():
+        controls, states = branch.controls[part], branch.states[part]
+        current_c: list[float] = []
+        current_s: list[np.ndarray] = []
+        for i in range(len(controls)):
+            inside = low <= controls[i] <= high
+            if i > 0:
+                a, b = controls[i - 1], controls[i]
+                for edge in (low, high):
+                    if (a - edge) * (b - edge) < 0:
+                        w = (edge - a) / (b - a)
+                        point = (1 - w) * states[i - 1] + w * states[i]
+                        current_c.append(edge)
+                        current_s.append(point)
+                        if not inside and len(current_c) > 1:
+                            pieces.append((stable, np.array(current_c), np.array(current_s)))
+                        if not inside:
+                            current_c, current_s = [], []
+            if inside:
+                current_c.append(float(controls[i]))
+                current_s.append(states[i])
+        if len(current_c) > 1:
+            pieces.append((stable, np.array(current_c), np.array(current_s)))
+    return pieces
+
+
+def diagram_json(scenario, diagram: Diagram, standing: Standing | None = None) -> dict[str, Any]:
+    """The `planner diagram --json` object (DESIGN.md section 5 contract, plus extras)."""
+    variables = diagram.system.variables
+    low, high = diagram.control_range
+    window = diagram.window
+    out: dict[str, Any] = {
+        "scenario": scenario.name,
+        "control": scenario.control.parameter,
+        "unit": scenario.control.unit,
+        "range": [low, high],
+        "lowest_achievable": diagram.least,
+        "classification": diagram.classification,
+        "folds": [
+            {
+                "control": fold.control,
+                "state": state_dict(variables, fold.state),
+                "kind": fold.kind,
+                "in_range": fold.in_range,
+                "residual": fold.residual,
+            }
+            for fold in sorted(diagram.folds, key=lambda f: f.control)
+        ],
+        "window": (
+            {"recovery": window.recovery, "collapse": window.collapse}
+            if window is not None and window.recovery is not None and window.collapse is not None
+            else None
+        ),
+        "thresholds": {
+            "recovery": diagram.recovery_threshold,
+            "collapse": diagram.collapse_threshold,
+        },
+        "stability_changes": [
+            {
+                "control": change.control,
+                "state": state_dict(variables, change.state),
+                "oscillatory": change.oscillatory,
+                "in_range": change.in_range,
+            }
+            for change in diagram.stability_changes
+        ],
+        "branches": [
+            {
+                "stable": stable,
+                "points": [
+                    {"control": float(c), "state": state_dict(variables, x)}
+                    for c, x in zip(controls, states, strict=True)
+                ],
+            }
+            for branch in diagram.branches
+            for stable, controls, states in clipped_runs(branch, low, high)
+        ],
+    }
+    if standing is not None:
+        out["current"] = standing_json(variables, standing)
+    return out
+
+
+def standing_json(variables: tuple[str, ...], standing: Standing) -> dict[str, Any]:
+    return {
+        "control": standing.control,
+        "state": state_dict(variables, standing.state),
+        "attractor": None if standing.attractor is None else state_dict(variables, standing.attractor),
+        "regime": {True: "desired", False: "undesired", None: "none"}[standing.desired],
+        "integration": standing.status,
+        "separatrix": standing.separatrix,
+        "to_recovery": standing.to_recovery,
+        "to_collapse": standing.to_collapse,
+    }
+
+
+def _number(value: float | None, unit: str = "") -> str:
+    if value is None:
+        return "none found"
+    return f"{value:.4g} {unit}".strip()
+
+
+def diagram_text(scenario, diagram: Diagram, standing: Standing) -> str:
+    """A readable summary for the terminal."""
+    unit = scenario.control.unit
+    name = scenario.control.label or scenario.control.parameter
+    verdicts = {
+        "reversible": "reversible: one stable state at every control value in range, no hysteresis",
+        "hysteretic": "hysteretic: two stable states over a window of control values",
+        "irreversible": (
+            "irreversible: the undesired state persists even at the lowest achievable "
+            f"{name.lower()} ({diagram.least:g} {unit})"
+        ),
+    }
+    lines = [scenario.name, "", f"Lake verdict: {verdicts[diagram.classification]}"]
+    lines.append(f"Collapse threshold: {_number(diagram.collapse_threshold, unit)}")
+    lines.append(f"Recovery threshold: {_number(diagram.recovery_threshold, unit)}")
+    for change in diagram.stability_changes:
+        if change.in_range:
+            lines.append(
+                f"Note: an equilibrium changes stability at {change.control:.4g} {unit}"
+                + (" (oscillations start there)" if change.oscillatory else "")
+            )
+    lines.append("")
+    lines.append("Folds:")
+    for fold in sorted(diagram.folds, key=lambda f: f.control):
+        where = "" if fold.in_range else " (outside the control range)"
+        state = ", ".join(f"{k} = {v:.4g}" for k, v in state_dict(diagram.system.variables, fold.state).items())
+        lines.append(f"  {fold.kind:<9} at {fold.control:.6g} {unit}  [{state}]{where}")
+    if not diagram.folds:
+        lines.append("  none in the searched range")
+    lines.append("")
+    lines.append(f"Now: {name} = {standing.control:g} {unit}")
+    if standing.attractor is None:
+        lines.append(f"  The current state {standing.status}.")
+    else:
+        regime = "the desired (clear) regime" if standing.desired else "an undesired regime"
+        lines.append(f"  With the control held, the lake settles in {regime}.")
+    if standing.separatrix:
+        values = ", ".join(f"{v:.4g}" for v in standing.separatrix)
+        lines.append(f"  Basin boundary (unstable equilibrium) at {diagram.system.variables[0]} = {values}")
+    if standing.to_recovery is not None:
+        if standing.to_recovery > 0:
+            lines.append(f"  The control must fall by {standing.to_recovery:.4g} {unit} to pass the recovery threshold.")
+        else:
+            lines.append(f"  The control is already {-standing.to_recovery:.4g} {unit} below the recovery threshold.")
+    if standing.to_collapse is not None and standing.to_collapse > 0:
+        lines.append(f"  It may rise by {standing.to_collapse:.4g} {unit} before the collapse threshold.")
+    lines += ["", CAUTION]
+    return "\n".join(lines)
+
+
+def check_text(scenario, source: str) -> str:
+    """Short summary printed by `planner check`."""
+    control = scenario.control
+    lines = [
+        f"{source}: valid",
+        f"  name:      {scenario.name}",
+        f"  model:     {scenario.spec.kind} ({', '.join(scenario.spec.variables)})",
+        f"  control:   {control.parameter} = {scenario.current_control:g} {control.unit}, "
+        f"range [{control.range[0]:g}, {control.range[1]:g}]",
+        f"  target:    {scenario.target.regime} {scenario.target.variable}"
+        + ("" if scenario.target.threshold is None else f", threshold {scenario.target.threshold:g}"),
+        f"  schedules: {len(scenario.schedules)}"
+        + "".join(f"\n    - {s.name} ({s.kind})" for s in scenario.schedules),
+    ]
+    return "\n".join(lines)
