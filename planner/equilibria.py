@@ -18,7 +18,6 @@ from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
-from scipy.optimize import brentq
 
 from planner.models import System
 from planner.simulate import Status, settle
@@ -28,6 +27,7 @@ EXTEND = 0.5  # continue this fraction of the range width beyond each end, to fi
 SEED_CONTROLS_1D = 41
 SEED_CONTROLS_ND = 9
 SEED_GRID_1D = 4000
+BISECTIONS = 60
 NEWTON_STARTS_ND = 256
 STEP_START = 0.002
 STEP_MAX = 0.01
@@ -38,7 +38,9 @@ CORRECTOR_TOL = 1e-10
 MAX_POINTS = 20000
 FOLD_TOL = 1e-10
 COVER_DISTANCE = 2e-3
+NEGATIVE_MARGIN = 0.02  # scaled state allowed below zero for non-negative models
 SAME_POINT = 1e-7
+FOLD_NUDGE = 1e-3  # how far past a fold (fraction of the range width) the jump is probed
 
 Classification = Literal["reversible", "hysteretic", "irreversible"]
 FoldKind = Literal["collapse", "recovery", "fold"]
@@ -138,13 +140,14 @@ class Diagram:
         found: list[Equilibrium] = []
         for branch in self.branches:
             c = branch.controls
-            crossing = np.nonzero((c[:-1] - u) * (c[1:] - u) <= 0)[0]
-            for i in crossing:
-                if c[i + 1] == c[i]:
-                    guess = branch.states[i]
-                else:
-                    w = (u - c[i]) / (c[i + 1] - c[i])
-                    guess = (1 - w) * branch.states[i] + w * branch.states[i + 1]
+            guesses = []
+            for i in np.nonzero((c[:-1] - u) * (c[1:] - u) <= 0)[0]:
+                w = 0.0 if c[i + 1] == c[i] else (u - c[i]) / (c[i + 1] - c[i])
+                guesses.append((1 - w) * branch.states[i] + w * branch.states[i + 1])
+            for end in (0, -1):  # a branch that stops just short of u (e.g. at zero state)
+                if abs(c[end] - u) < 1e-6 * self.scale[-1]:
+                    guesses.append(branch.states[end])
+            for guess in guesses:
                 x = _newton_fixed_control(self.system, guess, u)
                 if x is None:
                     continue
@@ -211,9 +214,7 @@ def _batched_newton(system: System, x: np.ndarray, u: float, nonnegative: bool) 
         x = np.where(ok, new, np.nan)
     f = system.rhs(x, u)
     with np.errstate(invalid="ignore"):
-        good = np.all(np.isfinite(x), axis=0) & np.all(
-            np.abs(f) < 1e-9 * (1 + np.abs(x)), axis=0
-        )
+        good = np.all(np.isfinite(x), axis=0) & np.all(np.abs(f) < 1e-9 * (1 + np.abs(x)), axis=0)
     return x[:, good]
 
 
@@ -236,24 +237,25 @@ def _seeds_1d(system: System, controls: np.ndarray, span: float, nonnegative: bo
     grid = np.unique(np.concatenate([linear, logs] if nonnegative else [linear, logs, -logs]))
     with np.errstate(all="ignore"):
         values = system.rhs(grid[None, :, None], controls[None, :])[0]  # (grid, controls)
-    seeds = []
-    for k, u in enumerate(controls):
-        v = values[:, k]
-        finite = np.isfinite(v)
-        for i in np.nonzero(finite[:-1] & finite[1:] & (np.sign(v[:-1]) * np.sign(v[1:]) <= 0))[0]:
-            a, b = grid[i], grid[i + 1]
-            if v[i] == 0:
-                root = a
-            elif v[i + 1] == 0:
-                continue
-            else:
-                root = brentq(lambda x: float(system.rhs(np.array([x]), u)[0]), a, b, xtol=1e-14)
-            seeds.append((np.array([root]), float(u)))
-    return seeds
+    finite = np.isfinite(values)
+    sign = np.sign(values)
+    i, k = np.nonzero(finite[:-1] & finite[1:] & (sign[:-1] * sign[1:] <= 0) & (sign[1:] != 0))
+    a, b = grid[i], grid[i + 1]
+    u = controls[k]
+    fa = values[i, k]
+    for _ in range(BISECTIONS):  # all brackets at once; 60 halvings reach double precision
+        middle = 0.5 * (a + b)
+        fm = system.rhs(middle[None, :], u)[0]
+        left = np.sign(fm) * np.sign(fa) <= 0
+        b = np.where(left, middle, b)
+        a = np.where(left, a, middle)
+        fa = np.where(left, fa, fm)
+    roots = np.where(values[i, k] == 0, grid[i], 0.5 * (a + b))
+    return [(np.array([root]), float(control)) for root, control in zip(roots, u, strict=True)]
 
 
 def _seeds_nd(
-    system: System, controls: np.ndarray, reference: np.ndarray, nonnegative: bool, limit: float
+    system: System, controls: np.ndarray, reference: np.ndarray, nonnegative: bool
 ) -> list:
     rng = np.random.default_rng(20261202)
     n = system.n
@@ -265,9 +267,6 @@ def _seeds_nd(
     seeds = []
     for u in controls:
         roots = _batched_newton(system, starts, float(u), nonnegative)
-        run = settle(system, reference, float(u), cap=1e5, limit=limit)
-        if run.status is Status.SETTLED:
-            roots = np.concatenate([roots, run.state[:, None]], axis=1)
         for x in _unique_columns(roots, np.maximum(np.abs(reference), 1e-3)):
             seeds.append((x, float(u)))
     return seeds
@@ -285,17 +284,20 @@ class _Tracer:
     nonnegative: bool
     limit: float
 
-    def residual(self, z: np.ndarray) -> np.ndarray:
-        return self.system.rhs(z[:-1] * self.scale[:-1], z[-1] * self.scale[-1])
+    def linearised(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Residual f and its derivative in the scaled coordinates z, from one compiled call."""
+        x, u = z[:-1] * self.scale[:-1], z[-1] * self.scale[-1]
+        f, jac, dfdu = self.system.linearised(x, u)
+        return f, np.column_stack([jac * self.scale[:-1][None, :], dfdu * self.scale[-1]])
 
     def derivative(self, z: np.ndarray) -> np.ndarray:
-        x, u = z[:-1] * self.scale[:-1], z[-1] * self.scale[-1]
-        jac = self.system.jac(x, u) * self.scale[:-1][None, :]
-        dfdu = self.system.dfdu(x, u) * self.scale[-1]
-        return np.column_stack([jac, dfdu])
+        return self.linearised(z)[1]
 
-    def tangent(self, z: np.ndarray, previous: np.ndarray | None) -> np.ndarray:
-        _, _, vt = np.linalg.svd(self.derivative(z))
+    def tangent(self, z: np.ndarray, previous: np.ndarray | None) -> np.ndarray | None:
+        derivative = self.derivative(z)
+        if not np.all(np.isfinite(derivative)):
+            return None
+        _, _, vt = np.linalg.svd(derivative)
         t = vt[-1]
         if previous is not None and t @ previous < 0:
             t = -t
@@ -305,8 +307,9 @@ class _Tracer:
         z = z_pred.copy()
         for _ in range(CORRECTOR_ITERATIONS):
             with np.errstate(all="ignore"):
-                g = np.concatenate([self.residual(z), [t @ (z - z_pred)]])
-                a = np.vstack([self.derivative(z), t])
+                f, derivative = self.linearised(z)
+                g = np.concatenate([f, [t @ (z - z_pred)]])
+                a = np.vstack([derivative, t])
             if not (np.all(np.isfinite(g)) and np.all(np.isfinite(a))):
                 return None
             try:
@@ -324,11 +327,16 @@ class _Tracer:
             return False
         if not np.all(np.isfinite(x)) or np.max(np.abs(x)) > self.limit:
             return False
-        return not (self.nonnegative and np.min(x) < 0)
+        # A little below zero is allowed so that a branch ending at zero state (no load, no
+        # phosphorus) is traced across the lower end of the range rather than stopping short.
+        return not (self.nonnegative and np.min(z[:-1]) < -NEGATIVE_MARGIN)
 
     def trace(self, z0: np.ndarray, direction: float) -> tuple[list[np.ndarray], bool]:
         """Follow the curve from z0 in one direction; returns points and whether it closed."""
-        t = direction * self.tangent(z0, None)
+        t0 = self.tangent(z0, None)
+        if t0 is None:
+            return [z0], False
+        t = direction * t0
         points = [z0]
         h = STEP_START
         z = z0
@@ -336,8 +344,10 @@ class _Tracer:
         while len(points) < MAX_POINTS:
             z_pred = z + h * t
             z_new = self.correct(z_pred, t)
-            if z_new is not None:
-                t_new = self.tangent(z_new, t)
+            t_new = None if z_new is None else self.tangent(z_new, t)
+            if t_new is None:
+                z_new = None
+            else:
                 error = np.linalg.norm(z_new - z_pred)
                 turn = t_new @ t
                 if error > 4 * PREDICTOR_ERROR or turn < 0.95:
@@ -354,7 +364,11 @@ class _Tracer:
                 break
             travelled += np.linalg.norm(z_new - z)
             points.append(z_new)
-            if travelled > 10 * h and np.linalg.norm(z_new - z0) < 1.5 * h and t_new @ (z0 - z_new) > 0:
+            if (
+                travelled > 10 * h
+                and np.linalg.norm(z_new - z0) < 1.5 * h
+                and t_new @ (z0 - z_new) > 0
+            ):
                 points.append(z0)
                 return points, True
             z, t = z_new, t_new
@@ -453,7 +467,11 @@ def compute_diagram(
         seeds = _seeds_1d(system, controls, 10 * max(abs(reference[0]), 1.0), nonnegative)
     else:
         controls = np.linspace(u_bounds[0], u_bounds[1], SEED_CONTROLS_ND)
-        seeds = _seeds_nd(system, controls, reference, nonnegative, limit)
+        seeds = _seeds_nd(system, controls, reference, nonnegative)
+        if current_control is not None:  # the attractor the lake is in now is a seed too
+            run = settle(system, reference, float(current_control), cap=1e5, limit=limit, rtol=1e-7)
+            if run.status is Status.SETTLED:
+                seeds.insert(0, (run.state, float(current_control)))
 
     magnitude = np.max(np.abs([x for x, _ in seeds]), axis=0) if seeds else np.abs(reference)
     scale = np.concatenate([np.maximum(np.maximum(magnitude, np.abs(reference)), 1e-3), [width]])
@@ -462,7 +480,9 @@ def compute_diagram(
     traced: list[np.ndarray] = []
     closed_flags: list[bool] = []
     for k, (x, u) in enumerate(seeds):
-        report(0.1 + 0.7 * k / max(len(seeds), 1), f"tracing equilibrium curves ({len(traced)} so far)")
+        report(
+            0.1 + 0.7 * k / max(len(seeds), 1), f"tracing equilibrium curves ({len(traced)} so far)"
+        )
         z0 = np.concatenate([x / scale[:-1], [u / scale[-1]]])
         if any(_distance_to_polyline(z0, line) < COVER_DISTANCE for line in traced):
             continue
@@ -490,29 +510,24 @@ def compute_diagram(
         steps = np.diff(controls_b)
         extremes = np.nonzero(np.sign(steps[:-1]) * np.sign(steps[1:]) < 0)[0] + 1
         for i in np.nonzero(stable[:-1] != stable[1:])[0]:
-            if np.min(np.abs(extremes - i), initial=99) <= 2 or np.min(np.abs(extremes - i - 1), initial=99) <= 2:
+            if (
+                np.min(np.abs(extremes - i), initial=99) <= 2
+                or np.min(np.abs(extremes - i - 1), initial=99) <= 2
+            ):
                 continue  # the change belongs to a fold
             w = leading[i] / (leading[i] - leading[i + 1])
             u_c = float((1 - w) * controls_b[i] + w * controls_b[i + 1])
             oscillatory = bool(np.any(np.abs(eigenvalues[i : i + 2].imag) > 0))
             changes.append(
-                StabilityChange(u_c, (1 - w) * states[i] + w * states[i + 1], oscillatory, low <= u_c <= high)
+                StabilityChange(
+                    u_c, (1 - w) * states[i] + w * states[i + 1], oscillatory, low <= u_c <= high
+                )
             )
         for extreme in extremes:
             x_f, u_f, residual = _refine_fold(system, states[extreme], controls_b[extreme])
             side = np.sign(controls_b[extreme - 1] - controls_b[extreme])
             raw_folds.append((len(branches) - 1, extreme, x_f, u_f, residual, -int(side or 1)))
 
-    folds: list[Fold] = []
-    fold_places: list[tuple[int, int]] = []
-    for branch_index, index, x_f, u_f, residual, vanish in raw_folds:
-        if any(abs(u_f - f.control) < 1e-9 * width and np.allclose(x_f, f.state, rtol=1e-7) for f in folds):
-            continue
-        kind = _fold_kind(system, x_f, u_f, vanish, width, target_index, regime, limit)
-        folds.append(Fold(float(u_f), x_f, kind, residual, vanish, bool(low <= u_f <= high)))
-        fold_places.append((branch_index, index))
-
-    windows = _windows(branches, folds, fold_places)
     diagram = Diagram(
         system=system,
         control_range=(low, high),
@@ -520,13 +535,30 @@ def compute_diagram(
         target_index=target_index,
         regime=regime,
         branches=branches,
-        folds=folds,
-        windows=windows,
+        folds=[],
+        windows=[],
         window=None,
         classification="reversible",
         scale=scale,
         stability_changes=changes,
     )
+    folds: list[Fold] = []
+    fold_places: list[tuple[int, int]] = []
+    for branch_index, index, x_f, u_f, residual, vanish in raw_folds:
+        if any(
+            abs(u_f - f.control) < 1e-9 * width and np.allclose(x_f, f.state, rtol=1e-7)
+            for f in folds
+        ):
+            continue
+        change = _jump(diagram, x_f, u_f + vanish * FOLD_NUDGE * width, limit)
+        kind: FoldKind = "fold"
+        if change != 0:
+            improves = change < 0 if regime == "lowest" else change > 0
+            kind = "recovery" if improves else "collapse"
+        folds.append(Fold(float(u_f), x_f, kind, residual, vanish, bool(low <= u_f <= high)))
+        fold_places.append((branch_index, index))
+
+    windows = _windows(diagram, folds, fold_places)
     u_now = least if current_control is None else float(current_control)
     window = _main_window(windows, u_now, (low, high))
     stable_at_least = [e for e in diagram.equilibria_at(least) if e.stable]
@@ -537,43 +569,44 @@ def compute_diagram(
     else:
         classification = "reversible"
     report(1.0, "done")
-    return Diagram(**{**diagram.__dict__, "window": window, "classification": classification})
+    fields = {"folds": folds, "windows": windows, "window": window}
+    return Diagram(**{**diagram.__dict__, **fields, "classification": classification})
 
 
-def _fold_kind(
-    system: System,
-    x_f: np.ndarray,
-    u_f: float,
-    vanish: int,
-    width: float,
-    target_index: int,
-    regime: str,
-    limit: float,
-) -> FoldKind:
-    """Pass the fold by a little and see where the state goes: lower (desired) or higher.
+def _jump(diagram: Diagram, x_f: np.ndarray, u_beyond: float, limit: float) -> float:
+    """Sign of the change in the target variable when the control passes a fold a little.
 
-    The kind follows the jump, not the local stability: in slow-fast lakes the turbid
-    equilibrium can lose stability (a Hopf point) before its fold, and the fold still marks
-    where the turbid branch ends; :attr:`Diagram.stability_changes` reports such points.
+    The kind of a fold follows this jump, not the local stability: in slow-fast lakes the
+    turbid equilibrium can lose stability (a Hopf point) before its fold, and the fold still
+    marks where the turbid branch ends (:attr:`Diagram.stability_changes` reports such points).
+    In 1-D the destination is exact: the nearest stable equilibrium in the direction of the
+    flow (none: the state runs off that way). In n-D the state is integrated until it settles.
+    Returns -1, +1, or 0 when the state does not move measurably.
     """
-    run = settle(system, x_f, u_f + vanish * 1e-3 * width, cap=1e5, limit=limit)
-    if run.status is not Status.SETTLED:
-        return "fold"
-    change = run.state[target_index] - x_f[target_index]
-    if abs(change) < 1e-6 * max(abs(x_f[target_index]), 1e-9):
-        return "fold"
-    improves = change < 0 if regime == "lowest" else change > 0
-    return "recovery" if improves else "collapse"
+    k = diagram.target_index
+    system = diagram.system
+    if system.n == 1:
+        direction = np.sign(system.rhs(x_f, u_beyond)[0])
+        return float(direction)
+    run = settle(system, x_f, u_beyond, cap=1e5, limit=limit, rtol=1e-7)
+    if run.status not in (Status.SETTLED, Status.DIVERGED):
+        return 0.0
+    change = run.state[k] - x_f[k]
+    if not np.isfinite(change) or abs(change) < 1e-6 * max(abs(x_f[k]), 1e-9):
+        return 0.0
+    return float(np.sign(change))
 
 
-def _windows(branches: list[Branch], folds: list[Fold], places: list[tuple[int, int]]) -> list[Window]:
+def _windows(diagram: Diagram, folds: list[Fold], places: list[tuple[int, int]]) -> list[Window]:
     """Pair consecutive recovery and collapse folds along each branch into bistable windows.
 
     A fold left without its partner (the other one lies beyond the search) gives a half-open
-    window: Window(None, collapse) means the undesired state persists below the whole search.
+    window, Window(None, collapse): the undesired state persists below the whole search; but
+    only where two stable states really coexist next to the fold.
     """
     windows = []
-    for b in range(len(branches)):
+    width = diagram.control_range[1] - diagram.control_range[0]
+    for b in range(len(diagram.branches)):
         on_branch = sorted(
             ((index, fold) for (bb, index), fold in zip(places, folds, strict=True) if bb == b),
             key=lambda pair: pair[0],
@@ -590,6 +623,9 @@ def _windows(branches: list[Branch], folds: list[Fold], places: list[tuple[int, 
         for fold in kinds:
             if id(fold) in paired:
                 continue
+            inside = fold.control - fold.vanish_direction * FOLD_NUDGE * width
+            if sum(e.stable for e in diagram.equilibria_at(inside)) < 2:
+                continue
             if fold.kind == "collapse":
                 windows.append(Window(None, fold.control))
             else:
@@ -603,7 +639,9 @@ def _overlap(window: Window, interval: tuple[float, float]) -> float:
     return max(0.0, min(high, interval[1]) - max(low, interval[0]))
 
 
-def _main_window(windows: list[Window], u_now: float, interval: tuple[float, float]) -> Window | None:
+def _main_window(
+    windows: list[Window], u_now: float, interval: tuple[float, float]
+) -> Window | None:
     """The window holding the current control, else the one overlapping the range most."""
     if not windows:
         return None
@@ -648,7 +686,9 @@ def locate(diagram: Diagram, state: np.ndarray, control: float, *, limit: float 
     equilibria = diagram.equilibria_at(control)
     stable = [e.state for e in equilibria if e.stable]
     separatrix = (
-        sorted(float(e.state[0]) for e in equilibria if not e.stable) if diagram.system.n == 1 else []
+        sorted(float(e.state[0]) for e in equilibria if not e.stable)
+        if diagram.system.n == 1
+        else []
     )
     run = settle(diagram.system, np.asarray(state, dtype=float), control, cap=1e5, limit=limit)
     attractor = run.state if run.status is Status.SETTLED else None

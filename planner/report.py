@@ -23,7 +23,9 @@ def state_dict(variables: tuple[str, ...], x: np.ndarray) -> dict[str, float]:
     return {name: float(value) for name, value in zip(variables, x, strict=True)}
 
 
-def clipped_runs(branch: Branch, low: float, high: float) -> list[tuple[bool, np.ndarray, np.ndarray]]:
+def clipped_runs(
+    branch: Branch, low: float, high: float
+) -> list[tuple[bool, np.ndarray, np.ndarray]]:
     """Runs of equal stability cut to the control range, with interpolated end points."""
     pieces = []
     for stable, part in branch.runs():
@@ -113,7 +115,9 @@ def standing_json(variables: tuple[str, ...], standing: Standing) -> dict[str, A
     return {
         "control": standing.control,
         "state": state_dict(variables, standing.state),
-        "attractor": None if standing.attractor is None else state_dict(variables, standing.attractor),
+        "attractor": None
+        if standing.attractor is None
+        else state_dict(variables, standing.attractor),
         "regime": {True: "desired", False: "undesired", None: "none"}[standing.desired],
         "integration": standing.status,
         "separatrix": standing.separatrix,
@@ -137,7 +141,7 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing) -> str:
         "hysteretic": "hysteretic: two stable states over a window of control values",
         "irreversible": (
             "irreversible: the undesired state persists even at the lowest achievable "
-            f"{name.lower()} ({diagram.least:g} {unit})"
+            f"{name} ({diagram.least:g} {unit})"
         ),
     }
     lines = [scenario.name, "", f"Lake verdict: {verdicts[diagram.classification]}"]
@@ -153,7 +157,9 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing) -> str:
     lines.append("Folds:")
     for fold in sorted(diagram.folds, key=lambda f: f.control):
         where = "" if fold.in_range else " (outside the control range)"
-        state = ", ".join(f"{k} = {v:.4g}" for k, v in state_dict(diagram.system.variables, fold.state).items())
+        state = ", ".join(
+            f"{k} = {v:.4g}" for k, v in state_dict(diagram.system.variables, fold.state).items()
+        )
         lines.append(f"  {fold.kind:<9} at {fold.control:.6g} {unit}  [{state}]{where}")
     if not diagram.folds:
         lines.append("  none in the searched range")
@@ -166,14 +172,22 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing) -> str:
         lines.append(f"  With the control held, the lake settles in {regime}.")
     if standing.separatrix:
         values = ", ".join(f"{v:.4g}" for v in standing.separatrix)
-        lines.append(f"  Basin boundary (unstable equilibrium) at {diagram.system.variables[0]} = {values}")
+        lines.append(
+            f"  Basin boundary (unstable equilibrium) at {diagram.system.variables[0]} = {values}"
+        )
     if standing.to_recovery is not None:
         if standing.to_recovery > 0:
-            lines.append(f"  The control must fall by {standing.to_recovery:.4g} {unit} to pass the recovery threshold.")
+            lines.append(
+                f"  The control must fall by {standing.to_recovery:.4g} {unit} to pass the recovery threshold."
+            )
         else:
-            lines.append(f"  The control is already {-standing.to_recovery:.4g} {unit} below the recovery threshold.")
+            lines.append(
+                f"  The control is already {-standing.to_recovery:.4g} {unit} below the recovery threshold."
+            )
     if standing.to_collapse is not None and standing.to_collapse > 0:
-        lines.append(f"  It may rise by {standing.to_collapse:.4g} {unit} before the collapse threshold.")
+        lines.append(
+            f"  It may rise by {standing.to_collapse:.4g} {unit} before the collapse threshold."
+        )
     lines += ["", CAUTION]
     return "\n".join(lines)
 
@@ -188,7 +202,11 @@ def check_text(scenario, source: str) -> str:
         f"  control:   {control.parameter} = {scenario.current_control:g} {control.unit}, "
         f"range [{control.range[0]:g}, {control.range[1]:g}]",
         f"  target:    {scenario.target.regime} {scenario.target.variable}"
-        + ("" if scenario.target.threshold is None else f", threshold {scenario.target.threshold:g}"),
+        + (
+            ""
+            if scenario.target.threshold is None
+            else f", threshold {scenario.target.threshold:g}"
+        ),
         f"  schedules: {len(scenario.schedules)}"
         + "".join(f"\n    - {s.name} ({s.kind})" for s in scenario.schedules),
     ]

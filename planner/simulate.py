@@ -77,6 +77,7 @@ def settle(
     cap: float = 20000.0,
     limit: float = 1e6,
     scale: np.ndarray | None = None,
+    rtol: float = 1e-9,
 ) -> Run:
     """Hold the control at ``u`` and integrate from ``x0`` until the state stops moving.
 
@@ -103,8 +104,8 @@ def settle(
         x0,
         method="Radau",
         jac=lambda t, x: system.jac(x, u),
-        rtol=1e-9,
-        atol=np.maximum(scale, 1.0) * 1e-12,
+        rtol=rtol,
+        atol=np.maximum(scale, 1.0) * rtol * 1e-3,
         events=(settled, diverged),
     )
     end = solution.y[:, -1]

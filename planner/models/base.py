@@ -11,12 +11,13 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
-from functools import cache
+from functools import cache, cached_property
 
 import numpy as np
 import sympy
 
 Array = np.ndarray
+ZERO_STATE = 1e-300
 
 
 @dataclass(frozen=True)
@@ -67,6 +68,8 @@ class ModelSpec:
 
 def _broadcast_stack(values: Sequence[object], shape: tuple[int, ...]) -> Array:
     """Stack lambdified outputs that may be scalars (constant entries) into one array."""
+    if not shape:  # a single point: the common case inside integrators, keep it cheap
+        return np.array(values, dtype=float)
     return np.stack([np.broadcast_to(np.asarray(v, dtype=float), shape) for v in values])
 
 
@@ -81,6 +84,7 @@ class CompiledModel:
     _dfdu: Callable[..., object]
     _d2f: Callable[..., object]
     _d2fdxdu: Callable[..., object]
+    _linear: Callable[..., object]
 
     @property
     def n_variables(self) -> int:
@@ -92,8 +96,7 @@ class CompiledModel:
         if missing:
             raise KeyError(f"parameters without a value: {', '.join(missing)}")
         values = tuple(
-            None if name == self.control else parameters[name]
-            for name in self.spec.parameter_names
+            None if name == self.control else parameters[name] for name in self.spec.parameter_names
         )
         return System(self, values)
 
@@ -124,6 +127,7 @@ def compile_model(spec: ModelSpec, control: str) -> CompiledModel:
         _dfdu=compile_list(dfdu),
         _d2f=compile_list(d2f),
         _d2fdxdu=compile_list(d2fdxdu),
+        _linear=compile_list([*rhs, *jac, *dfdu]),
     )
 
 
@@ -139,6 +143,10 @@ class System:
     model: CompiledModel
     parameter_values: tuple[object, ...]
 
+    @cached_property
+    def _scalar_parameters(self) -> bool:
+        return all(np.ndim(value) == 0 for value in self.parameter_values)
+
     @property
     def n(self) -> int:
         return self.model.n_variables
@@ -147,9 +155,17 @@ class System:
     def variables(self) -> tuple[str, ...]:
         return self.model.spec.variables
 
-    def _arguments(self, x: Array, u: float | Array) -> tuple[list[object], tuple[int, ...]]:
+    def _arguments(
+        self, x: Array, u: float | Array, derivative: bool = False
+    ) -> tuple[list[object], tuple[int, ...]]:
         x = np.asarray(x, dtype=float)
+        if derivative and self.model.spec.nonnegative_state:
+            # Derivatives of P**q/(m**q + P**q) compile to forms such as P**q/P, which are
+            # 0/0 at P = 0 exactly; a state of 1e-300 gives their limit instead.
+            x = np.where(x == 0.0, ZERO_STATE, x)
         params = [u if value is None else value for value in self.parameter_values]
+        if x.ndim == 1 and self._scalar_parameters and np.ndim(u) == 0:
+            return [*x, *params], ()
         shape = np.broadcast_shapes(x.shape[1:], *(np.shape(p) for p in params))
         return [*x, *params], shape
 
@@ -158,7 +174,7 @@ class System:
         return _broadcast_stack(self.model._rhs(*args), shape)
 
     def jac(self, x: Array, u: float | Array) -> Array:
-        args, shape = self._arguments(x, u)
+        args, shape = self._arguments(x, u, derivative=True)
         n = self.n
         return _broadcast_stack(self.model._jac(*args), shape).reshape(n, n, *shape)
 
@@ -166,15 +182,22 @@ class System:
         args, shape = self._arguments(x, u)
         return _broadcast_stack(self.model._dfdu(*args), shape)
 
+    def linearised(self, x: Array, u: float | Array) -> tuple[Array, Array, Array]:
+        """Right-hand side, Jacobian and d/du in one call (continuation needs all three)."""
+        args, shape = self._arguments(x, u, derivative=True)
+        n = self.n
+        values = _broadcast_stack(self.model._linear(*args), shape)
+        return values[:n], values[n : n + n * n].reshape(n, n, *shape), values[n + n * n :]
+
     def hessians(self, x: Array, u: float | Array) -> Array:
         """Second derivatives d2 f_i / dx_j dx_k, shape (n, n, n, *batch)."""
-        args, shape = self._arguments(x, u)
+        args, shape = self._arguments(x, u, derivative=True)
         n = self.n
         return _broadcast_stack(self.model._d2f(*args), shape).reshape(n, n, n, *shape)
 
     def jac_u(self, x: Array, u: float | Array) -> Array:
         """Derivative of the Jacobian in the control, shape (n, n, *batch)."""
-        args, shape = self._arguments(x, u)
+        args, shape = self._arguments(x, u, derivative=True)
         n = self.n
         return _broadcast_stack(self.model._d2fdxdu(*args), shape).reshape(n, n, *shape)
 

@@ -30,9 +30,7 @@ class Control(Strict):
         if not low < high:
             problems.append((("range",), f"lower end {low:g} must be below upper end {high:g}"))
         elif self.lowest_achievable is not None and not low <= self.lowest_achievable <= high:
-            problems.append(
-                (("lowest_achievable",), f"must lie within range [{low:g}, {high:g}]")
-            )
+            problems.append((("lowest_achievable",), f"must lie within range [{low:g}, {high:g}]"))
         raise_problems("control", problems, self.range)
         return self
 

@@ -90,7 +90,9 @@ def scenario_to_toml(scenario: Scenario) -> str:
     return tomli_w.dumps(data)
 
 
-def save_scenario(scenario: Scenario, path: str | os.PathLike[str], *, overwrite: bool = False) -> Path:
+def save_scenario(
+    scenario: Scenario, path: str | os.PathLike[str], *, overwrite: bool = False
+) -> Path:
     """Write atomically (temporary file in the same folder, then rename).
 
     Refuses to replace an existing file unless ``overwrite`` is set, so nothing saved is lost.
@@ -110,7 +112,9 @@ def save_scenario(scenario: Scenario, path: str | os.PathLike[str], *, overwrite
             os.unlink(temporary)
     except FileExistsError:
         os.unlink(temporary)
-        raise InputError([Problem(str(path), "(file)", "exists already; choose another name")]) from None
+        raise InputError(
+            [Problem(str(path), "(file)", "exists already; choose another name")]
+        ) from None
     except BaseException:
         if os.path.exists(temporary):
             os.unlink(temporary)

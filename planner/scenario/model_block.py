@@ -22,7 +22,9 @@ def _parameter_problems(spec: ModelSpec, parameters: dict[str, float]) -> list[t
     problems: list[tuple[Loc, str]] = []
     for info in spec.parameters:
         if info.name not in parameters:
-            problems.append(((info.name,), f"missing: {info.meaning or 'a parameter'} needs a value"))
+            problems.append(
+                ((info.name,), f"missing: {info.meaning or 'a parameter'} needs a value")
+            )
         elif (why := info.violation(parameters[info.name])) is not None:
             problems.append(((info.name,), why))
     known = set(spec.parameter_names)

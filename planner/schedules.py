@@ -1,0 +1,373 @@
+"""Schedules as plain data: the control path u(t) and the discrete in-lake actions.
+
+A schedule from the scenario file becomes a :class:`ControlPath` (piecewise linear in time,
+jumps allowed) and an :class:`ActionTimeline` (state rescalings and parameter multipliers).
+Times are in years from now (t = 0); control values are in the control's own unit, for example
+t P / yr. Limits (lowest achievable value, largest yearly change) are checked, never enforced:
+an infeasible schedule is reported with the first time it breaks a limit, and nothing is clipped.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from planner.scenario.schedule_blocks import (
+    OvershootSchedule,
+    ParameterPulse,
+    PathSchedule,
+    ScaleState,
+    StaircaseSchedule,
+)
+
+REL_TOL = 1e-9
+"""Relative slack before a limit counts as broken (absorbs rounding in the schedule's numbers)."""
+
+LIMIT_LOWEST = "lowest achievable"
+LIMIT_RATE = "largest yearly change"
+LIMIT_CAPACITY = "abatement capacity"
+
+
+def _with_unit(value: float, unit: str) -> str:
+    return f"{value:g} {unit}" if unit else f"{value:g}"
+
+
+# --------------------------------------------------------------------------------------------
+# control path
+
+
+@dataclass(frozen=True, eq=False)
+class ControlPath:
+    """Piecewise-linear control: breakpoints (times non-decreasing, starting at 0); a jump is two
+    consecutive breakpoints with the same time. Held at the last value after the last breakpoint.
+
+    Times in years, values in the control's unit. The path is right-continuous: at a jump time it
+    takes the value after the jump. Before t = 0 it takes the first value.
+    """
+
+    times: np.ndarray
+    values: np.ndarray
+    _slopes: np.ndarray = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        times = np.array(self.times, dtype=float).reshape(-1)
+        values = np.array(self.values, dtype=float).reshape(-1)
+        if times.size == 0 or times.size != values.size:
+            raise ValueError("a control path needs equally many (at least one) times and values")
+        if not (np.all(np.isfinite(times)) and np.all(np.isfinite(values))):
+            raise ValueError("control path times and values must be finite")
+        if times[0] != 0.0:
+            raise ValueError(f"a control path starts at time 0, not {times[0]:g}")
+        if np.any(np.diff(times) < 0):
+            raise ValueError("control path times must be non-decreasing")
+        steps = np.diff(times)
+        slopes = np.zeros_like(values)
+        moving = steps > 0
+        slopes[:-1][moving] = np.diff(values)[moving] / steps[moving]
+        for name, array in (("times", times), ("values", values), ("_slopes", slopes)):
+            array.setflags(write=False)
+            object.__setattr__(self, name, array)
+
+    def _index(self, t: np.ndarray) -> np.ndarray:
+        """Index of the last breakpoint at or before t (0 for t before the start)."""
+        return np.clip(np.searchsorted(self.times, t, side="right") - 1, 0, self.times.size - 1)
+
+    def __call__(self, t: float | np.ndarray) -> float | np.ndarray:
+        """Control value at time(s) t (years), right-continuous at jumps; vectorised."""
+        ts = np.asarray(t, dtype=float)
+        j = self._index(ts)
+        u = self.values[j] + self._slopes[j] * np.maximum(ts - self.times[j], 0.0)
+        return float(u) if u.ndim == 0 else u
+
+    def slope(self, t: float | np.ndarray) -> float | np.ndarray:
+        """Slope (control unit per year) of the linear piece starting at or containing t.
+
+        After the last breakpoint, and before t = 0, the control is held: slope 0. Vectorised.
+        """
+        ts = np.asarray(t, dtype=float)
+        s = np.where(ts < 0, 0.0, self._slopes[self._index(ts)])
+        return float(s) if s.ndim == 0 else s
+
+    def kinks(self, horizon: float) -> np.ndarray:
+        """Sorted unique breakpoint times (years) in [0, horizon]."""
+        inside = self.times[(self.times >= 0) & (self.times <= horizon)]
+        return np.unique(inside)
+
+    def pieces(self, horizon: float) -> list[tuple[float, float, float, float]]:
+        """The path on [0, horizon] as (a, b, u(a+), u(b-)) in time order.
+
+        Linear pieces have a < b (cut at the horizon, the held tail included); a jump at time a
+        <= horizon is the piece (a, a, before, after).
+        """
+        out: list[tuple[float, float, float, float]] = []
+        times, values = self.times, self.values
+        for j in range(times.size - 1):
+            a, b = float(times[j]), float(times[j + 1])
+            if a > horizon or (a == horizon and b > a):
+                break
+            if b == a:
+                if values[j] != values[j + 1]:
+                    out.append((a, a, float(values[j]), float(values[j + 1])))
+                continue
+            end = min(b, horizon)
+            v_end = (
+                float(values[j + 1]) if end == b else float(values[j] + self._slopes[j] * (end - a))
+            )
+            out.append((a, end, float(values[j]), v_end))
+        last = float(times[-1])
+        if last < horizon:
+            out.append((last, float(horizon), float(values[-1]), float(values[-1])))
+        return out
+
+    def minimum(self, horizon: float) -> float:
+        """Lowest control value over [0, horizon] (from breakpoints and the value at the horizon).
+
+        A value just before a jump counts (it is the limit of values the control takes).
+        """
+        pieces = self.pieces(horizon)
+        if not pieces:
+            return float(self(horizon))
+        return float(min(min(p[2], p[3]) for p in pieces))
+
+    def time_below(self, level: float, horizon: float) -> float:
+        """Total years in [0, horizon] with u(t) < level; exact for a piecewise-linear path."""
+        total = 0.0
+        for a, b, va, vb in self.pieces(horizon):
+            length = b - a
+            if length <= 0:
+                continue
+            if va < level and vb < level:
+                total += length
+            elif va >= level and vb >= level:
+                continue
+            else:
+                s = (level - va) / (vb - va)  # fraction of the piece where u = level
+                s = min(max(s, 0.0), 1.0)
+                total += length * (s if vb > va else 1.0 - s)
+        return total
+
+
+def _tidy(points: list[tuple[float, float]]) -> ControlPath:
+    """Build the path, keeping of several breakpoints at one time only the first and the last.
+
+    A value passed through in zero time (say an overshoot with no ramps and no hold) is never
+    taken by the control, so it is dropped; a run whose first and last values agree is one point.
+    """
+    kept: list[tuple[float, float]] = []
+    i = 0
+    while i < len(points):
+        k = i
+        while k + 1 < len(points) and points[k + 1][0] == points[i][0]:
+            k += 1
+        kept.append(points[i])
+        if points[k][1] != points[i][1]:
+            kept.append(points[k])
+        i = k + 1
+    times, values = zip(*kept, strict=True)
+    return ControlPath(np.array(times), np.array(values))
+
+
+def control_path(
+    schedule: PathSchedule | StaircaseSchedule | OvershootSchedule, *, current: float
+) -> ControlPath:
+    """The control path u(t) a schedule asks for, starting from the ``current`` value at t = 0.
+
+    - path: linear from ``current`` at t = 0 to the first point (a jump at t = 0 when that point
+      is at time 0 with another value), then linear between points, held after the last.
+    - staircase: ``current`` held until ``start``; the change to level k (from the previous level,
+      or from ``current`` for k = 0) begins at start + k * step_years and takes ``ramp_years``
+      (0: a jump); the level is then held until the next change; the last level is held.
+    - overshoot: ``current`` held until ``start``; linear to ``floor`` over ``down_years`` (0: a
+      jump); ``floor`` held for ``hold_years``; linear to ``relax_to`` over ``up_years`` (0: a
+      jump); held after.
+
+    Times in years, values in the control's unit.
+    """
+    current = float(current)
+    points: list[tuple[float, float]] = [(0.0, current)]
+    if isinstance(schedule, PathSchedule):
+        points += [(float(t), float(v)) for t, v in schedule.points]
+    elif isinstance(schedule, StaircaseSchedule):
+        start, step, ramp = schedule.start, schedule.step_years, schedule.ramp_years
+        points.append((start, current))
+        previous = current
+        for k, level in enumerate(schedule.levels):
+            begin = start + k * step
+            points += [(begin, previous), (begin + ramp, float(level))]
+            previous = float(level)
+    elif isinstance(schedule, OvershootSchedule):
+        t = schedule.start
+        points.append((t, current))
+        t += schedule.down_years
+        points.append((t, schedule.floor))
+        t += schedule.hold_years
+        points.append((t, schedule.floor))
+        t += schedule.up_years
+        points.append((t, schedule.relax_to))
+    else:
+        raise TypeError(f"not a schedule: {type(schedule).__name__}")
+    return _tidy(points)
+
+
+# --------------------------------------------------------------------------------------------
+# limits
+
+
+@dataclass(frozen=True)
+class Infeasibility:
+    """The first broken limit of a schedule.
+
+    ``time`` in years; ``limit`` is "lowest achievable", "largest yearly change" or
+    "abatement capacity"; ``message`` is a full sentence with numbers and units.
+    """
+
+    time: float
+    limit: str
+    message: str
+
+
+def check_limits(
+    path: ControlPath,
+    *,
+    horizon: float,
+    lowest: float,
+    max_change_per_year: float | None,
+    unit: str = "",
+) -> Infeasibility | None:
+    """The first time in [0, horizon] (years) the path breaks a limit, or None.
+
+    The control is below the lowest achievable value when it is lower by more than ``REL_TOL``
+    relative to ``lowest``; a linear piece is too fast when its |slope| exceeds
+    ``max_change_per_year`` (control unit per year) by more than ``REL_TOL`` relative; a jump is
+    an infinite rate. When both limits break at the same time the lowest-value one is reported.
+    """
+    threshold = lowest - REL_TOL * abs(lowest)
+    rate_cap = None if max_change_per_year is None else max_change_per_year * (1 + REL_TOL)
+    per_year = f"{unit} per year" if unit else "per year"
+    for a, b, va, vb in path.pieces(horizon):
+        found: list[Infeasibility] = []
+        low = f"the lowest achievable {_with_unit(lowest, unit)}"
+        if va < threshold:
+            found.append(
+                Infeasibility(
+                    a,
+                    LIMIT_LOWEST,
+                    f"at year {a:g} the control is {_with_unit(va, unit)}, below {low}",
+                )
+            )
+        elif vb < threshold and b == a:
+            found.append(
+                Infeasibility(
+                    a,
+                    LIMIT_LOWEST,
+                    f"at year {a:g} the control jumps to {_with_unit(vb, unit)}, below {low}",
+                )
+            )
+        elif vb < threshold:
+            when = a + (threshold - va) / (vb - va) * (b - a)
+            found.append(
+                Infeasibility(
+                    when,
+                    LIMIT_LOWEST,
+                    f"at year {when:g} the control falls below {low}; "
+                    f"it reaches {_with_unit(vb, unit)} at year {b:g}",
+                )
+            )
+        if rate_cap is not None and va != vb:
+            if b == a:
+                found.append(
+                    Infeasibility(
+                        a,
+                        LIMIT_RATE,
+                        f"at year {a:g} the control jumps from {_with_unit(va, unit)} to "
+                        f"{_with_unit(vb, unit)} at once, an infinite rate against the largest "
+                        f"yearly change {max_change_per_year:g} {per_year}",
+                    )
+                )
+            elif abs(vb - va) / (b - a) > rate_cap:
+                rate = abs(vb - va) / (b - a)
+                found.append(
+                    Infeasibility(
+                        a,
+                        LIMIT_RATE,
+                        f"from year {a:g} the control changes by {rate:g} {per_year}, more than "
+                        f"the largest yearly change {max_change_per_year:g} {per_year}",
+                    )
+                )
+        if found:
+            return min(found, key=lambda f: (f.time, f.limit != LIMIT_LOWEST))
+    return None
+
+
+# --------------------------------------------------------------------------------------------
+# actions
+
+
+def _pulse_multiplier(pulse: ParameterPulse, t: float) -> float:
+    end = pulse.start + pulse.duration
+    if t < pulse.start:
+        return 1.0
+    if t < end:
+        return float(pulse.factor)
+    if pulse.decay_years > 0:
+        return 1.0 + (pulse.factor - 1.0) * math.exp(-(t - end) / pulse.decay_years)
+    return 1.0
+
+
+@dataclass(frozen=True)
+class ActionTimeline:
+    """Events and parameter multipliers of a schedule's actions.
+
+    ``state_events``: (time in years, state variable, factor) sorted by time.
+    ``pulses``: the parameter pulses, in the order given.
+    ``one_off_costs``: (time in years, cost in the scenario's currency) for every action, sorted by
+    time; a pulse's cost falls at its start.
+    """
+
+    state_events: tuple[tuple[float, str, float], ...]
+    pulses: tuple[ParameterPulse, ...]
+    one_off_costs: tuple[tuple[float, float], ...]
+
+    def multipliers(self, t: float) -> dict[str, float]:
+        """Per pulsed parameter, the product of all its pulses' multipliers at time t (years).
+
+        A pulse multiplies by 1 before its start, by ``factor`` on [start, start + duration), and
+        after that by 1 + (factor - 1) exp(-(t - end) / decay_years) if decay_years > 0, else 1.
+        """
+        out: dict[str, float] = {}
+        for pulse in self.pulses:
+            out[pulse.parameter] = out.get(pulse.parameter, 1.0) * _pulse_multiplier(pulse, t)
+        return out
+
+    def kinks(self, horizon: float) -> np.ndarray:
+        """Sorted unique times (years) in [0, horizon] where an action starts, ends or happens."""
+        times = [event[0] for event in self.state_events]
+        for pulse in self.pulses:
+            times += [pulse.start, pulse.start + pulse.duration]
+        array = np.array(times, dtype=float)
+        return np.unique(array[(array >= 0) & (array <= horizon)])
+
+
+def action_timeline(
+    schedule: PathSchedule | StaircaseSchedule | OvershootSchedule,
+) -> ActionTimeline:
+    """Collect a schedule's actions: state rescalings, parameter pulses and their one-off costs."""
+    events: list[tuple[float, str, float]] = []
+    pulses: list[ParameterPulse] = []
+    costs: list[tuple[float, float]] = []
+    for action in schedule.actions:
+        if isinstance(action, ScaleState):
+            events.append((float(action.time), action.variable, float(action.factor)))
+            costs.append((float(action.time), float(action.cost)))
+        elif isinstance(action, ParameterPulse):
+            pulses.append(action)
+            costs.append((float(action.start), float(action.cost)))
+        else:
+            raise TypeError(f"not an action: {type(action).__name__}")
+    return ActionTimeline(
+        state_events=tuple(sorted(events, key=lambda e: e[0])),
+        pulses=tuple(pulses),
+        one_off_costs=tuple(sorted(costs, key=lambda c: c[0])),
+    )
