@@ -131,10 +131,9 @@ def _abatement_by_year(
     )
     cuts = cuts[(cuts >= 0) & (cuts <= horizon)]
     lo, hi = cuts[:-1], cuts[1:]
-    mid, half = (lo + hi) / 2, (hi - lo) / 2
-    u_mid, slope = path(mid), path.slope(mid)
-    r_lo = np.maximum(baseline - (u_mid - slope * half), 0.0)
-    r_hi = np.maximum(baseline - (u_mid + slope * half), 0.0)
+    mid = (lo + hi) / 2
+    r_lo = np.maximum(baseline - path(lo), 0.0)  # after any jump at lo
+    r_hi = np.maximum(baseline - path.left_limit(hi), 0.0)  # before any jump at hi
     cost = (hi - lo) * (_priced_rate(r_lo, measures) + _priced_rate(r_hi, measures)) / 2
     year = np.clip(np.floor(mid).astype(int), 0, years - 1)
     by_year = np.zeros(years)
@@ -157,10 +156,11 @@ def _capacity_breach(
     when = None
     for a, b, ua, ub in path.pieces(horizon):
         ra, rb = baseline - ua, baseline - ub
-        if ra > threshold:
+        if b > a and ra > threshold:
             when = a
         elif rb > threshold:
-            when = a if b == a else a + (threshold - ra) / (rb - ra) * (b - a)
+            share = 0.0 if b == a else min(max((capacity - ra) / (rb - ra), 0.0), 1.0)
+            when = a + share * (b - a)
         if when is not None:
             break
     if when is None:

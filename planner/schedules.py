@@ -49,7 +49,8 @@ class ControlPath:
 
     times: np.ndarray
     values: np.ndarray
-    _slopes: np.ndarray = field(init=False, repr=False)
+    _rise: np.ndarray = field(init=False, repr=False)  # value change to the next breakpoint
+    _run: np.ndarray = field(init=False, repr=False)  # time to the next breakpoint (1 if none)
 
     def __post_init__(self) -> None:
         times = np.array(self.times, dtype=float).reshape(-1)
@@ -62,23 +63,35 @@ class ControlPath:
             raise ValueError(f"a control path starts at time 0, not {times[0]:g}")
         if np.any(np.diff(times) < 0):
             raise ValueError("control path times must be non-decreasing")
-        steps = np.diff(times)
-        slopes = np.zeros_like(values)
-        moving = steps > 0
-        slopes[:-1][moving] = np.diff(values)[moving] / steps[moving]
-        for name, array in (("times", times), ("values", values), ("_slopes", slopes)):
+        # Interpolation uses the fraction of the piece elapsed, never a precomputed slope, so a
+        # piece of tiny length cannot overflow into inf * 0.
+        moving = np.append(np.diff(times) > 0, False)
+        rise = np.where(moving, np.append(np.diff(values), 0.0), 0.0)
+        run = np.where(moving, np.append(np.diff(times), 1.0), 1.0)
+        for name, array in (("times", times), ("values", values), ("_rise", rise), ("_run", run)):
             array.setflags(write=False)
             object.__setattr__(self, name, array)
 
-    def _index(self, t: np.ndarray) -> np.ndarray:
-        """Index of the last breakpoint at or before t (0 for t before the start)."""
-        return np.clip(np.searchsorted(self.times, t, side="right") - 1, 0, self.times.size - 1)
+    def _on_piece(self, j: np.ndarray, t: np.ndarray) -> np.ndarray:
+        """Value at t of the linear piece starting at breakpoint j (t clamped to that piece)."""
+        share = np.clip((t - self.times[j]) / self._run[j], 0.0, 1.0)
+        return self.values[j] + self._rise[j] * share
 
     def __call__(self, t: float | np.ndarray) -> float | np.ndarray:
         """Control value at time(s) t (years), right-continuous at jumps; vectorised."""
         ts = np.asarray(t, dtype=float)
-        j = self._index(ts)
-        u = self.values[j] + self._slopes[j] * np.maximum(ts - self.times[j], 0.0)
+        j = np.clip(np.searchsorted(self.times, ts, side="right") - 1, 0, self.times.size - 1)
+        u = self._on_piece(j, ts)
+        return float(u) if u.ndim == 0 else u
+
+    def left_limit(self, t: float | np.ndarray) -> float | np.ndarray:
+        """Limit of u(s) as s rises to t (years): the value just before a jump; vectorised.
+
+        For t <= 0 this is the first value (the control before the schedule begins).
+        """
+        ts = np.asarray(t, dtype=float)
+        j = np.clip(np.searchsorted(self.times, ts, side="left") - 1, 0, self.times.size - 1)
+        u = self._on_piece(j, ts)
         return float(u) if u.ndim == 0 else u
 
     def slope(self, t: float | np.ndarray) -> float | np.ndarray:
@@ -87,7 +100,9 @@ class ControlPath:
         After the last breakpoint, and before t = 0, the control is held: slope 0. Vectorised.
         """
         ts = np.asarray(t, dtype=float)
-        s = np.where(ts < 0, 0.0, self._slopes[self._index(ts)])
+        j = np.clip(np.searchsorted(self.times, ts, side="right") - 1, 0, self.times.size - 1)
+        with np.errstate(over="ignore"):
+            s = np.where(ts < 0, 0.0, self._rise[j] / self._run[j])
         return float(s) if s.ndim == 0 else s
 
     def kinks(self, horizon: float) -> np.ndarray:
@@ -112,9 +127,7 @@ class ControlPath:
                     out.append((a, a, float(values[j]), float(values[j + 1])))
                 continue
             end = min(b, horizon)
-            v_end = (
-                float(values[j + 1]) if end == b else float(values[j] + self._slopes[j] * (end - a))
-            )
+            v_end = float(values[j + 1]) if end == b else float(self._on_piece(j, end))
             out.append((a, end, float(values[j]), v_end))
         last = float(times[-1])
         if last < horizon:
@@ -124,12 +137,13 @@ class ControlPath:
     def minimum(self, horizon: float) -> float:
         """Lowest control value over [0, horizon] (from breakpoints and the value at the horizon).
 
-        A value just before a jump counts (it is the limit of values the control takes).
+        A value just before a jump at t > 0 counts (the control comes arbitrarily close to it).
         """
-        pieces = self.pieces(horizon)
-        if not pieces:
-            return float(self(horizon))
-        return float(min(min(p[2], p[3]) for p in pieces))
+        # A jump contributes only its value after: the value before it is the end of the
+        # previous piece, or, for a jump at t = 0, the value before the schedule begins.
+        ends = [vb for _, _, _, vb in self.pieces(horizon)]
+        starts = [va for a, b, va, _ in self.pieces(horizon) if b > a]
+        return float(min([*ends, *starts, float(self(horizon))]))
 
     def time_below(self, level: float, horizon: float) -> float:
         """Total years in [0, horizon] with u(t) < level; exact for a piecewise-linear path."""
@@ -249,7 +263,7 @@ def check_limits(
     for a, b, va, vb in path.pieces(horizon):
         found: list[Infeasibility] = []
         low = f"the lowest achievable {_with_unit(lowest, unit)}"
-        if va < threshold:
+        if b > a and va < threshold:
             found.append(
                 Infeasibility(
                     a,
@@ -266,7 +280,8 @@ def check_limits(
                 )
             )
         elif vb < threshold:
-            when = a + (threshold - va) / (vb - va) * (b - a)
+            share = min(max((lowest - va) / (vb - va), 0.0), 1.0)  # where u = lowest
+            when = a + share * (b - a)
             found.append(
                 Infeasibility(
                     when,
