@@ -74,3 +74,27 @@ def page(title: str, sections: Sequence[Section], *, summary: str = "") -> str:
             parts.append(f"<pre>{html.escape(section.text)}</pre>")
     parts.append("</body></html>")
     return "\n".join(parts)
+
+
+def comparison_briefing(comparison) -> str:
+    """The one-page briefing: summary, diagram with trajectories, time series, table, caution."""
+    from planner.equilibria import locate
+    from planner.figures import hysteresis_figure, time_series_figure, trajectories_of
+    from planner.report import comparison_rows, diagram_text
+
+    scenario, diagram = comparison.scenario, comparison.diagram
+    standing = locate(diagram, scenario.initial_state, scenario.current_control)
+    header, rows = comparison_rows(comparison)
+    return page(
+        f"Briefing: {scenario.name}",
+        [
+            Section("Where the lake stands", text=diagram_text(scenario, diagram, standing)),
+            Section(
+                "Schedules on the equilibrium curve",
+                figure=hysteresis_figure(scenario, diagram, standing=standing, trajectories=trajectories_of(comparison)),
+            ),
+            Section("Schedules over time", figure=time_series_figure(comparison)),
+            Section(f"Comparison (costs in {comparison.outcomes[0].cost.currency if comparison.outcomes else ''})", table=(header, rows)),
+        ],
+        summary=scenario.description,
+    )

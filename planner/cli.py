@@ -134,3 +134,63 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 if __name__ == "__main__":
     sys.exit(main())
+
+
+@command("compare")
+def _compare(args: argparse.Namespace) -> int:
+    from planner.briefing import comparison_briefing
+    from planner.outcomes import compare
+    from planner.report import comparison_json, comparison_rows, comparison_text
+    from planner.scenario import load_scenario
+
+    scenario = load_scenario(args.file)
+    comparison = compare(scenario, progress=_progress())
+    if args.json:
+        print(json.dumps(comparison_json(comparison), indent=2))
+    else:
+        print(comparison_text(comparison))
+    if args.csv:
+        import pandas as pd
+
+        header, rows = comparison_rows(comparison)
+        _write(args.csv, pd.DataFrame(rows, columns=list(header)).to_csv(index=False))
+    if args.html:
+        _write(args.html, comparison_briefing(comparison))
+    return EXIT_OK
+
+
+@command("sweep")
+def _sweep(args: argparse.Namespace) -> int:
+    from planner.briefing import Section, page
+    from planner.equilibria import diagram_for
+    from planner.figures import sweep_figure
+    from planner.report import sweep_json, sweep_text
+    from planner.scenario import load_scenario
+
+    scenario = load_scenario(args.file)
+    if args.step is not None and not args.step > 0:
+        raise InputError([Problem("--step", "step", "must be a positive number")])
+    from planner.sweep import sweep_for
+
+    sweep = sweep_for(scenario, step=args.step, progress=_progress())
+    print(json.dumps(sweep_json(scenario, sweep), indent=2) if args.json else sweep_text(scenario, sweep))
+    if args.html:
+        figure = sweep_figure(scenario, sweep, diagram_for(scenario))
+        _write(args.html, page(scenario.name, [Section("Quasi-static sweep", figure=figure), Section("Summary", text=sweep_text(scenario, sweep))]))
+    return EXIT_OK
+
+
+def _more_commands(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("compare", help="run every schedule: verdicts, metrics, costs, briefing")
+    p.add_argument("file")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write the HTML briefing")
+    p.add_argument("--csv", metavar="OUT", help="write the comparison table as CSV")
+    p = sub.add_parser("sweep", help="dial the control slowly up and down; find the jumps")
+    p.add_argument("file")
+    p.add_argument("--step", type=float, help="control step (default: range width / 200)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write an HTML figure of the loop")
+
+
+EXTENSIONS.append(_more_commands)

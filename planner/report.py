@@ -211,3 +211,186 @@ def check_text(scenario, source: str) -> str:
         + "".join(f"\n    - {s.name} ({s.kind})" for s in scenario.schedules),
     ]
     return "\n".join(lines)
+
+
+# ---------------------------------------------------------------------------------------------
+# Schedules compared
+
+COMPARISON_HEADER = (
+    "Schedule",
+    "Verdict",
+    "Feasible",
+    "Meets target at (yr)",
+    "Relapsed",
+    "Lowest control",
+    "Overshoot depth",
+    "Overshoot duration (yr)",
+    "Total cost",
+    "Present value",
+    "Why infeasible",
+)
+
+
+def verdict_text(scenario, outcome) -> str:
+    """The verdict in words; a recovery whose target is met only after the horizon says so."""
+    text = outcome.verdict.value
+    late = outcome.meets_target_at is None and scenario.target.threshold is not None
+    if outcome.recovered and late:
+        text += " (target met only after the horizon)"
+    return text
+
+
+def comparison_rows(comparison) -> tuple[tuple[str, ...], list[list[object]]]:
+    """The comparison table: one row per schedule, raw numbers (formatting is the viewer's)."""
+    rows = []
+    for outcome in comparison.outcomes:
+        rows.append(
+            [
+                outcome.name,
+                verdict_text(comparison.scenario, outcome),
+                "yes" if outcome.feasible else "no",
+                outcome.meets_target_at,
+                "yes" if outcome.relapsed else "no",
+                outcome.min_control,
+                outcome.overshoot_depth,
+                outcome.overshoot_duration,
+                outcome.cost.total,
+                outcome.cost.present_value,
+                "" if outcome.infeasible is None else outcome.infeasible.message,
+            ]
+        )
+    return COMPARISON_HEADER, rows
+
+
+def outcome_json(scenario, outcome) -> dict[str, Any]:
+    variables = scenario.spec.variables
+    infeasible = outcome.infeasible
+    return {
+        "name": outcome.name,
+        "kind": outcome.kind,
+        "verdict": outcome.verdict.name.lower(),
+        "recovered": outcome.recovered,
+        "feasible": outcome.feasible,
+        "infeasible": None
+        if infeasible is None
+        else {"time": infeasible.time, "limit": infeasible.limit, "message": infeasible.message},
+        "diverged_at": outcome.diverged_at,
+        "meets_target_at": outcome.meets_target_at,
+        "relapsed": outcome.relapsed,
+        "min_control": outcome.min_control,
+        "final_control": outcome.final_control,
+        "overshoot": {"depth": outcome.overshoot_depth, "duration": outcome.overshoot_duration},
+        "years_in_desired_basin": outcome.years_in_desired_basin,
+        "years_meeting_target": outcome.years_meeting_target,
+        "state_at_horizon": state_dict(variables, outcome.trajectory.final_state),
+        "settled_state": None
+        if outcome.settled_state is None
+        else state_dict(variables, outcome.settled_state),
+        "cost": {
+            "currency": outcome.cost.currency,
+            "total": outcome.cost.total,
+            "present_value": outcome.cost.present_value,
+            "abatement": outcome.cost.abatement_total,
+            "actions": outcome.cost.actions_total,
+            "damage": outcome.cost.damage_total,
+        },
+    }
+
+
+def comparison_json(comparison) -> dict[str, Any]:
+    """The `planner compare --json` object (DESIGN.md section 5 contract, plus extras)."""
+    scenario, diagram = comparison.scenario, comparison.diagram
+    return {
+        "scenario": scenario.name,
+        "control": scenario.control.parameter,
+        "unit": scenario.control.unit,
+        "horizon": scenario.simulation.horizon,
+        "classification": diagram.classification,
+        "thresholds": {
+            "recovery": diagram.recovery_threshold,
+            "collapse": diagram.collapse_threshold,
+        },
+        "target": {
+            "variable": scenario.target.variable,
+            "regime": scenario.target.regime,
+            "threshold": scenario.target.threshold,
+        },
+        "schedules": [outcome_json(scenario, outcome) for outcome in comparison.outcomes],
+        "caution": CAUTION,
+    }
+
+
+def _cell_text(value: object) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, float):
+        return f"{value:,.0f}" if abs(value) >= 1e4 else f"{value:.3g}"
+    return str(value)
+
+
+def text_table(header: tuple[str, ...], rows: list[list[object]], *, max_width: int = 48) -> str:
+    """A plain fixed-width table for the terminal."""
+    cells = [[_cell_text(v)[:max_width] for v in row] for row in rows]
+    widths = [max(len(h), *(len(r[i]) for r in cells)) if cells else len(h) for i, h in enumerate(header)]
+    line = lambda values: "  ".join(v.ljust(w) for v, w in zip(values, widths, strict=True)).rstrip()  # noqa: E731
+    return "\n".join([line(header), line(["-" * w for w in widths]), *(line(r) for r in cells)])
+
+
+def comparison_text(comparison) -> str:
+    scenario, diagram = comparison.scenario, comparison.diagram
+    unit = scenario.control.unit
+    header, rows = comparison_rows(comparison)
+    keep = [0, 1, 3, 6, 7, 9]
+    lines = [
+        scenario.name,
+        f"Recovery threshold {_number(diagram.recovery_threshold, unit)}; "
+        f"collapse threshold {_number(diagram.collapse_threshold, unit)}; "
+        f"horizon {scenario.simulation.horizon:g} years.",
+        "",
+        text_table(tuple(header[i] for i in keep), [[row[i] for i in keep] for row in rows]),
+    ]
+    for outcome in comparison.outcomes:
+        if outcome.infeasible is not None:
+            lines.append(f"Infeasible - {outcome.name}: {outcome.infeasible.message}")
+    lines += ["", CAUTION]
+    return "\n".join(lines)
+
+
+def sweep_json(scenario, sweep) -> dict[str, Any]:
+    variables = scenario.spec.variables
+    leg = lambda controls, states: [  # noqa: E731
+        {"control": float(c), "state": state_dict(variables, states[:, i])} for i, c in enumerate(controls)
+    ]
+    return {
+        "scenario": scenario.name,
+        "control": scenario.control.parameter,
+        "step": sweep.step,
+        "up": leg(sweep.controls_up, sweep.states_up),
+        "down": leg(sweep.controls_down, sweep.states_down),
+        "jumps": [
+            {
+                "direction": jump.direction,
+                "between": [jump.control_before, jump.control_after],
+                "from": state_dict(variables, jump.state_before),
+                "to": state_dict(variables, jump.state_after),
+            }
+            for jump in sweep.jumps
+        ],
+        "unsettled_steps": sweep.unsettled,
+    }
+
+
+def sweep_text(scenario, sweep) -> str:
+    unit = scenario.control.unit
+    lines = [scenario.name, f"Quasi-static sweep in steps of {sweep.step:.4g} {unit}, up then down."]
+    if not sweep.jumps:
+        lines.append("No jump: the state follows one branch both ways (no hysteresis seen).")
+    for jump in sweep.jumps:
+        lines.append(
+            f"  jump while dialling {jump.direction}: between {jump.control_before:.4g} and "
+            f"{jump.control_after:.4g} {unit}"
+        )
+    if sweep.unsettled:
+        lines.append(f"  {sweep.unsettled} steps had not settled by the cap.")
+    lines += ["", CAUTION]
+    return "\n".join(lines)

@@ -66,6 +66,13 @@ class ModelSpec:
         raise KeyError(name)
 
 
+def _evaluate(function: Callable[..., object], args: list[object], shape: tuple[int, ...]) -> Array:
+    """Call a compiled function; callers judge non-finite results (e.g. a branch leaving the
+    physical range), so numpy's floating-point warnings are silenced here."""
+    with np.errstate(all="ignore"):
+        return _broadcast_stack(function(*args), shape)
+
+
 def _broadcast_stack(values: Sequence[object], shape: tuple[int, ...]) -> Array:
     """Stack lambdified outputs that may be scalars (constant entries) into one array."""
     if not shape:  # a single point: the common case inside integrators, keep it cheap
@@ -171,35 +178,35 @@ class System:
 
     def rhs(self, x: Array, u: float | Array) -> Array:
         args, shape = self._arguments(x, u)
-        return _broadcast_stack(self.model._rhs(*args), shape)
+        return _evaluate(self.model._rhs, args, shape)
 
     def jac(self, x: Array, u: float | Array) -> Array:
         args, shape = self._arguments(x, u, derivative=True)
         n = self.n
-        return _broadcast_stack(self.model._jac(*args), shape).reshape(n, n, *shape)
+        return _evaluate(self.model._jac, args, shape).reshape(n, n, *shape)
 
     def dfdu(self, x: Array, u: float | Array) -> Array:
         args, shape = self._arguments(x, u)
-        return _broadcast_stack(self.model._dfdu(*args), shape)
+        return _evaluate(self.model._dfdu, args, shape)
 
     def linearised(self, x: Array, u: float | Array) -> tuple[Array, Array, Array]:
         """Right-hand side, Jacobian and d/du in one call (continuation needs all three)."""
         args, shape = self._arguments(x, u, derivative=True)
         n = self.n
-        values = _broadcast_stack(self.model._linear(*args), shape)
+        values = _evaluate(self.model._linear, args, shape)
         return values[:n], values[n : n + n * n].reshape(n, n, *shape), values[n + n * n :]
 
     def hessians(self, x: Array, u: float | Array) -> Array:
         """Second derivatives d2 f_i / dx_j dx_k, shape (n, n, n, *batch)."""
         args, shape = self._arguments(x, u, derivative=True)
         n = self.n
-        return _broadcast_stack(self.model._d2f(*args), shape).reshape(n, n, n, *shape)
+        return _evaluate(self.model._d2f, args, shape).reshape(n, n, n, *shape)
 
     def jac_u(self, x: Array, u: float | Array) -> Array:
         """Derivative of the Jacobian in the control, shape (n, n, *batch)."""
         args, shape = self._arguments(x, u, derivative=True)
         n = self.n
-        return _broadcast_stack(self.model._d2fdxdu(*args), shape).reshape(n, n, *shape)
+        return _evaluate(self.model._d2fdxdu, args, shape).reshape(n, n, *shape)
 
     def with_parameters(self, **overrides: float | Array) -> System:
         """A copy with some non-control parameters replaced (actions, ensembles)."""
