@@ -392,6 +392,29 @@ class _Tracer:
         return z if np.linalg.norm(z - z_in) < 4 * STEP_MAX else None
 
 
+def follow_branch(
+    system: System, x: np.ndarray, u: float, u_new: float, width: float, state_scale: np.ndarray
+) -> np.ndarray | None:
+    """Continue the equilibrium (x, u) along its branch to the control ``u_new``.
+
+    Returns the equilibrium reached at ``u_new``, or None when the branch turns back at a fold
+    (or ends) before getting there: the state must then jump to another branch.
+    """
+    scale = np.concatenate([np.maximum(np.abs(x), state_scale), [width]])
+    low, high = min(u, u_new), max(u, u_new)
+    tracer = _Tracer(system, scale, (low, high), system.model.spec.nonnegative_state, np.inf)
+    z0 = np.concatenate([x / scale[:-1], [u / scale[-1]]])
+    tangent = tracer.tangent(z0, None)
+    if tangent is None or tangent[-1] == 0:
+        return None
+    direction = np.sign(tangent[-1]) * np.sign(u_new - u)
+    points, _ = tracer.trace(z0, float(direction))
+    end = points[-1]
+    if abs(end[-1] * scale[-1] - u_new) > 1e-9 * width:
+        return None
+    return end[:-1] * scale[:-1]
+
+
 def _refine_fold(system: System, x: np.ndarray, u: float) -> tuple[np.ndarray, float, float]:
     """Newton on f = 0, J v = 0, c.v = 1 (unknowns x, u, v). Returns x, u and |f|."""
     n = system.n

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planner.equilibria import _newton_fixed_control
+from planner.equilibria import follow_branch
 from planner.models import System
 from planner.progress import Progress, silent
 from planner.simulate import Status, settle
@@ -42,8 +42,12 @@ class Sweep:
 def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
     states, jumps, unsettled = [], [], 0
     previous_u = None
+    width = float(abs(controls[-1] - controls[0])) or 1.0
+    magnitude = np.maximum(np.abs(x), 1e-3)
     for i, u in enumerate(controls):
-        followed = None if previous_u is None else _newton_fixed_control(system, x, float(u))
+        followed = None
+        if previous_u is not None:
+            followed = follow_branch(system, x, float(previous_u), float(u), width, magnitude)
         run = settle(system, x, float(u), cap=cap, limit=limit)
         if run.status is Status.DIVERGED:
             break
@@ -54,6 +58,7 @@ def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
         ):
             jumps.append(Jump(direction, float(previous_u), float(u), x.copy(), run.state.copy()))
         x = run.state
+        magnitude = np.maximum(magnitude, np.abs(x))
         states.append(x)
         previous_u = u
         progress(offset + share * (i + 1) / len(controls), f"sweeping {direction}: {u:.4g}")

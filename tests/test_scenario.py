@@ -1,0 +1,345 @@
+"""Tests for scenario files: the demos load and round-trip, invalid input is reported by field,
+and no malformed scenario gets past validation as anything but an InputError."""
+
+from __future__ import annotations
+
+import copy
+import math
+import tomllib
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, event, given, settings
+from hypothesis import strategies as st
+
+from planner.errors import InputError
+from planner.scenario import (
+    Scenario,
+    load_scenario,
+    parse_scenario,
+    scenario_from_data,
+    scenario_to_toml,
+)
+
+SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
+DEMOS = sorted(SCENARIOS.glob("*.toml"))
+FORMULA_SCENARIO = """
+name = "Nondimensional lake"
+[model]
+kind = "formula"
+equations = { x = "a - b*x + x**2/(1 + x**2)" }
+parameters = { a = 0.1, b = 0.6 }
+[control]
+parameter = "a"
+range = [0.0, 0.3]
+[state]
+x = 1.0
+[target]
+variable = "x"
+[[schedules]]
+name = "cut"
+kind = "staircase"
+levels = [0.08, 0.05]
+step_years = 5.0
+[[schedules.actions]]
+kind = "scale-state"
+time = 1.0
+variable = "x"
+factor = 0.5
+"""
+"""A valid scenario with a formula model, built here so that formulas get mutated too."""
+
+
+def _data(name: str) -> dict:
+    return tomllib.loads((SCENARIOS / name).read_text(encoding="utf-8"))
+
+
+def _problems(data: object) -> list[tuple[str, str]]:
+    """(field, reason) of every problem; fails the test when the data is accepted."""
+    with pytest.raises(InputError) as caught:
+        scenario_from_data(data, "case.toml")
+    return [(p.field, p.reason) for p in caught.value.problems]
+
+
+def _fields(data: object) -> list[str]:
+    return [field for field, _ in _problems(data)]
+
+
+# --------------------------------------------------------------------------------------------
+# demos
+
+
+def test_there_are_demos():
+    assert len(DEMOS) >= 3
+
+
+@pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
+def test_demo_loads_and_round_trips(path):
+    scenario = load_scenario(path)
+    assert isinstance(scenario, Scenario)
+    text = scenario_to_toml(scenario)
+    again = parse_scenario(text, "round-trip")
+    assert again == scenario
+    assert scenario_to_toml(again) == text
+
+
+def test_formula_scenario_round_trips():
+    scenario = parse_scenario(FORMULA_SCENARIO, "formula.toml")
+    assert scenario.spec.variables == ("x",)
+    assert parse_scenario(scenario_to_toml(scenario)) == scenario
+
+
+# --------------------------------------------------------------------------------------------
+# specific invalid cases
+
+
+def test_control_parameter_not_a_model_parameter():
+    data = _data("alder-mere.toml")
+    data["control"]["parameter"] = "Q"
+    problems = _problems(data)
+    assert [f for f, _ in problems] == ["control.parameter"]
+    assert "Q" in problems[0][1]
+
+
+def test_missing_state_variable():
+    data = _data("brellow-reservoir.toml")
+    del data["state"]["M"]
+    assert "state.M" in _fields(data)
+
+
+def test_unknown_state_variable():
+    data = _data("alder-mere.toml")
+    data["state"]["Z"] = 1.0
+    assert _fields(data) == ["state.Z"]
+
+
+def test_range_reversed():
+    data = _data("alder-mere.toml")
+    data["control"]["range"] = [5.0, 0.0]
+    assert "control.range" in _fields(data)
+
+
+@pytest.mark.parametrize(
+    ("where", "value", "field"),
+    [
+        (("model", "parameters", "r"), math.nan, "model.parameters.r"),
+        (("model", "parameters", "m"), math.inf, "model.parameters.m"),
+        (("state", "P"), -math.inf, "state.P"),
+        (("simulation", "horizon"), math.nan, "simulation.horizon"),
+        (("costs", "damage_per_year"), math.inf, "costs.damage_per_year"),
+    ],
+)
+def test_nan_and_inf_are_refused(where, value, field):
+    data = _data("alder-mere.toml")
+    node = data
+    for key in where[:-1]:
+        node = node[key]
+    node[where[-1]] = value
+    assert field in _fields(data)
+
+
+@pytest.mark.parametrize("literal", ["nan", "inf", "-inf", "+nan"])
+def test_nan_and_inf_from_toml_text(literal):
+    text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
+    text = text.replace("P = 7.1", f"P = {literal}")
+    with pytest.raises(InputError) as caught:
+        parse_scenario(text, "lake.toml")
+    assert [p.field for p in caught.value.problems] == ["state.P"]
+    assert "finite" in caught.value.problems[0].reason
+
+
+def test_nan_in_range_names_the_element():
+    data = _data("alder-mere.toml")
+    data["control"]["range"] = [0.0, math.nan]
+    assert _fields(data) == ["control.range.1"]
+
+
+def test_negative_loss_rate_for_recycling():
+    data = _data("alder-mere.toml")
+    data["model"]["parameters"]["s"] = -0.5
+    assert "model.parameters.s" in _fields(data)
+
+
+@pytest.mark.parametrize(
+    ("block", "typo", "field"),
+    [
+        ("control", "lowest_achievabel", "control.lowest_achievabel"),
+        (None, "schedule", "schedule"),
+        ("simulation", "horizn", "simulation.horizn"),
+    ],
+)
+def test_unknown_key(block, typo, field):
+    data = _data("alder-mere.toml")
+    (data if block is None else data[block])[typo] = 1.0
+    problems = _problems(data)
+    assert [f for f, _ in problems] == [field]
+    assert "spelling" in problems[0][1]
+
+
+def test_floor_above_relax_to():
+    data = _data("alder-mere.toml")
+    assert data["schedules"][1]["kind"] == "overshoot"
+    data["schedules"][1]["floor"] = 2.0  # relax_to is 1.5
+    assert "schedules.1.relax_to" in _fields(data)
+
+
+def test_action_naming_an_unknown_variable():
+    data = _data("brellow-reservoir.toml")
+    assert data["schedules"][1]["actions"][0]["kind"] == "scale-state"
+    data["schedules"][1]["actions"][0]["variable"] = "Q"
+    assert _fields(data) == ["schedules.1.actions.0.variable"]
+
+
+def test_action_naming_an_unknown_parameter():
+    data = _data("alder-mere.toml")
+    data["schedules"][3]["actions"][0]["parameter"] = "zz"
+    assert _fields(data) == ["schedules.3.actions.0.parameter"]
+
+
+@pytest.mark.parametrize(
+    "formula", ["a - b*x +", "__import__('os')", "x**", "1/0", "exp(x, 2)", "a - b*y"]
+)
+def test_formula_model_with_bad_formula(formula):
+    text = FORMULA_SCENARIO.replace("a - b*x + x**2/(1 + x**2)", formula)
+    with pytest.raises(InputError) as caught:
+        parse_scenario(text, "formula.toml")
+    problems = caught.value.problems
+    assert [p.field for p in problems] == ["model.equations.x"]
+    assert problems[0].reason
+
+
+def test_duplicated_schedule_names():
+    data = _data("alder-mere.toml")
+    data["schedules"][2]["name"] = data["schedules"][0]["name"]
+    assert _fields(data) == ["schedules.2.name"]
+
+
+def test_invalid_toml_syntax():
+    with pytest.raises(InputError) as caught:
+        parse_scenario('name = "unterminated\n[model]\n', "broken.toml")
+    (problem,) = caught.value.problems
+    assert problem.field == "(file)"
+    assert problem.source == "broken.toml"
+    assert str(problem).startswith("broken.toml: (file): ")
+
+
+def test_file_not_found(tmp_path):
+    missing = tmp_path / "nowhere.toml"
+    with pytest.raises(InputError) as caught:
+        load_scenario(missing)
+    (problem,) = caught.value.problems
+    assert problem.field == "(file)"
+    assert problem.source == str(missing)
+
+
+def test_every_problem_is_reported_at_once():
+    data = _data("alder-mere.toml")
+    data["state"]["Z"] = 1.0
+    data["schedules"][2]["name"] = data["schedules"][0]["name"]
+    assert set(_fields(data)) == {"state.Z", "schedules.2.name"}
+
+
+def test_problem_text_names_source_field_and_reason():
+    data = _data("alder-mere.toml")
+    data["state"]["Z"] = 1.0
+    with pytest.raises(InputError) as caught:
+        scenario_from_data(data, "lake.toml")
+    (problem,) = caught.value.problems
+    assert str(problem) == f"lake.toml: state.Z: {problem.reason}"
+
+
+# --------------------------------------------------------------------------------------------
+# malformed scenarios never escape as anything but InputError
+
+BASES = [_data(path.name) for path in DEMOS] + [tomllib.loads(FORMULA_SCENARIO)]
+
+
+def _paths(node: object, prefix: tuple = ()) -> list[tuple]:
+    """Every location in nested dicts and lists, the root included."""
+    out = [prefix]
+    if isinstance(node, dict):
+        for key, value in node.items():
+            out += _paths(value, (*prefix, key))
+    elif isinstance(node, list):
+        for index, value in enumerate(node):
+            out += _paths(value, (*prefix, index))
+    return out
+
+
+def _parent(data: object, path: tuple) -> object:
+    node = data
+    for key in path[:-1]:
+        node = node[key]
+    return node
+
+
+ODD_VALUES = st.one_of(
+    st.text(max_size=12),
+    st.lists(st.one_of(st.integers(-5, 5), st.floats(allow_nan=True), st.text(max_size=3))),
+    st.dictionaries(st.text(max_size=6), st.one_of(st.integers(), st.text(max_size=4)), max_size=3),
+    st.just({}),
+    st.just([]),
+    st.none(),
+    st.booleans(),
+    st.sampled_from([1e308, -1e308, 10**400, -(10**30), -1.0, -1e-300, 0.0, 5e-324]),
+    st.sampled_from([math.nan, math.inf, -math.inf]),
+    st.integers(),
+    st.floats(),
+)
+GARBAGE_TAGS = st.one_of(st.text(max_size=12), st.sampled_from(["Path", "formula ", "", "path"]))
+
+
+@st.composite
+def malformed(draw):
+    """A demo (or the formula scenario) with one to three random mutations."""
+    data = copy.deepcopy(draw(st.sampled_from(BASES)))
+    for _ in range(draw(st.integers(1, 3))):
+        paths = _paths(data)
+        action = draw(st.sampled_from(["delete", "replace", "add", "tag", "formula"]))
+        if action == "delete" and len(paths) > 1:
+            path = draw(st.sampled_from(paths[1:]))
+            parent = _parent(data, path)
+            if isinstance(parent, dict):
+                del parent[path[-1]]
+            else:
+                parent.pop(path[-1])
+        elif action == "replace" and len(paths) > 1:
+            path = draw(st.sampled_from(paths[1:]))
+            _parent(data, path)[path[-1]] = draw(ODD_VALUES)
+        elif action == "add":
+            tables = [p for p in paths if isinstance(_parent(data, (*p, None)), dict)]
+            path = draw(st.sampled_from(tables))
+            _parent(data, (*path, None))[draw(st.text(min_size=1, max_size=10))] = draw(ODD_VALUES)
+        elif action == "tag":
+            tags = [p for p in paths if p and p[-1] == "kind"]
+            if tags:
+                path = draw(st.sampled_from(tags))
+                _parent(data, path)[path[-1]] = draw(GARBAGE_TAGS)
+        elif action == "formula":
+            formulas = [p for p in paths if len(p) == 3 and p[:2] == ("model", "equations")]
+            if formulas:
+                path = draw(st.sampled_from(formulas))
+                _parent(data, path)[path[-1]] = draw(
+                    st.text(alphabet="abx()+-*/.^ 0123456789,eps", max_size=30)
+                )
+    return data
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(malformed())
+def test_malformed_scenarios_give_input_error_or_a_scenario(data):
+    try:
+        scenario = scenario_from_data(data, "fuzz.toml")
+    except InputError as error:
+        event("refused")
+        assert error.problems
+        for problem in error.problems:
+            assert problem.source == "fuzz.toml"
+            assert isinstance(problem.field, str) and problem.field.strip()
+            assert isinstance(problem.reason, str) and problem.reason.strip()
+    else:
+        event("accepted")
+        assert isinstance(scenario, Scenario)
+        # an accepted scenario is usable: it compiles and round-trips
+        assert scenario.system().n == len(scenario.spec.variables)
+        assert parse_scenario(scenario_to_toml(scenario)) == scenario
