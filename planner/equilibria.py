@@ -24,15 +24,15 @@ from planner.simulate import Status, settle
 
 # Tuning constants (scaled units: state by its magnitude, control by the range width).
 EXTEND = 0.5  # continue this fraction of the range width beyond each end, to find folds just out
-SEED_CONTROLS_1D = 41
+SEED_CONTROLS_1D = 21
 SEED_CONTROLS_ND = 9
-SEED_GRID_1D = 4000
-BISECTIONS = 60
+SEED_GRID_1D = 1500
+BISECTIONS = 45
 NEWTON_STARTS_ND = 256
 STEP_START = 0.002
-STEP_MAX = 0.01
+STEP_MAX = 0.04
 STEP_MIN = 1e-9
-PREDICTOR_ERROR = 2e-4  # target distance between predicted and corrected point
+PREDICTOR_ERROR = 5e-4  # target distance between predicted and corrected point
 CORRECTOR_ITERATIONS = 8
 CORRECTOR_TOL = 1e-10
 MAX_POINTS = 20000
@@ -233,7 +233,7 @@ def _unique_columns(x: np.ndarray, scale: np.ndarray) -> list[np.ndarray]:
 def _seeds_1d(system: System, controls: np.ndarray, span: float, nonnegative: bool) -> list:
     """All roots of the scalar f(x, u) at each control, from sign changes on a wide grid."""
     linear = np.linspace(0.0 if nonnegative else -span, span, SEED_GRID_1D)
-    logs = np.logspace(-8, 6, 1500)
+    logs = np.logspace(-8, 6, 500)
     grid = np.unique(np.concatenate([linear, logs] if nonnegative else [linear, logs, -logs]))
     with np.errstate(all="ignore"):
         values = system.rhs(grid[None, :, None], controls[None, :])[0]  # (grid, controls)
@@ -243,7 +243,7 @@ def _seeds_1d(system: System, controls: np.ndarray, span: float, nonnegative: bo
     a, b = grid[i], grid[i + 1]
     u = controls[k]
     fa = values[i, k]
-    for _ in range(BISECTIONS):  # all brackets at once; 60 halvings reach double precision
+    for _ in range(BISECTIONS):  # all brackets at once; the corrector polishes the rest
         middle = 0.5 * (a + b)
         fm = system.rhs(middle[None, :], u)[0]
         left = np.sign(fm) * np.sign(fa) <= 0
@@ -284,6 +284,12 @@ class _Tracer:
     nonnegative: bool
     limit: float
 
+    @property
+    def _last(self) -> np.ndarray:
+        e = np.zeros(len(self.scale))
+        e[-1] = 1.0
+        return e
+
     def linearised(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Residual f and its derivative in the scaled coordinates z, from one compiled call."""
         x, u = z[:-1] * self.scale[:-1], z[-1] * self.scale[-1]
@@ -294,9 +300,16 @@ class _Tracer:
         return self.linearised(z)[1]
 
     def tangent(self, z: np.ndarray, previous: np.ndarray | None) -> np.ndarray | None:
+        """Unit null vector of the derivative, oriented along ``previous`` when given."""
         derivative = self.derivative(z)
         if not np.all(np.isfinite(derivative)):
             return None
+        if previous is not None:  # bordered solve [DF; t_prev] v = e_last: cheaper than an SVD
+            try:
+                t = np.linalg.solve(np.vstack([derivative, previous]), self._last)
+                return t / np.linalg.norm(t)
+            except np.linalg.LinAlgError:
+                pass
         _, _, vt = np.linalg.svd(derivative)
         t = vt[-1]
         if previous is not None and t @ previous < 0:
@@ -306,10 +319,9 @@ class _Tracer:
     def correct(self, z_pred: np.ndarray, t: np.ndarray) -> np.ndarray | None:
         z = z_pred.copy()
         for _ in range(CORRECTOR_ITERATIONS):
-            with np.errstate(all="ignore"):
-                f, derivative = self.linearised(z)
-                g = np.concatenate([f, [t @ (z - z_pred)]])
-                a = np.vstack([derivative, t])
+            f, derivative = self.linearised(z)
+            g = np.concatenate([f, [t @ (z - z_pred)]])
+            a = np.vstack([derivative, t])
             if not (np.all(np.isfinite(g)) and np.all(np.isfinite(a))):
                 return None
             try:
