@@ -88,7 +88,7 @@ def comparison_briefing(comparison) -> str:
     return page(
         f"Briefing: {scenario.name}",
         [
-            Section("Where the lake stands", text=diagram_text(scenario, diagram, standing)),
+            Section("Where the lake stands", text=diagram_text(scenario, diagram, standing, caution=False)),
             Section(
                 "Schedules on the equilibrium curve",
                 figure=hysteresis_figure(scenario, diagram, standing=standing, trajectories=trajectories_of(comparison)),

@@ -77,7 +77,7 @@ def _diagram(args: argparse.Namespace) -> int:
         print(diagram_text(scenario, diagram, standing))
     if args.html:
         figure = hysteresis_figure(scenario, diagram, standing=standing)
-        text = diagram_text(scenario, diagram, standing)
+        text = diagram_text(scenario, diagram, standing, caution=False)
         _write(
             args.html,
             page(

@@ -16,7 +16,7 @@ import plotly.graph_objects as go
 from planner.equilibria import Diagram, Standing
 from planner.report import clipped_runs
 
-PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000", "#F0E442")
+PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#000000", "#F0E442")
 STABLE_COLOUR = "#1f1f1f"
 UNSTABLE_COLOUR = "#7a7a7a"
 WINDOW_FILL = "rgba(230, 159, 0, 0.15)"

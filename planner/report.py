@@ -132,8 +132,8 @@ def _number(value: float | None, unit: str = "") -> str:
     return f"{value:.4g} {unit}".strip()
 
 
-def diagram_text(scenario, diagram: Diagram, standing: Standing) -> str:
-    """A readable summary for the terminal."""
+def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: bool = True) -> str:
+    """A readable summary for the terminal (``caution=False`` where the page shows it already)."""
     unit = scenario.control.unit
     name = scenario.control.label or scenario.control.parameter
     verdicts = {
