@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
+from scipy.optimize import brentq
 
 from planner.models import System
 from planner.simulate import Status, settle
@@ -37,6 +38,8 @@ CORRECTOR_ITERATIONS = 8
 CORRECTOR_TOL = 1e-10
 MAX_POINTS = 20000
 FOLD_TOL = 1e-10
+UPRIGHT_STEP = 0.05
+UPRIGHT_FLOOR = 1e-5
 COVER_DISTANCE = 2e-3
 NEGATIVE_MARGIN = 0.02  # scaled state allowed below zero for non-negative models
 SAME_POINT = 1e-7
@@ -142,6 +145,10 @@ class Diagram:
             c = branch.controls
             guesses = []
             for i in np.nonzero((c[:-1] - u) * (c[1:] - u) <= 0)[0]:
+                bracketed = self._bracketed_root(branch.states[i], branch.states[i + 1], u)
+                if bracketed is not None:
+                    guesses.append(bracketed)
+                    continue
                 w = 0.0 if c[i + 1] == c[i] else (u - c[i]) / (c[i + 1] - c[i])
                 guesses.append((1 - w) * branch.states[i] + w * branch.states[i + 1])
             for end in (0, -1):  # a branch that stops just short of u (e.g. at zero state)
@@ -156,6 +163,19 @@ class Diagram:
                 eigenvalues = np.linalg.eigvals(self.system.jac(x, u))
                 found.append(Equilibrium(x, bool(np.max(eigenvalues.real) < 0), eigenvalues))
         return found
+
+    def _bracketed_root(self, a: np.ndarray, b: np.ndarray, u: float) -> np.ndarray | None:
+        """In 1-D, the root between two neighbouring branch points by bisection (robust next to
+        a fold, where Newton from an interpolated guess can slide to the partner root)."""
+        if self.system.n != 1 or a[0] == b[0]:
+            return None
+        f = lambda x: float(self.system.rhs(np.array([x]), u)[0])  # noqa: E731
+        fa, fb = f(a[0]), f(b[0])
+        if fa == 0.0:
+            return a.copy()
+        if not (np.isfinite(fa) and np.isfinite(fb)) or fa * fb > 0:
+            return None
+        return np.array([brentq(f, a[0], b[0], xtol=1e-15, rtol=4 * np.finfo(float).eps)])
 
     def desired_attractor(self, u: float) -> Equilibrium | None:
         """The stable equilibrium at ``u`` with the lowest (or highest) target variable."""
@@ -386,6 +406,10 @@ class _Tracer:
             z, t = z_new, t_new
             factor = np.sqrt(PREDICTOR_ERROR / max(error, 1e-12))
             h = float(np.clip(h * min(max(factor, 0.5), 2.0), STEP_MIN, STEP_MAX))
+            # Where the curve stands nearly upright in the control (|t_u| small) an S-bend as
+            # narrow as a window near a cusp can hide between two steps; capping the step by
+            # sqrt(|t_u|) makes steps shrink in proportion to the distance from such a point.
+            h = max(min(h, UPRIGHT_STEP * np.sqrt(abs(t[-1]))), UPRIGHT_FLOOR)
         return points, False
 
     def _boundary_point(self, z_in: np.ndarray, z_out: np.ndarray) -> np.ndarray | None:
@@ -541,7 +565,6 @@ def compute_diagram(
         eigenvalues = np.linalg.eigvals(jac)
         leading = np.max(eigenvalues.real, axis=1)
         stable = leading < 0
-        branches.append(Branch(controls_b, states, stable, closed))
         steps = np.diff(controls_b)
         extremes = np.nonzero(np.sign(steps[:-1]) * np.sign(steps[1:]) < 0)[0] + 1
         for i in np.nonzero(stable[:-1] != stable[1:])[0]:
@@ -561,7 +584,13 @@ def compute_diagram(
         for extreme in extremes:
             x_f, u_f, residual = _refine_fold(system, states[extreme], controls_b[extreme])
             side = np.sign(controls_b[extreme - 1] - controls_b[extreme])
-            raw_folds.append((len(branches) - 1, extreme, x_f, u_f, residual, -int(side or 1)))
+            raw_folds.append((len(branches), extreme, x_f, u_f, residual, -int(side or 1)))
+            # The refined fold replaces the traced turning point, so the branch reaches the
+            # fold itself and equilibria just short of it are found by interpolation.
+            if np.max(np.abs(x_f - states[extreme]) / scale[:-1]) < 10 * STEP_MAX:
+                states[extreme], controls_b[extreme] = x_f, u_f
+                stable[extreme] = stable[extreme - 1]
+        branches.append(Branch(controls_b, states, stable, closed))
 
     diagram = Diagram(
         system=system,

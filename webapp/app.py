@@ -1,0 +1,170 @@
+"""The Dash app: ``create_app()`` builds the shell, the stores and registers every view.
+
+The user's scenario lives in ``dcc.Store`` components in the browser (never in module globals),
+so any number of tabs or server workers can run side by side. The page is built per visit, so a
+reload lists files saved since.
+"""
+
+from __future__ import annotations
+
+import atexit
+import logging
+import os
+import shutil
+import tempfile
+from functools import partial
+from pathlib import Path
+
+import dash
+import diskcache
+from dash import Dash, dcc, html
+
+from planner.errors import InputError, Problem
+from planner.report import CAUTION
+from planner.scenario.io import MAX_SCENARIO_BYTES
+from webapp import compute, files, ids
+from webapp.settings import Settings
+from webapp.views import VIEWS, diagram, editor, export, scenario_panel, series, side_by_side, sweep, table
+
+TITLE = "Lake recovery planner"
+ASSETS = Path(__file__).resolve().parent / "assets"
+LOG = logging.getLogger("webapp")
+PREFERRED_DEMO = "alder-mere.toml"
+
+
+def _on_error(error: Exception) -> None:
+    """A bug inside a callback: log it for the maintainer, show a plain line to the user."""
+    LOG.error("callback failed", exc_info=error)
+    dash.set_props(
+        ids.APP_ERROR,
+        {
+            "children": "Something went wrong inside the planner while updating the page (a bug, "
+            "not a problem with your input). Your scenario and saved files are unchanged.",
+            "style": {"display": "block"},
+        },
+    )
+
+
+def _folder(path: str | os.PathLike[str] | None, what: str, *, create: bool = False) -> Path:
+    folder = Path(path).expanduser()
+    if create and not folder.exists():
+        try:
+            folder.mkdir(parents=True)
+        except OSError as error:
+            raise InputError([Problem(str(folder), "(folder)", f"cannot create: {error.strerror}")]) from None
+    if not folder.is_dir():
+        raise InputError([Problem(str(folder), "(folder)", f"{what}: no such folder")])
+    return folder.resolve()
+
+
+def _default_choice(options: list[dict]) -> str | None:
+    for option in options:
+        if option["value"].endswith("/" + PREFERRED_DEMO):
+            return option["value"]
+    return options[0]["value"] if options else None
+
+
+def page(settings: Settings) -> html.Div:
+    """The whole page: header, caution, scenario and schedule panels, results, stores."""
+    options = files.picker_options(list(settings.folders))
+    results = html.Main(
+        [
+            diagram.summary_layout(),
+            dcc.Tabs(
+                id=ids.TABS,
+                value=ids.TAB_DIAGRAM,
+                children=[
+                    dcc.Tab(label="Equilibrium diagram", value=ids.TAB_DIAGRAM, children=diagram.layout()),
+                    dcc.Tab(label="Over time", value=ids.TAB_SERIES, children=series.layout()),
+                    dcc.Tab(label="Side by side", value=ids.TAB_SIDE, children=side_by_side.layout()),
+                    dcc.Tab(label="Slow sweep", value=ids.TAB_SWEEP, children=sweep.layout()),
+                ],
+                className="result-tabs",
+            ),
+            table.layout(),
+            export.briefing_bar(),
+        ],
+        className="results",
+    )
+    return html.Div(
+        [
+            html.Header(
+                [
+                    html.H1(TITLE),
+                    html.P(
+                        "Test load-reduction schedules that could bring a turbid lake back to "
+                        "clear water, on its equilibrium curve and over time.",
+                        className="subtitle",
+                    ),
+                ],
+                className="page-header",
+            ),
+            html.P(CAUTION, id="caution", className="caution", role="note"),
+            html.Div(id=ids.APP_ERROR, className="message problem", role="alert", style={"display": "none"}),
+            html.Div(
+                [
+                    html.Aside(
+                        [scenario_panel.layout(options, _default_choice(options)), editor.layout()],
+                        className="sidebar",
+                    ),
+                    results,
+                ],
+                className="page-body",
+            ),
+            dcc.Store(id=ids.LOADED),
+            dcc.Store(id=ids.DRAFT),
+            dcc.Store(id=ids.WORKING),
+            dcc.Store(id=ids.PENDING),
+            dcc.Store(id=ids.RESULTS_READY),
+            dcc.Store(id=ids.SAVE_PENDING),
+        ],
+        className="page",
+    )
+
+
+def create_app(
+    scenario_dir: str | os.PathLike[str] | None = None,
+    *,
+    save_dir: str | os.PathLike[str] | None = None,
+    cache_dir: str | os.PathLike[str] | None = None,
+) -> Dash:
+    """Build the app over the scenario files in ``scenario_dir`` (default: the bundled demos).
+
+    "Save as" writes into ``save_dir`` (default: ``scenario_dir``); ``cache_dir`` holds the
+    background workers' job queue and results (default: a temporary folder removed at exit).
+    Raises InputError naming the folder when one cannot be used.
+    """
+    scenario_folder = _folder(
+        scenario_dir if scenario_dir is not None else files.default_scenario_dir(), "scenario folder"
+    )
+    save_folder = scenario_folder if save_dir is None else _folder(save_dir, "save folder", create=True)
+    folders = [files.Folder("Scenarios", scenario_folder)]
+    if save_folder != scenario_folder:
+        folders.append(files.Folder("Saved", save_folder))
+    if cache_dir is None:
+        cache_folder = Path(tempfile.mkdtemp(prefix="planner-app-"))
+        atexit.register(shutil.rmtree, cache_folder, ignore_errors=True)
+    else:
+        cache_folder = _folder(cache_dir, "cache folder", create=True)
+    settings = Settings(tuple(folders), len(folders) - 1, cache_folder)
+
+    compute.use_disk(cache_folder / "results")
+    manager = dash.DiskcacheManager(diskcache.Cache(str(cache_folder / "jobs")))
+    app = Dash(
+        __name__,
+        title=TITLE,
+        update_title=None,
+        assets_folder=str(ASSETS),
+        background_callback_manager=manager,
+        on_error=_on_error,
+    )
+    # Uploads arrive base64-encoded inside a callback request; anything far above the scenario
+    # size cap is refused before it is read.
+    app.server.config["MAX_CONTENT_LENGTH"] = 8 * MAX_SCENARIO_BYTES
+    app.layout = partial(page, settings)
+    # dash.callback's global registry is handed to the first app that serves a request, so a
+    # second app in the same process (tests, benchmarks) would get none; each view therefore
+    # registers through this app's own ``callback``, which takes the same arguments.
+    for view in VIEWS:
+        view.register(app.callback, settings)
+    return app

@@ -1,0 +1,249 @@
+"""Calls into the planner, with small caches so edits recompute only what changed.
+
+Nothing here computes a number: the diagram comes from ``planner.equilibria.diagram_for``, each
+schedule's outcome from ``planner.outcomes.compare``. What is cached:
+
+- diagrams (with where the lake stands), keyed by the JSON of the blocks they depend on
+  (model, control, state, target) - editing a schedule never recomputes the diagram;
+- each schedule's outcome, keyed by that schedule and every block except the schedules, so an
+  edit re-simulates only the schedule that changed.
+
+The caches are an in-process LRU (results only; the user's scenario lives in the browser's
+``dcc.Store``). Outcomes computed by the background worker are also written to a disk cache so
+the web process (or another worker) can read them.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import threading
+from collections import OrderedDict
+from collections.abc import Callable, Hashable
+from pathlib import Path
+from typing import Any
+
+from planner.equilibria import Diagram, Standing, diagram_for, locate
+from planner.outcomes import Comparison, ScheduleOutcome, compare
+from planner.progress import Progress, scaled, silent
+from planner.scenario import Scenario, scenario_from_data
+
+DIAGRAM_CACHE_SIZE = 16
+OUTCOME_CACHE_SIZE = 512
+SCENARIO_CACHE_SIZE = 64
+DISK_SIZE_LIMIT = 256 * 2**20  # bytes of pickled outcomes kept on disk
+DIAGRAM_BLOCKS = ("model", "control", "state", "target")
+
+
+class LRU:
+    """A small thread-safe least-recently-used mapping."""
+
+    def __init__(self, size: int):
+        self.size = size
+        self._items: OrderedDict[Hashable, Any] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, key: Hashable) -> Any | None:
+        with self._lock:
+            if key not in self._items:
+                return None
+            self._items.move_to_end(key)
+            return self._items[key]
+
+    def put(self, key: Hashable, value: Any) -> None:
+        with self._lock:
+            self._items[key] = value
+            self._items.move_to_end(key)
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+    def _after_fork(self) -> None:
+        self._lock = threading.Lock()
+
+
+_diagrams = LRU(DIAGRAM_CACHE_SIZE)
+_outcomes = LRU(OUTCOME_CACHE_SIZE)
+_scenarios = LRU(SCENARIO_CACHE_SIZE)
+_diagram_lock = threading.Lock()  # one diagram computed at a time: concurrent requests wait
+_disk_folder: Path | None = None
+_disk: Any = None
+_disk_pid: int | None = None
+_counts = {"diagrams": 0, "outcomes": 0}
+
+
+def _after_fork_in_child() -> None:
+    """A lock held by another thread at fork time would stay held forever in the child."""
+    global _diagram_lock, _disk, _disk_pid
+    for cache in (_diagrams, _outcomes, _scenarios):
+        cache._after_fork()
+    _diagram_lock = threading.Lock()
+    _disk, _disk_pid = None, None
+
+
+os.register_at_fork(after_in_child=_after_fork_in_child)
+
+
+def use_disk(folder: str | os.PathLike[str] | None) -> None:
+    """Keep outcomes computed by background workers in ``folder`` (None: memory only)."""
+    global _disk_folder, _disk, _disk_pid
+    _disk_folder = None if folder is None else Path(folder)
+    _disk, _disk_pid = None, None
+
+
+def _disk_cache():
+    """The disk cache opened by this process (a fresh handle after a fork)."""
+    global _disk, _disk_pid
+    if _disk_folder is None:
+        return None
+    if _disk is None or _disk_pid != os.getpid():
+        import diskcache
+
+        _disk = diskcache.Cache(str(_disk_folder), size_limit=DISK_SIZE_LIMIT)
+        _disk_pid = os.getpid()
+    return _disk
+
+
+def clear() -> None:
+    """Forget every cached result (tests and benchmarks)."""
+    for cache in (_diagrams, _outcomes, _scenarios):
+        cache.clear()
+    disk = _disk_cache()
+    if disk is not None:
+        disk.clear()
+
+
+def counts() -> dict[str, int]:
+    """How many diagrams and outcomes this process has computed (not served from a cache)."""
+    return dict(_counts)
+
+
+def _json(data: Any) -> str:
+    return json.dumps(data, sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+def scenario_key(data: dict) -> str:
+    """A short stable key of a whole scenario's data."""
+    return hashlib.sha256(_json(data).encode()).hexdigest()[:32]
+
+
+def dump(scenario: Scenario) -> dict:
+    """The plain data of a scenario, as kept in the browser's store."""
+    return scenario.model_dump(mode="json", exclude_none=True)
+
+
+def scenario_of(data: dict, source: str = "<editor>") -> Scenario:
+    """Validate store data into a Scenario (raises InputError), remembering recent ones."""
+    key = (source, _json(data))
+    found = _scenarios.get(key)
+    if found is None:
+        found = scenario_from_data(data, source)
+        _scenarios.put(key, found)
+    return found
+
+
+def _diagram_key(data: dict) -> str:
+    return _json({block: data.get(block) for block in DIAGRAM_BLOCKS})
+
+
+def diagram_of(scenario: Scenario, progress: Progress | None = None) -> tuple[Diagram, Standing]:
+    """The scenario's diagram and where the lake stands on it (cached)."""
+    key = _diagram_key(dump(scenario))
+    found = _diagrams.get(key)
+    if found is not None:
+        return found
+    with _diagram_lock:
+        found = _diagrams.get(key)
+        if found is None:
+            diagram = diagram_for(scenario, progress=progress)
+            standing = locate(diagram, scenario.initial_state, scenario.current_control)
+            found = (diagram, standing)
+            _diagrams.put(key, found)
+            _counts["diagrams"] += 1
+    return found
+
+
+def _outcome_keys(scenario: Scenario) -> list[str]:
+    data = dump(scenario)
+    schedules = data.pop("schedules", [])
+    context = _json(data)
+    return [
+        hashlib.sha256((context + _json(schedule)).encode()).hexdigest() for schedule in schedules
+    ]
+
+
+def _cached_outcome(key: str) -> ScheduleOutcome | None:
+    found = _outcomes.get(key)
+    if found is None:
+        disk = _disk_cache()
+        if disk is not None:
+            found = disk.get(key)
+            if found is not None:
+                _outcomes.put(key, found)
+    return found
+
+
+def missing(scenario: Scenario) -> list[int]:
+    """Indices of the schedules whose outcome is not cached yet."""
+    return [i for i, key in enumerate(_outcome_keys(scenario)) if _cached_outcome(key) is None]
+
+
+def cached_comparison(scenario: Scenario) -> Comparison | None:
+    """The comparison from cached results only; None when any schedule still needs computing."""
+    keys = _outcome_keys(scenario)
+    outcomes = [_cached_outcome(key) for key in keys]
+    if any(outcome is None for outcome in outcomes):
+        return None
+    diagram, _ = diagram_of(scenario)
+    return Comparison(scenario, diagram, outcomes)
+
+
+def comparison_of(
+    scenario: Scenario, *, progress: Progress = silent, persist: bool = False
+) -> Comparison:
+    """The comparison of every schedule, computing (through the planner) only what is missing.
+
+    ``persist`` also writes new outcomes to the disk cache, for other processes to read.
+    """
+    diagram, _ = diagram_of(scenario, progress=scaled(progress, 0.0, 0.2))
+    keys = _outcome_keys(scenario)
+    outcomes: list[ScheduleOutcome | None] = [_cached_outcome(key) for key in keys]
+    todo = [i for i, outcome in enumerate(outcomes) if outcome is None]
+    if todo:
+        fresh = compare(
+            scenario,
+            diagram=diagram,
+            schedules=[scenario.schedules[i] for i in todo],
+            progress=scaled(progress, 0.2, 1.0),
+        ).outcomes
+        disk = _disk_cache() if persist else None
+        for i, outcome in zip(todo, fresh, strict=True):
+            outcomes[i] = outcome
+            _outcomes.put(keys[i], outcome)
+            if disk is not None:
+                disk.set(keys[i], outcome)
+        _counts["outcomes"] += len(todo)
+    progress(1.0, "done")
+    return Comparison(scenario, diagram, outcomes)
+
+
+def throttled(report: Callable[[float, str], None], interval: float = 0.25) -> Progress:
+    """A planner progress callback that forwards at most every ``interval`` seconds."""
+    import time
+
+    last = [0.0]
+
+    def progress(fraction: float, message: str) -> None:
+        now = time.monotonic()
+        if fraction >= 1.0 or now - last[0] >= interval:
+            last[0] = now
+            report(fraction, message)
+
+    return progress

@@ -1,0 +1,239 @@
+"""The schedule editor's data: which fields each schedule kind shows, how typed text goes back
+into scenario data, and where each validation problem is shown.
+
+Typed text is put into the scenario data as it is (lists split at commas and semicolons); the
+planner's own validation then converts numbers and reports anything wrong with its dotted
+field path, so the editor gives the same messages as ``planner check``.
+"""
+
+from __future__ import annotations
+
+import copy
+import re
+from dataclasses import dataclass
+
+from planner.errors import Problem
+
+# Field labels are our own; the key is the scenario-file key (used in every message).
+COMMON_FIELDS = (("name", "Name", "text"),)
+KIND_FIELDS: dict[str, tuple[tuple[str, str, str], ...]] = {
+    "path": (("points", "Points: year, value; year, value; ...", "points"),),
+    "staircase": (
+        ("start", "Start (year)", "number"),
+        ("levels", "Levels, in order (comma-separated)", "list"),
+        ("step_years", "Years per level", "number"),
+        ("ramp_years", "Years to move between levels", "number"),
+    ),
+    "overshoot": (
+        ("start", "Start (year)", "number"),
+        ("floor", "Floor", "control"),
+        ("down_years", "Years to ramp down", "number"),
+        ("hold_years", "Years at the floor", "number"),
+        ("relax_to", "Relax to", "control"),
+        ("up_years", "Years to ramp up", "number"),
+    ),
+}
+ACTION_FIELDS: dict[str, tuple[tuple[str, str, str], ...]] = {
+    "scale-state": (
+        ("name", "Name", "text"),
+        ("time", "At year", "number"),
+        ("variable", "State variable", "text"),
+        ("factor", "Multiply by", "number"),
+        ("cost", "One-off cost", "money"),
+    ),
+    "parameter-pulse": (
+        ("name", "Name", "text"),
+        ("parameter", "Parameter", "text"),
+        ("factor", "Multiply by", "number"),
+        ("start", "From year", "number"),
+        ("duration", "For (years)", "number"),
+        ("decay_years", "Then fades over (years)", "number"),
+        ("cost", "One-off cost", "money"),
+    ),
+}
+KIND_LABELS = {
+    "path": "Path: straight lines between (year, value) points, then held",
+    "staircase": "Staircase: each level held for a number of years",
+    "overshoot": "Overshoot: down to a floor, hold, then up to a long-run value",
+}
+ACTION_LABELS = {"scale-state": "One-off change of a state", "parameter-pulse": "Temporary change of a parameter"}
+SCHEDULE_KINDS = tuple(KIND_FIELDS)
+_SPLIT = re.compile(r"[,\s]+")
+
+
+def number_text(value: object) -> str:
+    """A value as the editor shows it: numbers in their shortest exact form, text unchanged."""
+    if isinstance(value, bool):
+        return str(value)
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        return str(int(value)) if value.is_integer() and abs(value) < 1e15 else repr(value)
+    return "" if value is None else str(value)
+
+
+def field_text(value: object, style: str) -> str:
+    """The text shown in a field for a value from the scenario data."""
+    if style == "points" and isinstance(value, list):
+        return "; ".join(
+            ", ".join(number_text(v) for v in point) if isinstance(point, list) else number_text(point)
+            for point in value
+        )
+    if style == "list" and isinstance(value, list):
+        return ", ".join(number_text(v) for v in value)
+    return number_text(value)
+
+
+def parse_text(text: object, style: str) -> object:
+    """Typed text back into scenario data (numbers stay text: the planner's validation parses
+    them and names the field when one is not a number)."""
+    text = "" if text is None else str(text).strip()
+    if style == "points":
+        if not text:
+            return []
+        return [[part for part in _SPLIT.split(pair.strip()) if part] for pair in text.split(";") if pair.strip()]
+    if style == "list":
+        return [part for part in _SPLIT.split(text.replace(";", ",")) if part]
+    return text
+
+
+def schedule_fields(kind: str) -> tuple[tuple[str, str, str], ...]:
+    return COMMON_FIELDS + KIND_FIELDS.get(kind, ())
+
+
+def merge_fields(
+    data: dict,
+    schedule_values: list[tuple[dict, object]],
+    action_values: list[tuple[dict, object]] = (),
+) -> dict:
+    """Scenario data with the editor's current text put in place (``(id, value)`` pairs)."""
+    merged = copy.deepcopy(data)
+    schedules = merged.setdefault("schedules", [])
+    for ident, value in schedule_values:
+        index, field = ident["index"], ident["field"]
+        if not 0 <= index < len(schedules):
+            continue
+        styles = {key: style for key, _, style in schedule_fields(schedules[index].get("kind"))}
+        if field in styles:
+            schedules[index][field] = parse_text(value, styles[field])
+    for ident, value in action_values:
+        index, a, field = ident["index"], ident["action"], ident["field"]
+        if not 0 <= index < len(schedules):
+            continue
+        actions = schedules[index].get("actions", [])
+        if not 0 <= a < len(actions):
+            continue
+        styles = {key: style for key, _, style in ACTION_FIELDS.get(actions[a].get("kind"), ())}
+        if field in styles:
+            actions[a][field] = parse_text(value, styles[field])
+    return merged
+
+
+@dataclass(frozen=True)
+class Placement:
+    """Where a problem is shown: beside a schedule field, an action field, the schedule as a
+    whole, or (scenario-wide) in the status line."""
+
+    kind: str  # "field", "action", "schedule" or "scenario"
+    index: int | None = None
+    action: int | None = None
+    field: str | None = None
+
+
+def place(problem: Problem, data: dict) -> Placement:
+    """Which part of the editor a problem (dotted path ``schedules.2.floor``) belongs to."""
+    parts = problem.field.split(".")
+    if len(parts) < 2 or parts[0] != "schedules" or not parts[1].isdigit():
+        return Placement("scenario")
+    index = int(parts[1])
+    schedules = data.get("schedules", [])
+    if index >= len(schedules):
+        return Placement("scenario")
+    kind = schedules[index].get("kind")
+    if len(parts) >= 4 and parts[2] == "actions" and parts[3].isdigit():
+        a = int(parts[3])
+        actions = schedules[index].get("actions", [])
+        if a < len(actions) and len(parts) >= 5:
+            keys = {key for key, _, _ in ACTION_FIELDS.get(actions[a].get("kind"), ())}
+            if parts[4] in keys:
+                return Placement("action", index, a, parts[4])
+        return Placement("schedule", index)
+    if len(parts) >= 3 and parts[2] in {key for key, _, _ in schedule_fields(kind)}:
+        return Placement("field", index, field=parts[2])
+    return Placement("schedule", index)
+
+
+def message_text(problem: Problem) -> str:
+    """An inline message: the field's dotted path, then the reason."""
+    return f"{problem.field}: {problem.reason}"
+
+
+def unique_name(base: str, taken: set[str]) -> str:
+    """``base``, or ``base (2)``, ``base (3)`` ... whichever is free."""
+    if base not in taken:
+        return base
+    n = 2
+    while f"{base} ({n})" in taken:
+        n += 1
+    return f"{base} ({n})"
+
+
+def new_schedule(kind: str, data: dict) -> dict:
+    """A starting schedule of ``kind`` for this scenario: a gentle cut from today's control value
+    to halfway towards the lowest achievable value. Plain starting numbers for the user to edit."""
+    if kind not in KIND_FIELDS:
+        raise ValueError(f"unknown schedule kind {kind!r}")
+    control = data.get("control", {})
+    parameter = control.get("parameter")
+    current = float(data.get("model", {}).get("parameters", {}).get(parameter, 0.0))
+    low = control.get("lowest_achievable", control.get("range", [0.0, 1.0])[0])
+    low = float(low)
+    middle = round(low + 0.5 * (current - low), 6)
+    quarter = round(low + 0.25 * (current - low), 6)
+    taken = {s.get("name") for s in data.get("schedules", [])}
+    name = unique_name(f"New {kind} schedule", taken)
+    if kind == "path":
+        return {"name": name, "kind": "path", "actions": [], "points": [[0.0, current], [10.0, middle]]}
+    if kind == "staircase":
+        return {
+            "name": name,
+            "kind": "staircase",
+            "actions": [],
+            "start": 0.0,
+            "levels": [middle, quarter, middle],
+            "step_years": 8.0,
+            "ramp_years": 4.0,
+        }
+    return {
+        "name": name,
+        "kind": "overshoot",
+        "actions": [],
+        "start": 0.0,
+        "floor": quarter,
+        "down_years": 10.0,
+        "hold_years": 6.0,
+        "relax_to": middle,
+        "up_years": 4.0,
+    }
+
+
+def duplicate(data: dict, index: int) -> dict:
+    """Scenario data with a copy of schedule ``index`` inserted after it, under a new name."""
+    out = copy.deepcopy(data)
+    schedules = out.setdefault("schedules", [])
+    copy_of = copy.deepcopy(schedules[index])
+    copy_of["name"] = unique_name(f"{copy_of.get('name', 'Schedule')} (copy)", {s.get("name") for s in schedules})
+    schedules.insert(index + 1, copy_of)
+    return out
+
+
+def delete(data: dict, index: int) -> dict:
+    out = copy.deepcopy(data)
+    del out.setdefault("schedules", [])[index]
+    return out
+
+
+def add(data: dict, kind: str) -> dict:
+    out = copy.deepcopy(data)
+    out.setdefault("schedules", []).append(new_schedule(kind, out))
+    return out

@@ -1,0 +1,142 @@
+"""Scenario files for the app: the folders it lists, reading a pick or an upload, saving.
+
+The browser only ever sends a folder number and a file name that must appear in that folder's
+listing, so no path from a request reaches the file system.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+import planner
+from planner.errors import InputError, Problem
+from planner.scenario import Scenario, load_scenario, parse_scenario, save_scenario
+from planner.scenario.io import MAX_SCENARIO_BYTES
+
+SUFFIX = ".toml"
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._-]{0,79}$")
+
+
+def default_scenario_dir() -> Path:
+    """The bundled demo scenarios: next to the package in a source checkout."""
+    package = Path(planner.__file__).resolve().parent
+    for candidate in (package.parent / "scenarios", package / "demos"):
+        if candidate.is_dir():
+            return candidate
+    return package.parent / "scenarios"
+
+
+@dataclass(frozen=True)
+class Folder:
+    label: str
+    path: Path
+
+
+def folder_problem(path: Path, what: str) -> InputError:
+    return InputError([Problem(str(path), "(folder)", f"{what} is not a readable folder")])
+
+
+def scenario_files(folder: Path) -> list[Path]:
+    """The scenario files of a folder, sorted by name (hidden and temporary files skipped)."""
+    try:
+        return sorted(
+            p for p in folder.iterdir() if p.suffix == SUFFIX and p.is_file() and not p.name.startswith(".")
+        )
+    except OSError:
+        return []
+
+
+def scenario_title(path: Path) -> str:
+    """The scenario's name from its file, without validating it (for the picker's labels)."""
+    try:
+        if path.stat().st_size > MAX_SCENARIO_BYTES:
+            return ""
+        name = tomllib.loads(path.read_text(encoding="utf-8")).get("name", "")
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return ""
+    return name if isinstance(name, str) else ""
+
+
+def picker_options(folders: list[Folder]) -> list[dict]:
+    """Dropdown options: value ``"<folder number>/<file name>"``, label file name and title."""
+    options = []
+    for number, folder in enumerate(folders):
+        for path in scenario_files(folder.path):
+            title = scenario_title(path)
+            label = f"{path.name}: {title}" if title else path.name
+            if len(folders) > 1:
+                label = f"{folder.label} / {label}"
+            options.append({"label": label, "value": f"{number}/{path.name}"})
+    return options
+
+
+def resolve_choice(folders: list[Folder], value: str) -> Path:
+    """The file a picker value names, only if it is listed; else InputError."""
+    number, _, name = str(value).partition("/")
+    if number.isdigit() and int(number) < len(folders):
+        folder = folders[int(number)]
+        for path in scenario_files(folder.path):
+            if path.name == name:
+                return path
+    raise InputError([Problem(str(value), "(file)", "no such scenario in the listed folders")])
+
+
+def read_choice(folders: list[Folder], value: str) -> tuple[str, Scenario]:
+    """Load the picked file: (its name, the scenario). Raises InputError as ``planner check``."""
+    path = resolve_choice(folders, value)
+    return path.name, load_scenario(path)
+
+
+def read_upload(contents: str, filename: str | None) -> Scenario:
+    """Validate an uploaded file (a base64 data URL), size-capped, with ``planner check``'s
+    messages (``file: field: reason``)."""
+    source = filename or "uploaded file"
+    _, _, payload = str(contents).partition(",")
+    if len(payload) > 4 * (MAX_SCENARIO_BYTES // 3 + 2):
+        raise InputError([Problem(source, "(file)", f"larger than {MAX_SCENARIO_BYTES} bytes")])
+    try:
+        raw = base64.b64decode(payload, validate=True)
+    except (binascii.Error, ValueError):
+        raise InputError([Problem(source, "(file)", "could not be read (not a file upload)")]) from None
+    if len(raw) > MAX_SCENARIO_BYTES:
+        raise InputError([Problem(source, "(file)", f"larger than {MAX_SCENARIO_BYTES} bytes")])
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
+    return parse_scenario(text, source)
+
+
+def save_name(text: str | None) -> str:
+    """A plain file name for "Save as" (``.toml`` added); InputError naming the field if not."""
+    name = (text or "").strip()
+    if name and not name.endswith(SUFFIX):
+        name += SUFFIX
+    stem = name[: -len(SUFFIX)] if name.endswith(SUFFIX) else name
+    if not stem or not _NAME.match(stem) or ".." in name:
+        raise InputError(
+            [
+                Problem(
+                    "save as",
+                    "file name",
+                    "use letters, digits, spaces, '.', '_' or '-' (up to 80), e.g. my-plan.toml",
+                )
+            ]
+        )
+    return name
+
+
+def save(scenario: Scenario, folder: Path, name: str, *, overwrite: bool = False) -> Path:
+    """Write atomically through the planner; never replaces a file unless ``overwrite``."""
+    target = folder / name
+    try:
+        return save_scenario(scenario, target, overwrite=overwrite)
+    except OSError as error:
+        raise InputError(
+            [Problem(str(target), "(file)", f"cannot write: {error.strerror or error}")]
+        ) from None

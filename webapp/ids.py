@@ -1,0 +1,130 @@
+"""Component ids, in one place, and the factories of pattern-matching ids.
+
+Schedules are a variable-length list, so their fields, messages, buttons and result lines use
+pattern-matching ids (dicts) whose ``index`` is the schedule's position in the scenario.
+"""
+
+from __future__ import annotations
+
+from dash import ALL
+
+# Stores (the user's data lives here, in the browser, never in module globals).
+LOADED = "store-loaded"  # scenario as read from a file or an upload: {"source", "data", "serial"}
+DRAFT = "store-draft"  # what the schedule editor shows (may hold raw text not yet valid)
+WORKING = "store-working"  # the last valid scenario and whether the editor matches it
+PENDING = "store-pending"  # a comparison handed to the background worker
+RESULTS_READY = "store-results-ready"  # bumped when the background worker has finished
+SAVE_PENDING = "store-save-pending"  # file name awaiting "overwrite?" confirmation
+
+# Scenario panel.
+PICKER = "scenario-picker"
+UPLOAD = "scenario-upload"
+LOAD_MESSAGE = "scenario-load-message"
+SAVE_NAME = "save-name"
+SAVE_BUTTON = "save-button"
+SAVE_CONFIRM = "save-confirm"
+SAVE_CONFIRM_TEXT = "save-confirm-text"
+SAVE_OVERWRITE = "save-overwrite"
+SAVE_CANCEL = "save-cancel"
+SAVE_MESSAGE = "save-message"
+APP_ERROR = "app-error"
+
+# Schedule editor.
+EDITOR = "schedule-editor"
+ADD_KIND = "add-kind"
+ADD_BUTTON = "add-button"
+RECOMPUTE_STATUS = "recompute-status"
+COMPARE_PROGRESS_BOX = "compare-progress-box"
+COMPARE_PROGRESS = "compare-progress"
+COMPARE_PROGRESS_TEXT = "compare-progress-text"
+
+# Results.
+TABS = "result-tabs"
+SUMMARY = "lake-summary"
+SHOWN = "shown-schedules"
+DIAGRAM_GRAPH = "diagram-graph"
+SERIES_GRAPH = "series-graph"
+SIDE_CHOICE = "side-choice"
+SIDE_MESSAGE = "side-message"
+SIDE_GRAPH = "side-graph"
+TABLE = "comparison-table"
+SWEEP_STEP = "sweep-step"
+SWEEP_RUN = "sweep-run"
+SWEEP_CANCEL = "sweep-cancel"
+SWEEP_PROGRESS_BOX = "sweep-progress-box"
+SWEEP_PROGRESS = "sweep-progress"
+SWEEP_PROGRESS_TEXT = "sweep-progress-text"
+SWEEP_MESSAGE = "sweep-message"
+SWEEP_GRAPH = "sweep-graph"
+SWEEP_SUMMARY = "sweep-summary"
+DOWNLOAD = "download"
+EXPORT_MESSAGE = "export-message"
+
+# Tab values.
+TAB_DIAGRAM, TAB_SERIES, TAB_SIDE, TAB_SWEEP = "diagram", "series", "side", "sweep"
+
+# Pattern-matching types.
+SCHEDULE_FIELD = "schedule-field"
+FIELD_MESSAGE = "field-message"
+ACTION_FIELD = "action-field"
+ACTION_MESSAGE = "action-message"
+SCHEDULE_MESSAGE = "schedule-message"
+SCHEDULE_RESULT = "schedule-result"
+SCHEDULE_BUTTON = "schedule-button"
+EXPORT_BUTTON = "export-button"
+EXPORT_MESSAGE = "export-message"
+
+
+def schedule_field(index, field) -> dict:
+    """A number or text of schedule ``index`` (``field`` is the scenario key, e.g. "floor")."""
+    return {"type": SCHEDULE_FIELD, "index": index, "field": field}
+
+
+def field_message(index, field) -> dict:
+    """The inline message beside a schedule field."""
+    return {"type": FIELD_MESSAGE, "index": index, "field": field}
+
+
+def action_field(index, action, field) -> dict:
+    """A number or text of action ``action`` of schedule ``index``."""
+    return {"type": ACTION_FIELD, "index": index, "action": action, "field": field}
+
+
+def action_message(index, action, field) -> dict:
+    return {"type": ACTION_MESSAGE, "index": index, "action": action, "field": field}
+
+
+def schedule_message(index) -> dict:
+    """Messages about a schedule as a whole (not tied to one field)."""
+    return {"type": SCHEDULE_MESSAGE, "index": index}
+
+
+def schedule_result(index) -> dict:
+    """The line under a schedule with its verdict and cost."""
+    return {"type": SCHEDULE_RESULT, "index": index}
+
+
+def schedule_button(index, action) -> dict:
+    """``action`` is "duplicate" or "delete"."""
+    return {"type": SCHEDULE_BUTTON, "index": index, "action": action}
+
+
+def export_button(what, fmt) -> dict:
+    """``what``: diagram, series, side, sweep, table or briefing; ``fmt``: png, html or csv."""
+    return {"type": EXPORT_BUTTON, "what": what, "format": fmt}
+
+
+def export_message(what) -> dict:
+    """The message line of one row of download buttons."""
+    return {"type": EXPORT_MESSAGE, "what": what}
+
+
+ALL_SCHEDULE_FIELDS = schedule_field(ALL, ALL)
+ALL_FIELD_MESSAGES = field_message(ALL, ALL)
+ALL_ACTION_FIELDS = action_field(ALL, ALL, ALL)
+ALL_ACTION_MESSAGES = action_message(ALL, ALL, ALL)
+ALL_SCHEDULE_MESSAGES = schedule_message(ALL)
+ALL_SCHEDULE_RESULTS = schedule_result(ALL)
+ALL_SCHEDULE_BUTTONS = schedule_button(ALL, ALL)
+ALL_EXPORT_BUTTONS = export_button(ALL, ALL)
+ALL_EXPORT_MESSAGES = export_message(ALL)

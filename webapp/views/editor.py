@@ -1,0 +1,402 @@
+"""The schedule editor: one card per schedule, with add, duplicate and delete.
+
+Two callbacks keep it quick. ``restructure`` redraws the cards when a scenario is loaded or a
+schedule is added, duplicated or deleted (keeping whatever the user typed). ``recompute`` runs on
+every edit: it validates through the planner, shows each problem beside its field, and
+re-simulates only the schedules whose numbers changed (the diagram is cached). When many
+schedules need computing at once, the work goes to a background worker with a progress bar.
+"""
+
+from __future__ import annotations
+
+import time
+
+from dash import Input, Output, State, ctx, dcc, html, no_update
+
+from planner.errors import InputError
+from planner.report import verdict_text
+from webapp import compute, drafts, ids
+from webapp.settings import Settings
+from webapp.views.common import money, working_scenario
+
+FAST_LIMIT = 8  # schedules computed within one edit; more go to the background worker
+SHOWN = {"display": "block"}
+HIDDEN = {"display": "none"}
+
+
+# ---------------------------------------------------------------------------------------------
+# layout
+
+
+def layout() -> html.Section:
+    return html.Section(
+        [
+            html.H2("Schedules"),
+            html.P(
+                "Change any number and press Enter (or leave the field): the schedule is "
+                "simulated again and every view updates.",
+                className="hint",
+            ),
+            html.Div(id=ids.RECOMPUTE_STATUS, className="status-line", **{"aria-live": "polite"}),
+            html.Div(
+                [
+                    html.Label("Comparing schedules", htmlFor=ids.COMPARE_PROGRESS),
+                    html.Progress(id=ids.COMPARE_PROGRESS, value="0", max="100"),
+                    html.Span(id=ids.COMPARE_PROGRESS_TEXT, className="progress-text"),
+                ],
+                id=ids.COMPARE_PROGRESS_BOX,
+                className="progress-box",
+                style=HIDDEN,
+            ),
+            html.Div(id=ids.EDITOR, className="schedule-list"),
+            html.Div(
+                [
+                    html.Label("New schedule of kind", htmlFor=ids.ADD_KIND, className="field-label"),
+                    dcc.Dropdown(
+                        id=ids.ADD_KIND,
+                        options=[{"label": k, "value": k} for k in drafts.SCHEDULE_KINDS],
+                        value="overshoot",
+                        clearable=False,
+                        searchable=False,
+                        className="kind-dropdown",
+                    ),
+                    html.Button("Add schedule", id=ids.ADD_BUTTON, className="button primary"),
+                ],
+                className="add-row",
+            ),
+        ],
+        className="panel",
+    )
+
+
+def _unit_suffix(style: str, data: dict) -> str:
+    control = data.get("control", {})
+    if style == "control":
+        return control.get("unit", "")
+    if style == "money":
+        return (data.get("costs") or {}).get("currency", "")
+    return ""
+
+
+def _field_row(ident: dict, message_id: dict, label: str, value: str, unit: str) -> html.Div:
+    return html.Div(
+        [
+            html.Label(label, htmlFor=_dom_id(ident), className="field-label"),
+            html.Div(
+                [
+                    dcc.Input(
+                        id=ident,
+                        value=value,
+                        type="text",
+                        debounce=True,
+                        className="field-input",
+                        autoComplete="off",
+                    ),
+                    html.Span(unit, className="unit") if unit else None,
+                ],
+                className="input-with-unit",
+            ),
+            html.Div(id=message_id, className="field-message", role="alert"),
+        ],
+        className="field-row",
+    )
+
+
+def _dom_id(ident: dict) -> str:
+    # Dash renders a dict id as its JSON with sorted keys; labels point at it.
+    import json
+
+    return json.dumps(ident, sort_keys=True, separators=(",", ":"))
+
+
+def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
+    """The card of one schedule: its fields, its actions' fields, messages and result line."""
+    kind = schedule.get("kind", "")
+    control = data.get("control", {})
+    rows = []
+    for key, label, style in drafts.schedule_fields(kind):
+        unit = _unit_suffix(style, data)
+        if style == "points":
+            label = f"Points: year, {control.get('label') or control.get('parameter', 'value')}; ..."
+            unit = f"(years, {control.get('unit', '')})" if control.get("unit") else ""
+        rows.append(
+            _field_row(
+                ids.schedule_field(index, key),
+                ids.field_message(index, key),
+                label,
+                drafts.field_text(schedule.get(key), style),
+                unit,
+            )
+        )
+    actions = []
+    for a, action in enumerate(schedule.get("actions", [])):
+        action_kind = action.get("kind", "")
+        fields = [
+            _field_row(
+                ids.action_field(index, a, key),
+                ids.action_message(index, a, key),
+                label,
+                drafts.field_text(action.get(key), style),
+                _unit_suffix(style, data),
+            )
+            for key, label, style in drafts.ACTION_FIELDS.get(action_kind, ())
+        ]
+        actions.append(
+            html.Fieldset(
+                [html.Legend(f"Action {a + 1}: {drafts.ACTION_LABELS.get(action_kind, action_kind)}"), *fields],
+                className="action-box",
+            )
+        )
+    return html.Div(
+        [
+            html.Div(
+                [
+                    html.Span(f"{index + 1}", className="card-number"),
+                    html.Span(drafts.KIND_LABELS.get(kind, kind), className="card-kind"),
+                    html.Button(
+                        "Duplicate", id=ids.schedule_button(index, "duplicate"), className="button small"
+                    ),
+                    html.Button(
+                        "Delete", id=ids.schedule_button(index, "delete"), className="button small"
+                    ),
+                ],
+                className="card-head",
+            ),
+            *rows,
+            *actions,
+            html.Div(id=ids.schedule_message(index), className="field-message", role="alert"),
+            html.Div(id=ids.schedule_result(index), className="schedule-result"),
+        ],
+        className="schedule-card",
+        **{"data-schedule": str(index)},
+    )
+
+
+def render(data: dict) -> list:
+    schedules = data.get("schedules", [])
+    if not schedules:
+        return [html.P("No schedules yet: add one below.", className="hint")]
+    return [schedule_card(i, schedule, data) for i, schedule in enumerate(schedules)]
+
+
+# ---------------------------------------------------------------------------------------------
+# callbacks as plain functions (the registered wrappers only add ``ctx.triggered_id``)
+
+
+def restructure(loaded, _add, _buttons, add_kind, draft, values, value_ids, action_values, action_ids, *, trigger=None, trigger_value=None):
+    """New scenario, or add / duplicate / delete -> (editor cards, draft store)."""
+    if trigger == ids.LOADED or trigger is None:
+        if not loaded:
+            return no_update, no_update
+        data = loaded["data"]
+        new = {"source": loaded["source"], "data": data, "serial": loaded.get("serial", 0)}
+        return render(data), new
+    if not draft or not trigger_value:
+        return no_update, no_update  # a button just drawn (n_clicks None) is not a click
+    data = drafts.merge_fields(
+        draft["data"], list(zip(value_ids, values, strict=True)), list(zip(action_ids, action_values, strict=True))
+    )
+    if trigger == ids.ADD_BUTTON:
+        data = drafts.add(data, add_kind or "overshoot")
+    elif isinstance(trigger, dict) and trigger.get("type") == ids.SCHEDULE_BUTTON:
+        index = trigger["index"]
+        if not 0 <= index < len(data.get("schedules", [])):
+            return no_update, no_update
+        if trigger["action"] == "duplicate":
+            data = drafts.duplicate(data, index)
+        elif trigger["action"] == "delete":
+            data = drafts.delete(data, index)
+    else:
+        return no_update, no_update
+    return render(data), {**draft, "data": data}
+
+
+def recompute(values, action_values, draft, value_ids, action_ids, message_ids, action_message_ids, schedule_message_ids, working):
+    """Every edit -> (field messages, action messages, schedule messages, field classes, action
+    field classes, working store, status line, background job)."""
+    started = time.perf_counter()
+    blank = ([""] * len(message_ids), [""] * len(action_message_ids), [""] * len(schedule_message_ids))
+    classes = (["field-input"] * len(value_ids), ["field-input"] * len(action_ids))
+    if not draft:
+        return (*blank, *classes, no_update, "", no_update)
+    data = drafts.merge_fields(
+        draft["data"], list(zip(value_ids, values, strict=True)), list(zip(action_ids, action_values, strict=True))
+    )
+    source = draft.get("source", "scenario")
+    try:
+        scenario = compute.scenario_of(data, source)
+    except InputError as error:
+        return _problems(error, data, message_ids, action_message_ids, schedule_message_ids, value_ids, action_ids, working, source)
+    todo = compute.missing(scenario)
+    key = compute.scenario_key(compute.dump(scenario))
+    new = {"source": source, "data": compute.dump(scenario), "key": key, "stale": False}
+    if len(todo) > FAST_LIMIT:
+        new["complete"] = False
+        status = html.Span(
+            f"Computing {len(todo)} schedules in the background; results appear when done.",
+            className="status busy",
+        )
+        return (*blank, *classes, new, status, {"key": key, "data": new["data"]})
+    compute.comparison_of(scenario)
+    new["complete"] = True
+    elapsed = time.perf_counter() - started
+    count = len(scenario.schedules)
+    text = f"{count} schedules compared; {len(todo)} simulated again in {elapsed:.2f} s."
+    return (*blank, *classes, new, html.Span(text, className="status ok"), no_update)
+
+
+def _problems(error, data, message_ids, action_message_ids, schedule_message_ids, value_ids, action_ids, working, source):
+    fields: dict[tuple, list[str]] = {}
+    actions: dict[tuple, list[str]] = {}
+    schedules: dict[int, list[str]] = {}
+    general: list[str] = []
+    for problem in error.problems:
+        where = drafts.place(problem, data)
+        text = drafts.message_text(problem)
+        if where.kind == "field":
+            fields.setdefault((where.index, where.field), []).append(text)
+        elif where.kind == "action":
+            actions.setdefault((where.index, where.action, where.field), []).append(text)
+        elif where.kind == "schedule":
+            schedules.setdefault(where.index, []).append(text)
+        else:
+            general.append(text)
+    field_messages = ["; ".join(fields.get((m["index"], m["field"]), [])) for m in message_ids]
+    action_messages = [
+        "; ".join(actions.get((m["index"], m["action"], m["field"]), [])) for m in action_message_ids
+    ]
+    schedule_messages = ["; ".join(schedules.get(m["index"], [])) for m in schedule_message_ids]
+    field_classes = [
+        "field-input invalid" if (v["index"], v["field"]) in fields else "field-input" for v in value_ids
+    ]
+    action_classes = [
+        "field-input invalid" if (v["index"], v["action"], v["field"]) in actions else "field-input"
+        for v in action_ids
+    ]
+    count = len(error.problems)
+    status_text = (
+        f"{count} value{'s' if count > 1 else ''} to fix (marked below); the results shown are "
+        "for the last valid values."
+    )
+    status = html.Div(
+        [html.Span(status_text), *(html.Div(line) for line in general)],
+        className="status problem",
+        role="alert",
+    )
+    kept = {**working, "stale": True} if working else no_update
+    return (field_messages, action_messages, schedule_messages, field_classes, action_classes, kept, status, no_update)
+
+
+def result_lines(working, _ready, result_ids):
+    """The verdict and cost line under each schedule, from cached results only."""
+    scenario = working_scenario(working)
+    if scenario is None:
+        return [""] * len(result_ids)
+    comparison = compute.cached_comparison(scenario)
+    if comparison is None:
+        return [html.Span("computing...", className="status busy")] * len(result_ids)
+    outcomes = comparison.outcomes
+    currency = scenario.costs.currency if scenario.costs is not None else ""
+    stale = working.get("stale")
+    lines = []
+    for ident in result_ids:
+        i = ident["index"]
+        if i >= len(outcomes) or (stale and len(outcomes) != len(result_ids)):
+            lines.append(html.Span("not computed yet: fix the values above", className="status problem"))
+            continue
+        outcome = outcomes[i]
+        parts = [
+            html.Strong(verdict_text(scenario, outcome), className="verdict"),
+            html.Span(
+                f"meets the target from year {outcome.meets_target_at:.1f}"
+                if outcome.meets_target_at is not None
+                else "target not met by the horizon"
+            ),
+            html.Span(f"total cost {money(outcome.cost.total, currency)}", className="cost-total"),
+            html.Span(f"present value {money(outcome.cost.present_value, currency)}", className="cost-pv"),
+        ]
+        body = [html.Div(parts, className="result-parts")]
+        if outcome.infeasible is not None:
+            body.append(html.Div(f"Infeasible: {outcome.infeasible.message}", className="infeasible"))
+        if stale:
+            body.append(html.Div("(for the last valid values)", className="hint"))
+        state = "recovered" if outcome.recovered else "not-recovered"
+        lines.append(html.Div(body, className=f"result {state}"))
+    return lines
+
+
+def compare_in_background(set_progress, pending):
+    """Background worker: every missing schedule, with progress; results go to the disk cache."""
+    if not pending:
+        return no_update, no_update
+    scenario = compute.scenario_of(pending["data"])
+    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), m)))
+    comparison = compute.comparison_of(scenario, progress=report, persist=True)
+    text = f"{len(comparison.outcomes)} schedules compared in the background."
+    return {"key": pending["key"], "finished": time.time()}, html.Span(text, className="status ok")
+
+
+# ---------------------------------------------------------------------------------------------
+
+
+def register(callback, settings: Settings) -> None:
+    def on_structure(loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids):
+        trigger = ctx.triggered_id
+        value = ctx.triggered[0]["value"] if ctx.triggered else None
+        return restructure(
+            loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids,
+            trigger=trigger, trigger_value=value,
+        )
+
+    callback(
+        Output(ids.EDITOR, "children"),
+        Output(ids.DRAFT, "data"),
+        Input(ids.LOADED, "data"),
+        Input(ids.ADD_BUTTON, "n_clicks"),
+        Input(ids.ALL_SCHEDULE_BUTTONS, "n_clicks"),
+        State(ids.ADD_KIND, "value"),
+        State(ids.DRAFT, "data"),
+        State(ids.ALL_SCHEDULE_FIELDS, "value"),
+        State(ids.ALL_SCHEDULE_FIELDS, "id"),
+        State(ids.ALL_ACTION_FIELDS, "value"),
+        State(ids.ALL_ACTION_FIELDS, "id"),
+    )(on_structure)
+
+    callback(
+        Output(ids.ALL_FIELD_MESSAGES, "children"),
+        Output(ids.ALL_ACTION_MESSAGES, "children"),
+        Output(ids.ALL_SCHEDULE_MESSAGES, "children"),
+        Output(ids.ALL_SCHEDULE_FIELDS, "className"),
+        Output(ids.ALL_ACTION_FIELDS, "className"),
+        Output(ids.WORKING, "data"),
+        Output(ids.RECOMPUTE_STATUS, "children"),
+        Output(ids.PENDING, "data"),
+        Input(ids.ALL_SCHEDULE_FIELDS, "value"),
+        Input(ids.ALL_ACTION_FIELDS, "value"),
+        Input(ids.DRAFT, "data"),
+        State(ids.ALL_SCHEDULE_FIELDS, "id"),
+        State(ids.ALL_ACTION_FIELDS, "id"),
+        State(ids.ALL_FIELD_MESSAGES, "id"),
+        State(ids.ALL_ACTION_MESSAGES, "id"),
+        State(ids.ALL_SCHEDULE_MESSAGES, "id"),
+        State(ids.WORKING, "data"),
+    )(recompute)
+
+    callback(
+        Output(ids.ALL_SCHEDULE_RESULTS, "children"),
+        Input(ids.WORKING, "data"),
+        Input(ids.RESULTS_READY, "data"),
+        State(ids.ALL_SCHEDULE_RESULTS, "id"),
+    )(result_lines)
+
+    callback(
+        Output(ids.RESULTS_READY, "data"),
+        Output(ids.RECOMPUTE_STATUS, "children", allow_duplicate=True),
+        Input(ids.PENDING, "data"),
+        background=True,
+        interval=500,
+        progress=[Output(ids.COMPARE_PROGRESS, "value"), Output(ids.COMPARE_PROGRESS_TEXT, "children")],
+        progress_default=["0", ""],
+        running=[(Output(ids.COMPARE_PROGRESS_BOX, "style"), SHOWN, HIDDEN)],
+        prevent_initial_call=True,
+    )(compare_in_background)

@@ -1,0 +1,83 @@
+"""Side by side: two to four chosen schedules in small multiples with shared axes, each on the
+equilibrium curve (``planner.figures.small_multiples_figure``), ready to present."""
+
+from __future__ import annotations
+
+from dash import Input, Output, State, dcc, html, no_update
+
+from planner.figures import small_multiples_figure
+from planner.outcomes import Comparison
+from webapp import ids
+from webapp.settings import Settings
+from webapp.views.common import placeholder_figure, working_comparison, working_scenario
+from webapp.views.export import export_buttons
+
+FEWEST, MOST = 2, 4
+
+
+def layout() -> html.Div:
+    return html.Div(
+        [
+            html.Label("Schedules to set side by side (two to four)", htmlFor=ids.SIDE_CHOICE, className="field-label"),
+            dcc.Dropdown(id=ids.SIDE_CHOICE, options=[], value=[], multi=True),
+            html.Div(id=ids.SIDE_MESSAGE, className="message-area", role="alert"),
+            dcc.Graph(id=ids.SIDE_GRAPH, figure=placeholder_figure("Choose two to four schedules"), config={"displaylogo": False}),
+            export_buttons("side", "this figure"),
+        ]
+    )
+
+
+def choice_problem(chosen: list[str] | None) -> str | None:
+    count = len(chosen or [])
+    if count < FEWEST or count > MOST:
+        return f"Choose two to four schedules ({count} chosen)."
+    return None
+
+
+def side_figure(comparison: Comparison, chosen: list[str]):
+    figure = small_multiples_figure(comparison, chosen)
+    figure.update_layout(uirevision=comparison.scenario.name)
+    return figure
+
+
+def choices(working, current, options):
+    scenario = working_scenario(working)
+    if scenario is None:
+        return [], []
+    names = [s.name for s in scenario.schedules]
+    if names == [o["value"] for o in options or []]:
+        return no_update, no_update
+    kept = [n for n in current or [] if n in names]
+    if len(kept) < FEWEST:
+        kept = (kept + [n for n in names if n not in kept])[:FEWEST]
+    return [{"label": n, "value": n} for n in names], kept
+
+
+def draw(working, _ready, chosen, tab):
+    if tab != ids.TAB_SIDE:
+        return no_update, no_update
+    problem = choice_problem(chosen)
+    if problem:
+        return no_update, problem
+    comparison = working_comparison(working)
+    if comparison is None:
+        return placeholder_figure("No results yet"), ""
+    return side_figure(comparison, chosen), ""
+
+
+def register(callback, settings: Settings) -> None:
+    callback(
+        Output(ids.SIDE_CHOICE, "options"),
+        Output(ids.SIDE_CHOICE, "value"),
+        Input(ids.WORKING, "data"),
+        State(ids.SIDE_CHOICE, "value"),
+        State(ids.SIDE_CHOICE, "options"),
+    )(choices)
+    callback(
+        Output(ids.SIDE_GRAPH, "figure"),
+        Output(ids.SIDE_MESSAGE, "children"),
+        Input(ids.WORKING, "data"),
+        Input(ids.RESULTS_READY, "data"),
+        Input(ids.SIDE_CHOICE, "value"),
+        Input(ids.TABS, "value"),
+    )(draw)
