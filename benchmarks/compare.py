@@ -32,7 +32,11 @@ def plain_rhs(system, path, timeline):
 
     def rhs(t, y):
         factors = timeline.multipliers(t)
-        bound = system.with_parameters(**{k: base[k] * v for k, v in factors.items()}) if factors else system
+        bound = (
+            system.with_parameters(**{k: base[k] * v for k, v in factors.items()})
+            if factors
+            else system
+        )
         return bound.rhs(y, path(t))
 
     return rhs
@@ -51,8 +55,14 @@ def plain_loop(scenario, rtol):
             for when, variable, factor in timeline.state_events:
                 if when == a:
                     x[system.variables.index(variable)] *= factor
-            x = solve_ivp(plain_rhs(system, path, timeline), (a, b), x, method="LSODA",
-                          rtol=rtol, atol=rtol * 1e-2).y[:, -1]
+            x = solve_ivp(
+                plain_rhs(system, path, timeline),
+                (a, b),
+                x,
+                method="LSODA",
+                rtol=rtol,
+                atol=rtol * 1e-2,
+            ).y[:, -1]
         finals.append(x)
     return finals
 
@@ -63,7 +73,9 @@ def reference(scenario):
     for schedule in scenario.schedules:
         path = control_path(schedule, current=scenario.current_control)
         timeline = action_timeline(schedule)
-        run = integrate_path(system, scenario.initial_state, path, horizon, timeline=timeline, rtol=1e-12)
+        run = integrate_path(
+            system, scenario.initial_state, path, horizon, timeline=timeline, rtol=1e-12
+        )
         finals.append(run.final_state)
     return finals
 
@@ -84,9 +96,13 @@ def main() -> None:
     diagram = diagram_for(scenario)
     start = time.perf_counter()
     for schedule in scenario.schedules:
-        integrate_path(scenario.system(), scenario.initial_state,
-                       control_path(schedule, current=scenario.current_control),
-                       scenario.simulation.horizon, timeline=action_timeline(schedule))
+        integrate_path(
+            scenario.system(),
+            scenario.initial_state,
+            control_path(schedule, current=scenario.current_control),
+            scenario.simulation.horizon,
+            timeline=action_timeline(schedule),
+        )
     t_integrate = time.perf_counter() - start
     del diagram
     rtol, t_plain, plain_error = 1e-6, None, np.inf
@@ -98,11 +114,17 @@ def main() -> None:
         if plain_error <= ours:
             break
         rtol /= 10
-    print(f"scenario: {scenario.name} ({len(scenario.schedules)} schedules, horizon {scenario.simulation.horizon:g} yr)")
+    print(
+        f"scenario: {scenario.name} ({len(scenario.schedules)} schedules, "
+        f"horizon {scenario.simulation.horizon:g} yr)"
+    )
     print(f"{'method':<46}{'time (s)':>10}{'max rel. error at horizon':>28}")
     print(f"{'planner compare (everything it reports)':<46}{t_compare:>10.4f}{ours:>28.2e}")
     print(f"{'planner integration only':<46}{t_integrate:>10.4f}{ours:>28.2e}")
-    print(f"{f'plain solve_ivp loop (LSODA, rtol {rtol:.0e})':<46}{t_plain:>10.4f}{plain_error:>28.2e}")
+    print(
+        f"{f'plain solve_ivp loop (LSODA, rtol {rtol:.0e})':<46}"
+        f"{t_plain:>10.4f}{plain_error:>28.2e}"
+    )
     print(f"integration ratio plain / planner: {t_plain / t_integrate:.1f}x")
 
 

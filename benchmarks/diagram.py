@@ -50,7 +50,9 @@ def baseline() -> list[float]:
 
 def ours() -> list[float]:
     system = compile_model(formula_spec({"x": "a - b*x + x**2/(1 + x**2)"}, ("a", "b")), "a")
-    diagram = compute_diagram(system.bind({"a": 0.1, "b": B}), RANGE, reference_state=np.array([1.0]))
+    diagram = compute_diagram(
+        system.bind({"a": 0.1, "b": B}), RANGE, reference_state=np.array([1.0])
+    )
     return sorted(f.control for f in diagram.folds if f.in_range)
 
 
@@ -74,10 +76,14 @@ def main() -> None:
     print(f"{'method':<34}{'time (s)':>10}{'max fold error':>18}")
     print(f"{'planner diagram (continuation)':<34}{t_ours:>10.4f}{error(folds_ours):>18.2e}")
     print(f"{'10,000-point grid + brentq scan':<34}{t_base:>10.4f}{error(folds_base):>18.2e}")
-    print(f"the scan reported {len(folds_base)} root-count changes for 2 folds "
-          "(roots closer than its state grid are missed near a fold)")
-    print(f"speed-up: {t_base / t_ours:.1f}x (target >= 10x); "
-          f"accuracy gain: {error(folds_base) / max(error(folds_ours), 1e-300):.1e}x")
+    print(
+        f"the scan reported {len(folds_base)} root-count changes for 2 folds "
+        "(roots closer than its state grid are missed near a fold)"
+    )
+    print(
+        f"speed-up: {t_base / t_ours:.1f}x (target >= 10x); "
+        f"accuracy gain: {error(folds_base) / max(error(folds_ours), 1e-300):.1e}x"
+    )
 
 
 if __name__ == "__main__":

@@ -11,7 +11,8 @@ import plotly.graph_objects as go
 from planner.report import CAUTION
 
 STYLE = """
-body { font-family: Helvetica, Arial, sans-serif; margin: 2em auto; max-width: 1100px; color: #222; }
+body { font-family: Helvetica, Arial, sans-serif; margin: 2em auto; max-width: 1100px;
+       color: #222; }
 h1 { font-size: 1.5em; } h2 { font-size: 1.15em; margin-top: 1.6em; }
 .caution { border-left: 4px solid #D55E00; background: #fff4ec; padding: 0.6em 1em; }
 table { border-collapse: collapse; font-size: 0.9em; }
@@ -85,16 +86,25 @@ def comparison_briefing(comparison) -> str:
     scenario, diagram = comparison.scenario, comparison.diagram
     standing = locate(diagram, scenario.initial_state, scenario.current_control)
     header, rows = comparison_rows(comparison)
+    currency = scenario.costs.currency if scenario.costs is not None else "no currency set"
     return page(
         f"Briefing: {scenario.name}",
         [
-            Section("Where the lake stands", text=diagram_text(scenario, diagram, standing, caution=False)),
+            Section(
+                "Where the lake stands",
+                text=diagram_text(scenario, diagram, standing, caution=False),
+            ),
             Section(
                 "Schedules on the equilibrium curve",
-                figure=hysteresis_figure(scenario, diagram, standing=standing, trajectories=trajectories_of(comparison)),
+                figure=hysteresis_figure(
+                    scenario, diagram, standing=standing, trajectories=trajectories_of(comparison)
+                ),
             ),
             Section("Schedules over time", figure=time_series_figure(comparison)),
-            Section(f"Comparison (costs in {comparison.outcomes[0].cost.currency if comparison.outcomes else ''})", table=(header, rows)),
+            Section(
+                f"Comparison (costs in {currency})",
+                table=(header, rows),
+            ),
         ],
         summary=scenario.description,
     )

@@ -173,10 +173,23 @@ def _sweep(args: argparse.Namespace) -> int:
     from planner.sweep import sweep_for
 
     sweep = sweep_for(scenario, step=args.step, progress=_progress())
-    print(json.dumps(sweep_json(scenario, sweep), indent=2) if args.json else sweep_text(scenario, sweep))
+    print(
+        json.dumps(sweep_json(scenario, sweep), indent=2)
+        if args.json
+        else sweep_text(scenario, sweep)
+    )
     if args.html:
         figure = sweep_figure(scenario, sweep, diagram_for(scenario))
-        _write(args.html, page(scenario.name, [Section("Quasi-static sweep", figure=figure), Section("Summary", text=sweep_text(scenario, sweep))]))
+        _write(
+            args.html,
+            page(
+                scenario.name,
+                [
+                    Section("Quasi-static sweep", figure=figure),
+                    Section("Summary", text=sweep_text(scenario, sweep)),
+                ],
+            ),
+        )
     return EXIT_OK
 
 

@@ -413,7 +413,7 @@ class _Tracer:
         return points, False
 
     def _boundary_point(self, z_in: np.ndarray, z_out: np.ndarray) -> np.ndarray | None:
-        """Where the segment leaves the control range, corrected onto the curve (plots end there)."""
+        """Where the segment leaves the control range, corrected onto the curve."""
         u_in, u_out = z_in[-1] * self.scale[-1], z_out[-1] * self.scale[-1]
         low, high = self.u_bounds
         edge = high if u_out > high else low if u_out < low else None

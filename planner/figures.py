@@ -156,7 +156,8 @@ def hysteresis_figure(
         )
     fig.update_layout(
         title=title
-        or f"{scenario.name}: equilibria against {scenario.control.label or scenario.control.parameter}",
+        or f"{scenario.name}: equilibria against "
+        f"{scenario.control.label or scenario.control.parameter}",
         xaxis_title=scenario.control.axis_title,
         yaxis_title=scenario.axis_title(variable),
         **LAYOUT,
@@ -195,27 +196,58 @@ def time_series_figure(comparison, *, names: Sequence[str] | None = None) -> go.
         run = outcome.trajectory
         style = dict(color=colour(i), width=2, dash="solid" if outcome.feasible else "dot")
         fig.add_trace(
-            go.Scatter(x=run.times, y=run.control, name=outcome.name, legendgroup=outcome.name,
-                       line=style, hovertemplate="year %{x:.1f}: %{y:.3g}<extra>%{fullData.name}</extra>"),
-            row=1, col=1,
+            go.Scatter(
+                x=run.times,
+                y=run.control,
+                name=outcome.name,
+                legendgroup=outcome.name,
+                line=style,
+                hovertemplate="year %{x:.1f}: %{y:.3g}<extra>%{fullData.name}</extra>",
+            ),
+            row=1,
+            col=1,
         )
         fig.add_trace(
-            go.Scatter(x=run.times, y=run.states[k], name=outcome.name, legendgroup=outcome.name,
-                       showlegend=False, line=style,
-                       hovertemplate="year %{x:.1f}: %{y:.3g}<extra>%{fullData.name}</extra>"),
-            row=2, col=1,
+            go.Scatter(
+                x=run.times,
+                y=run.states[k],
+                name=outcome.name,
+                legendgroup=outcome.name,
+                showlegend=False,
+                line=style,
+                hovertemplate="year %{x:.1f}: %{y:.3g}<extra>%{fullData.name}</extra>",
+            ),
+            row=2,
+            col=1,
         )
-    for value, label in ((diagram.recovery_threshold, "recovery threshold"), (diagram.collapse_threshold, "collapse threshold")):
+    for value, label in (
+        (diagram.recovery_threshold, "recovery threshold"),
+        (diagram.collapse_threshold, "collapse threshold"),
+    ):
         if value is not None:
-            fig.add_hline(y=value, line=dict(color="#555", dash="dash", width=1), row=1, col=1,
-                          annotation_text=label, annotation_position="bottom right")
+            fig.add_hline(
+                y=value,
+                line=dict(color="#555", dash="dash", width=1),
+                row=1,
+                col=1,
+                annotation_text=label,
+                annotation_position="bottom right",
+            )
     if scenario.target.threshold is not None:
-        fig.add_hline(y=scenario.target.threshold, line=dict(color="#009E73", dash="dash", width=2),
-                      row=2, col=1, annotation_text="target", annotation_position="top right")
+        fig.add_hline(
+            y=scenario.target.threshold,
+            line=dict(color="#009E73", dash="dash", width=2),
+            row=2,
+            col=1,
+            annotation_text="target",
+            annotation_position="top right",
+        )
     fig.update_yaxes(title_text=scenario.control.axis_title, row=1, col=1)
     fig.update_yaxes(title_text=scenario.axis_title(scenario.target.variable), row=2, col=1)
     fig.update_xaxes(title_text="years from now", row=2, col=1)
-    fig.update_layout(title=f"{scenario.name}: schedules over time (dotted: infeasible)", height=620, **LAYOUT)
+    fig.update_layout(
+        title=f"{scenario.name}: schedules over time (dotted: infeasible)", height=620, **LAYOUT
+    )
     return fig
 
 
@@ -223,15 +255,35 @@ def sweep_figure(scenario, sweep, diagram: Diagram | None = None) -> go.Figure:
     """The loop a slowly dialled control traces, over the equilibrium curve when given."""
     variable = scenario.target.variable
     k = scenario.spec.variables.index(variable)
-    fig = go.Figure() if diagram is None else hysteresis_figure(scenario, diagram, variable=variable)
-    fig.add_trace(go.Scatter(x=sweep.controls_up, y=sweep.states_up[k], mode="lines+markers",
-                             name="dialled up", marker=dict(symbol="triangle-right", size=6, color=PALETTE[1]),
-                             line=dict(color=PALETTE[1], width=1)))
-    fig.add_trace(go.Scatter(x=sweep.controls_down, y=sweep.states_down[k], mode="lines+markers",
-                             name="dialled down", marker=dict(symbol="triangle-left", size=6, color=PALETTE[0]),
-                             line=dict(color=PALETTE[0], width=1)))
-    fig.update_layout(title=f"{scenario.name}: quasi-static sweep (step {sweep.step:.3g})",
-                      xaxis_title=scenario.control.axis_title, yaxis_title=scenario.axis_title(variable), **LAYOUT)
+    fig = (
+        go.Figure() if diagram is None else hysteresis_figure(scenario, diagram, variable=variable)
+    )
+    fig.add_trace(
+        go.Scatter(
+            x=sweep.controls_up,
+            y=sweep.states_up[k],
+            mode="lines+markers",
+            name="dialled up",
+            marker=dict(symbol="triangle-right", size=6, color=PALETTE[1]),
+            line=dict(color=PALETTE[1], width=1),
+        )
+    )
+    fig.add_trace(
+        go.Scatter(
+            x=sweep.controls_down,
+            y=sweep.states_down[k],
+            mode="lines+markers",
+            name="dialled down",
+            marker=dict(symbol="triangle-left", size=6, color=PALETTE[0]),
+            line=dict(color=PALETTE[0], width=1),
+        )
+    )
+    fig.update_layout(
+        title=f"{scenario.name}: quasi-static sweep (step {sweep.step:.3g})",
+        xaxis_title=scenario.control.axis_title,
+        yaxis_title=scenario.axis_title(variable),
+        **LAYOUT,
+    )
     return fig
 
 
@@ -242,8 +294,14 @@ def small_multiples_figure(comparison, names: Sequence[str]) -> go.Figure:
     scenario, diagram = comparison.scenario, comparison.diagram
     chosen = [o for o in comparison.outcomes if o.name in names][:4]
     columns = max(len(chosen), 1)
-    fig = make_subplots(rows=1, cols=columns, shared_yaxes=True, shared_xaxes=True,
-                        subplot_titles=[o.name for o in chosen], horizontal_spacing=0.03)
+    fig = make_subplots(
+        rows=1,
+        cols=columns,
+        shared_yaxes=True,
+        shared_xaxes=True,
+        subplot_titles=[o.name for o in chosen],
+        horizontal_spacing=0.03,
+    )
     base = hysteresis_figure(scenario, diagram)
     for c, outcome in enumerate(chosen, start=1):
         for trace in base.data:
@@ -254,14 +312,32 @@ def small_multiples_figure(comparison, names: Sequence[str]) -> go.Figure:
         run = trajectories_of(comparison)[index]
         k = scenario.target_index
         verdict = "recovers" if outcome.recovered else outcome.verdict.value
-        fig.add_trace(go.Scatter(x=run.control, y=run.states[k], mode="lines", line=dict(color=colour(index), width=3),
-                                 name=f"{outcome.name}: {verdict}", showlegend=True), row=1, col=c)
+        fig.add_trace(
+            go.Scatter(
+                x=run.control,
+                y=run.states[k],
+                mode="lines",
+                line=dict(color=colour(index), width=3),
+                name=f"{outcome.name}: {verdict}",
+                showlegend=True,
+            ),
+            row=1,
+            col=c,
+        )
         if diagram.window is not None:
             low, high = diagram.control_range
             left = low if diagram.window.recovery is None else max(diagram.window.recovery, low)
             right = high if diagram.window.collapse is None else min(diagram.window.collapse, high)
             if right > left:
-                fig.add_vrect(x0=left, x1=right, fillcolor=WINDOW_FILL, line_width=0, layer="below", row=1, col=c)
+                fig.add_vrect(
+                    x0=left,
+                    x1=right,
+                    fillcolor=WINDOW_FILL,
+                    line_width=0,
+                    layer="below",
+                    row=1,
+                    col=c,
+                )
         fig.update_xaxes(title_text=scenario.control.axis_title, row=1, col=c)
     fig.update_yaxes(title_text=scenario.axis_title(scenario.target.variable), row=1, col=1)
     fig.update_layout(title=f"{scenario.name}: side by side", height=480, **LAYOUT)

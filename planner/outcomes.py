@@ -87,7 +87,9 @@ def target_record(
             flags.append(after)
     switches.append(end)
     not_meeting = [
-        (switches[i], switches[i + 1]) for i, flag in enumerate(flags) if not flag and switches[i + 1] > switches[i]
+        (switches[i], switches[i + 1])
+        for i, flag in enumerate(flags)
+        if not flag and switches[i + 1] > switches[i]
     ]
     meets_at = switches[-2] if flags[-1] else None
     if trajectory.status is not Status.FINISHED:
@@ -245,7 +247,12 @@ def compare(
     for i, schedule in enumerate(chosen):
         share = 0.7 / max(len(chosen), 1)
         outcomes.append(
-            evaluate(scenario, diagram, schedule, progress=scaled(progress, 0.3 + i * share, 0.3 + (i + 1) * share))
+            evaluate(
+                scenario,
+                diagram,
+                schedule,
+                progress=scaled(progress, 0.3 + i * share, 0.3 + (i + 1) * share),
+            )
         )
     progress(1.0, "done")
     return Comparison(scenario, diagram, outcomes)

@@ -178,11 +178,13 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: boo
     if standing.to_recovery is not None:
         if standing.to_recovery > 0:
             lines.append(
-                f"  The control must fall by {standing.to_recovery:.4g} {unit} to pass the recovery threshold."
+                f"  The control must fall by {standing.to_recovery:.4g} {unit} "
+                "to pass the recovery threshold."
             )
         else:
             lines.append(
-                f"  The control is already {-standing.to_recovery:.4g} {unit} below the recovery threshold."
+                f"  The control is already {-standing.to_recovery:.4g} {unit} "
+                "below the recovery threshold."
             )
     if standing.to_collapse is not None and standing.to_collapse > 0:
         lines.append(
@@ -331,8 +333,13 @@ def _cell_text(value: object) -> str:
 def text_table(header: tuple[str, ...], rows: list[list[object]], *, max_width: int = 48) -> str:
     """A plain fixed-width table for the terminal."""
     cells = [[_cell_text(v)[:max_width] for v in row] for row in rows]
-    widths = [max(len(h), *(len(r[i]) for r in cells)) if cells else len(h) for i, h in enumerate(header)]
-    line = lambda values: "  ".join(v.ljust(w) for v, w in zip(values, widths, strict=True)).rstrip()  # noqa: E731
+    widths = [
+        max(len(h), *(len(r[i]) for r in cells)) if cells else len(h) for i, h in enumerate(header)
+    ]
+
+    def line(values: list[str] | tuple[str, ...]) -> str:
+        return "  ".join(v.ljust(w) for v, w in zip(values, widths, strict=True)).rstrip()
+
     return "\n".join([line(header), line(["-" * w for w in widths]), *(line(r) for r in cells)])
 
 
@@ -359,7 +366,8 @@ def comparison_text(comparison) -> str:
 def sweep_json(scenario, sweep) -> dict[str, Any]:
     variables = scenario.spec.variables
     leg = lambda controls, states: [  # noqa: E731
-        {"control": float(c), "state": state_dict(variables, states[:, i])} for i, c in enumerate(controls)
+        {"control": float(c), "state": state_dict(variables, states[:, i])}
+        for i, c in enumerate(controls)
     ]
     return {
         "scenario": scenario.name,
@@ -382,7 +390,10 @@ def sweep_json(scenario, sweep) -> dict[str, Any]:
 
 def sweep_text(scenario, sweep) -> str:
     unit = scenario.control.unit
-    lines = [scenario.name, f"Quasi-static sweep in steps of {sweep.step:.4g} {unit}, up then down."]
+    lines = [
+        scenario.name,
+        f"Quasi-static sweep in steps of {sweep.step:.4g} {unit}, up then down.",
+    ]
     if not sweep.jumps:
         lines.append("No jump: the state follows one branch both ways (no hysteresis seen).")
     for jump in sweep.jumps:

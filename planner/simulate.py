@@ -172,7 +172,9 @@ def _segment_system(system: System, timeline, a: float, b: float):
         factors = timeline.multipliers(t)
         return system.with_parameters(**{name: base[name] * f for name, f in factors.items()})
 
-    decaying = any(p.decay_years > 0 and a >= p.start + p.duration - SAME_TIME for p in timeline.pulses)
+    decaying = any(
+        p.decay_years > 0 and a >= p.start + p.duration - SAME_TIME for p in timeline.pulses
+    )
     if decaying:
         return at
     fixed = at(0.5 * (a + b))
@@ -235,11 +237,11 @@ def integrate_path(
             return u_a + slope * (t - a)  # the path is linear between cuts
 
         solution = solve_ivp(
-            lambda t, y: system_at(t).rhs(y, u_of(t)),
+            lambda t, y, system_at=system_at, u_of=u_of: system_at(t).rhs(y, u_of(t)),
             (a, b),
             x,
             method=METHOD,
-            jac=lambda t, y: system_at(t).jac(y, u_of(t)),
+            jac=lambda t, y, system_at=system_at, u_of=u_of: system_at(t).jac(y, u_of(t)),
             rtol=rtol,
             atol=scale * rtol * 1e-2,
             dense_output=True,
@@ -247,7 +249,9 @@ def integrate_path(
         )
         if solution.status == -1:
             status, message, t_end = Status.FAILED, solution.message, float(solution.t[-1])
-        grid = np.arange(np.ceil(a * SAMPLES_PER_YEAR), np.floor(solution.t[-1] * SAMPLES_PER_YEAR) + 1)
+        grid = np.arange(
+            np.ceil(a * SAMPLES_PER_YEAR), np.floor(solution.t[-1] * SAMPLES_PER_YEAR) + 1
+        )
         sample_times = np.unique(np.concatenate([solution.t, grid / SAMPLES_PER_YEAR]))
         sample_times = sample_times[(sample_times >= a) & (sample_times <= solution.t[-1])]
         times.append(sample_times)
@@ -255,7 +259,9 @@ def integrate_path(
         pieces.append((a, float(solution.t[-1]), solution.sol))
         if len(events) > 1:
             for t_cross in solution.t_events[1]:
-                slope = system_at(t_cross).rhs(solution.sol(t_cross), control(t_cross))[target_index]
+                slope = system_at(t_cross).rhs(solution.sol(t_cross), control(t_cross))[
+                    target_index
+                ]
                 crossings.append((float(t_cross), 1 if slope > 0 else -1))
         if solution.t_events[0].size:
             status, t_end = Status.DIVERGED, float(solution.t_events[0][0])

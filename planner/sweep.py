@@ -86,7 +86,9 @@ def quasi_static_sweep(
     x = np.asarray(start_state, dtype=float)
     cu, su, jumps_up, unsettled_up, x = _leg(system, x, up, cap, limit, "up", progress, 0.0, 0.5)
     down = up[: len(cu)][::-1]
-    cd, sd, jumps_down, unsettled_down, _ = _leg(system, x, down, cap, limit, "down", progress, 0.5, 0.5)
+    cd, sd, jumps_down, unsettled_down, _ = _leg(
+        system, x, down, cap, limit, "down", progress, 0.5, 0.5
+    )
     progress(1.0, "done")
     return Sweep(cu, su, cd, sd, jumps_up + jumps_down, step, unsettled_up + unsettled_down)
 

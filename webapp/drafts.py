@@ -52,9 +52,9 @@ ACTION_FIELDS: dict[str, tuple[tuple[str, str, str], ...]] = {
     ),
 }
 KIND_LABELS = {
-    "path": "Path: straight lines between (year, value) points, then held",
-    "staircase": "Staircase: each level held for a number of years",
-    "overshoot": "Overshoot: down to a floor, hold, then up to a long-run value",
+    "path": "Path: points joined by straight lines",
+    "staircase": "Staircase: levels held in turn",
+    "overshoot": "Overshoot: down to a floor, then up",
 }
 ACTION_LABELS = {"scale-state": "One-off change of a state", "parameter-pulse": "Temporary change of a parameter"}
 SCHEDULE_KINDS = tuple(KIND_FIELDS)

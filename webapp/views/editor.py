@@ -20,6 +20,7 @@ from webapp.settings import Settings
 from webapp.views.common import money, working_scenario
 
 FAST_LIMIT = 8  # schedules computed within one edit; more go to the background worker
+WIDE_STYLES = ("text", "points", "list")
 SHOWN = {"display": "block"}
 HIDDEN = {"display": "none"}
 
@@ -78,7 +79,7 @@ def _unit_suffix(style: str, data: dict) -> str:
     return ""
 
 
-def _field_row(ident: dict, message_id: dict, label: str, value: str, unit: str) -> html.Div:
+def _field_row(ident: dict, message_id: dict, label: str, value: str, unit: str, wide: bool) -> html.Div:
     return html.Div(
         [
             html.Label(label, htmlFor=_dom_id(ident), className="field-label"),
@@ -98,7 +99,7 @@ def _field_row(ident: dict, message_id: dict, label: str, value: str, unit: str)
             ),
             html.Div(id=message_id, className="field-message", role="alert"),
         ],
-        className="field-row",
+        className="field-row wide" if wide else "field-row",
     )
 
 
@@ -126,6 +127,7 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
                 label,
                 drafts.field_text(schedule.get(key), style),
                 unit,
+                wide=style in WIDE_STYLES,
             )
         )
     actions = []
@@ -138,12 +140,16 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
                 label,
                 drafts.field_text(action.get(key), style),
                 _unit_suffix(style, data),
+                wide=style in WIDE_STYLES,
             )
             for key, label, style in drafts.ACTION_FIELDS.get(action_kind, ())
         ]
         actions.append(
             html.Fieldset(
-                [html.Legend(f"Action {a + 1}: {drafts.ACTION_LABELS.get(action_kind, action_kind)}"), *fields],
+                [
+                    html.Legend(f"Action {a + 1}: {drafts.ACTION_LABELS.get(action_kind, action_kind)}"),
+                    html.Div(fields, className="fields-grid"),
+                ],
                 className="action-box",
             )
         )
@@ -162,7 +168,7 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
                 ],
                 className="card-head",
             ),
-            *rows,
+            html.Div(rows, className="fields-grid"),
             *actions,
             html.Div(id=ids.schedule_message(index), className="field-message", role="alert"),
             html.Div(id=ids.schedule_result(index), className="schedule-result"),

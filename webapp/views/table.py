@@ -73,8 +73,8 @@ def layout() -> html.Section:
                 sort_mode="single",
                 style_table={"overflowX": "auto"},
                 style_cell={
-                    "fontFamily": "inherit",
-                    "fontSize": "0.9em",
+                    "fontFamily": "Helvetica, Arial, sans-serif",
+                    "fontSize": "13px",
                     "padding": "6px 8px",
                     "whiteSpace": "normal",
                     "height": "auto",
@@ -83,8 +83,12 @@ def layout() -> html.Section:
                     "textAlign": "right",
                 },
                 style_cell_conditional=[
-                    {"if": {"column_id": c}, "textAlign": "left"}
-                    for c in ("Schedule", "Verdict", "Why infeasible")
+                    *(
+                        {"if": {"column_id": c}, "textAlign": "left"}
+                        for c in ("Schedule", "Verdict", "Why infeasible")
+                    ),
+                    {"if": {"column_id": "Why infeasible"}, "minWidth": "260px"},
+                    {"if": {"column_id": "Schedule"}, "minWidth": "160px"},
                 ],
                 style_header={"fontWeight": "600", "backgroundColor": "#f2f4f6", "whiteSpace": "normal"},
                 style_data_conditional=[
