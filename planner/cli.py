@@ -186,7 +186,7 @@ def _sweep(args: argparse.Namespace) -> int:
                 scenario.name,
                 [
                     Section("Quasi-static sweep", figure=figure),
-                    Section("Summary", text=sweep_text(scenario, sweep)),
+                    Section("Summary", text=sweep_text(scenario, sweep, caution=False)),
                 ],
             ),
         )

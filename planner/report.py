@@ -388,7 +388,7 @@ def sweep_json(scenario, sweep) -> dict[str, Any]:
     }
 
 
-def sweep_text(scenario, sweep) -> str:
+def sweep_text(scenario, sweep, *, caution: bool = True) -> str:
     unit = scenario.control.unit
     lines = [
         scenario.name,
@@ -403,5 +403,6 @@ def sweep_text(scenario, sweep) -> str:
         )
     if sweep.unsettled:
         lines.append(f"  {sweep.unsettled} steps had not settled by the cap.")
-    lines += ["", CAUTION]
+    if caution:
+        lines += ["", CAUTION]
     return "\n".join(lines)

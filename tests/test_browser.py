@@ -126,7 +126,7 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
         expect(page.locator(f"#{ids.LOAD_MESSAGE}")).to_contain_text(f"Loaded {file_name}")
 
     cards = page.locator(".schedule-card")
-    table_names = page.locator(f"#{ids.TABLE} td[data-dash-column='Schedule']")
+    table_names = page.locator(f"#{ids.TABLE} td[data-column='Schedule']")
 
     page.goto(served["url"])
     expect(page.locator("#caution")).to_have_text(CAUTION)
@@ -142,6 +142,15 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     expect(page.locator(f"#{ids.SUMMARY}")).to_contain_text("Recovery threshold")
     shot("scenario-picked")
 
+    # The table sorts by a column heading; a second click reverses the order.
+    cost_heading = page.locator(f"#{ids.TABLE} th[data-column^='Total cost'] button")
+    cost_heading.click()
+    expect(page.locator(f"#{ids.TABLE} th[data-column^='Total cost']")).to_have_attribute("aria-sort", "ascending")
+    expect(table_names.first).to_have_text("Short cut with sediment P inactivation")
+    cost_heading.click()
+    expect(page.locator(f"#{ids.TABLE} th[data-column^='Total cost']")).to_have_attribute("aria-sort", "descending")
+    expect(table_names.first).to_have_text("Overnight cut (breaks the rate limit)")
+
     # Edit schedule 2's floor: its verdict and cost change, in the card and in the table.
     result = page.locator(dom_id(ids.schedule_result(1)))
     expect(result).to_contain_text("recovers")
@@ -151,8 +160,8 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     floor.press("Enter")
     expect(result).to_contain_text("stays in the undesired regime")
     assert result.locator(".cost-total").inner_text() != cost_before
-    row = page.locator(f"#{ids.TABLE} tr", has_text="Deep cut to 0.6")
-    expect(row.locator("td[data-dash-column='Verdict']")).to_have_text("stays in the undesired regime")
+    row = page.locator(f"#{ids.TABLE} tr[data-schedule^='Deep cut to 0.6']")
+    expect(row.locator("td[data-column='Verdict']")).to_have_text("stays in the undesired regime")
     shot("floor-edited")
 
     # A value that is not a number: a message beside the field naming it, no traceback.
@@ -160,7 +169,7 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     floor.press("Enter")
     message = page.locator(dom_id(ids.field_message(1, "floor")))
     expect(message).to_contain_text("schedules.1.floor")
-    expect(floor).to_have_class(re.compile("invalid"))
+    expect(floor.locator("xpath=..")).to_have_class(re.compile("invalid"))
     shot("bad-value-message")
     floor.fill("1.3")
     floor.press("Enter")

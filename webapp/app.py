@@ -117,6 +117,7 @@ def page(settings: Settings) -> html.Div:
             dcc.Store(id=ids.PENDING),
             dcc.Store(id=ids.RESULTS_READY),
             dcc.Store(id=ids.SAVE_PENDING),
+            dcc.Store(id=ids.SORT),
         ],
         className="page",
     )

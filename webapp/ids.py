@@ -15,6 +15,7 @@ WORKING = "store-working"  # the last valid scenario and whether the editor matc
 PENDING = "store-pending"  # a comparison handed to the background worker
 RESULTS_READY = "store-results-ready"  # bumped when the background worker has finished
 SAVE_PENDING = "store-save-pending"  # file name awaiting "overwrite?" confirmation
+SORT = "store-sort"  # the comparison table's sort column and direction
 
 # Scenario panel.
 PICKER = "scenario-picker"
@@ -59,6 +60,7 @@ SWEEP_GRAPH = "sweep-graph"
 SWEEP_SUMMARY = "sweep-summary"
 DOWNLOAD = "download"
 EXPORT_MESSAGE = "export-message"
+SORT_BUTTON = "sort-button"
 
 # Tab values.
 TAB_DIAGRAM, TAB_SERIES, TAB_SIDE, TAB_SWEEP = "diagram", "series", "side", "sweep"
@@ -73,6 +75,7 @@ SCHEDULE_RESULT = "schedule-result"
 SCHEDULE_BUTTON = "schedule-button"
 EXPORT_BUTTON = "export-button"
 EXPORT_MESSAGE = "export-message"
+SORT_BUTTON = "sort-button"
 
 
 def schedule_field(index, field) -> dict:
@@ -119,6 +122,11 @@ def export_message(what) -> dict:
     return {"type": EXPORT_MESSAGE, "what": what}
 
 
+def sort_button(column) -> dict:
+    """A column heading of the comparison table (click: sort by it)."""
+    return {"type": SORT_BUTTON, "column": column}
+
+
 ALL_SCHEDULE_FIELDS = schedule_field(ALL, ALL)
 ALL_FIELD_MESSAGES = field_message(ALL, ALL)
 ALL_ACTION_FIELDS = action_field(ALL, ALL, ALL)
@@ -128,3 +136,4 @@ ALL_SCHEDULE_RESULTS = schedule_result(ALL)
 ALL_SCHEDULE_BUTTONS = schedule_button(ALL, ALL)
 ALL_EXPORT_BUTTONS = export_button(ALL, ALL)
 ALL_EXPORT_MESSAGES = export_message(ALL)
+ALL_SORT_BUTTONS = sort_button(ALL)
