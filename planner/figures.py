@@ -258,26 +258,21 @@ def sweep_figure(scenario, sweep, diagram: Diagram | None = None) -> go.Figure:
     fig = (
         go.Figure() if diagram is None else hysteresis_figure(scenario, diagram, variable=variable)
     )
-    fig.add_trace(
-        go.Scatter(
-            x=sweep.controls_up,
-            y=sweep.states_up[k],
-            mode="lines+markers",
-            name="dialled up",
-            marker=dict(symbol="triangle-right", size=6, color=PALETTE[1]),
-            line=dict(color=PALETTE[1], width=1),
-        )
+    legs = (
+        ("dialled up", sweep.controls_up, sweep.states_up, "triangle-right", PALETTE[1]),
+        ("dialled down", sweep.controls_down, sweep.states_down, "triangle-left", PALETTE[0]),
     )
-    fig.add_trace(
-        go.Scatter(
-            x=sweep.controls_down,
-            y=sweep.states_down[k],
-            mode="lines+markers",
-            name="dialled down",
-            marker=dict(symbol="triangle-left", size=6, color=PALETTE[0]),
-            line=dict(color=PALETTE[0], width=1),
+    for name, controls, states, symbol, hue in legs:
+        fig.add_trace(
+            go.Scatter(
+                x=controls,
+                y=states[k],
+                mode="lines+markers",
+                name=name,
+                marker=dict(symbol=symbol, size=6, color=hue),
+                line=dict(color=hue, width=1),
+            )
         )
-    )
     fig.update_layout(
         title=f"{scenario.name}: quasi-static sweep (step {sweep.step:.3g})",
         xaxis_title=scenario.control.axis_title,
