@@ -207,3 +207,307 @@ def _more_commands(sub: argparse._SubParsersAction) -> None:
 
 
 EXTENSIONS.append(_more_commands)
+
+
+@command("app")
+def _app(args: argparse.Namespace) -> int:
+    from webapp.serve import DEFAULT_WORKERS, serve  # the web app sits on top of the planner
+
+    workers = DEFAULT_WORKERS if args.workers is None else args.workers
+    if workers < 1:
+        raise InputError([Problem("--workers", "workers", "must be at least 1")])
+
+    def ready(port: int) -> None:
+        print(f"Lake recovery planner: http://{args.host}:{port}/ (Ctrl+C stops)", file=sys.stderr)
+
+    serve(args.dir, host=args.host, port=args.port, workers=workers, ready=ready)
+    return EXIT_OK
+
+
+def _app_command(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("app", help="start the web app (loopback only unless --host says otherwise)")
+    p.add_argument("dir", nargs="?", help="folder of scenario files (default: the bundled demos)")
+    p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
+    p.add_argument("--port", type=int, default=8050, help="port to listen on (default 8050)")
+    p.add_argument("--workers", type=int, help="worker processes (default: one per core, up to 4)")
+
+
+EXTENSIONS.append(_app_command)
+
+
+def _number_list(text: str | None, option: str) -> list[float] | None:
+    """Comma-separated numbers from an option, or an InputError naming the option."""
+    if text is None:
+        return None
+    values = []
+    for i, part in enumerate(text.split(",")):
+        try:
+            values.append(float(part))
+        except ValueError:
+            raise InputError(
+                [Problem(option, f"{option.lstrip('-')}.{i}", f"{part.strip()!r} is not a number")]
+            ) from None
+    return values
+
+
+@command("frontier")
+def _frontier(args: argparse.Namespace) -> int:
+    from planner.briefing import Section, page
+    from planner.figures import frontier_figure
+    from planner.frontier import frontier_json, frontier_rows, frontier_text, recovery_frontier
+    from planner.scenario import load_scenario
+
+    scenario = load_scenario(args.file)
+    frontier = recovery_frontier(
+        scenario,
+        relax_to=args.relax_to,
+        depths=_number_list(args.depths, "--depths"),
+        durations=_number_list(args.durations, "--durations") or (),
+        family=args.family,
+        source=args.file,
+        progress=_progress(),
+    )
+    print(json.dumps(frontier_json(frontier), indent=2) if args.json else frontier_text(frontier))
+    if args.html:
+        _write(
+            args.html,
+            page(
+                f"Recovery frontier: {scenario.name}",
+                [
+                    Section("How deep and how long", figure=frontier_figure(scenario, frontier)),
+                    Section("Least hold at each depth", table=frontier_rows(frontier)),
+                ],
+                summary=scenario.description,
+            ),
+        )
+    return EXIT_OK
+
+
+@command("search")
+def _search(args: argparse.Namespace) -> int:
+    from planner.briefing import Section, page
+    from planner.figures import frontier_figure, pareto_figure
+    from planner.frontier import recovery_frontier
+    from planner.scenario import load_scenario
+    from planner.search import check_new_file, save_found, search, search_json, search_text
+
+    scenario = load_scenario(args.file)
+    if args.save_to:
+        check_new_file(args.save_to)
+    result = search(
+        scenario,
+        relax_to=args.relax_to,
+        by_year=args.by_year,
+        families=args.family or ("overshoot", "staircase"),
+        source=args.file,
+        progress=_progress(),
+    )
+    print(json.dumps(search_json(result), indent=2) if args.json else search_text(result))
+    if args.save_to:
+        if result.cheapest is None:
+            raise InputError([Problem(args.file, "schedules", "no admissible schedule to save")])
+        _, saved = save_found(scenario, result.cheapest, args.save_to)
+        print(f"wrote {args.save_to} with the schedule {saved.name!r}", file=sys.stderr)
+    if args.html:
+        frontier = recovery_frontier(scenario, relax_to=result.relax_to, source=args.file)
+        _write(
+            args.html,
+            page(
+                f"Cheapest recovering schedules: {scenario.name}",
+                [
+                    Section("Money against time", figure=pareto_figure(scenario, result)),
+                    Section("How deep and how long", figure=frontier_figure(scenario, frontier)),
+                    Section("Summary", text=search_text(result)),
+                ],
+                summary=scenario.description,
+            ),
+        )
+    return EXIT_OK
+
+
+def _frontier_commands(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("frontier", help="least hold below the recovery threshold, for each depth")
+    p.add_argument("file")
+    p.add_argument("--relax-to", type=float, metavar="X", help="control value after the hold")
+    p.add_argument("--depths", metavar="D1,D2,...", help="depths below the recovery threshold")
+    p.add_argument("--durations", metavar="Y1,Y2,...", help="holds (years): least depth for each")
+    p.add_argument("--family", choices=("overshoot", "staircase"), default="overshoot")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write an HTML figure of the frontier")
+    p = sub.add_parser("search", help="cheapest recovering schedule; money against time")
+    p.add_argument("file")
+    p.add_argument("--by-year", type=float, metavar="Y", help="the target must be met by year Y")
+    p.add_argument("--relax-to", type=float, metavar="X", help="control value after the hold")
+    p.add_argument(
+        "--family", action="append", choices=("overshoot", "staircase"), help="(repeatable)"
+    )
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+    p.add_argument("--save-to", metavar="NEW.toml", help="write the scenario plus the cheapest")
+
+
+EXTENSIONS.append(_frontier_commands)
+
+
+def _name_list(text: str | None) -> list[str] | None:
+    """Comma-separated names from an option (``s,r,m``), or None when the option is absent."""
+    return None if text is None else [part.strip() for part in text.split(",") if part.strip()]
+
+
+def _assignments(items: list[str] | None, option: str) -> dict[str, str] | None:
+    """``NAME=VALUE`` pairs from a repeatable option, or an InputError naming the option."""
+    if not items:
+        return None
+    out = {}
+    for item in items:
+        name, equals, value = item.partition("=")
+        if not equals or not name.strip() or not value.strip():
+            raise InputError([Problem(option, item, "write VARIABLE=COLUMN, e.g. P=TP")])
+        out[name.strip()] = value.strip()
+    return out
+
+
+@command("fit")
+def _fit(args: argparse.Namespace) -> int:
+    from planner.briefing import Section, page
+    from planner.calibration import fit_json, fit_record, fit_text, observations_for
+    from planner.figures import fit_figure, fit_hysteresis_figure
+    from planner.monitoring import read_record
+    from planner.scenario import load_scenario, save_scenario
+
+    if args.out and Path(args.out).exists():  # say so before a long fit, not after
+        raise InputError([Problem(args.out, "(file)", "exists already; choose another name")])
+    scenario = load_scenario(args.scenario)
+    record = read_record(args.data, time_column=args.time_column)
+    observations = observations_for(
+        record,
+        scenario,
+        control_column=args.control_column,
+        states=_assignments(args.state, "--state"),
+    )
+    fit = fit_record(
+        scenario,
+        observations,
+        fit=_name_list(args.fit),
+        log=args.log,
+        bootstrap=args.bootstrap,
+        seed=args.seed,
+        progress=_progress(),
+    )
+    print(json.dumps(fit_json(fit), indent=2) if args.json else fit_text(fit))
+    if args.out:
+        save_scenario(fit.fitted_scenario, args.out)
+        print(f"wrote {args.out} (the fitted scenario)", file=sys.stderr)
+    if args.html:
+        _write(
+            args.html,
+            page(
+                f"Fit to monitoring data: {scenario.name}",
+                [
+                    Section("Record and fitted model", figure=fit_figure(fit)),
+                    Section("Thresholds of the fitted lake", figure=fit_hysteresis_figure(fit)),
+                    Section("Summary", text=fit_text(fit, caution=False)),
+                ],
+                summary=scenario.description,
+            ),
+        )
+    return EXIT_OK
+
+
+@command("signals")
+def _signals(args: argparse.Namespace) -> int:
+    from planner.briefing import Section, page
+    from planner.figures import signals_figure
+    from planner.monitoring import read_record
+    from planner.signals import record_signals, signals_json, signals_text
+
+    record = read_record(args.data, time_column=args.time_column)
+    signals = record_signals(
+        record, args.column, window=args.window, bandwidth=args.bandwidth, before=args.before
+    )
+    print(json.dumps(signals_json(signals), indent=2) if args.json else signals_text(signals))
+    if args.html:
+        _write(
+            args.html,
+            page(
+                f"Early-warning indicators: {args.data}",
+                [
+                    Section("Indicators", figure=signals_figure(signals)),
+                    Section("Summary", text=signals_text(signals, caution=False)),
+                ],
+            ),
+        )
+    return EXIT_OK
+
+
+def _monitoring_commands(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("fit", help="fit the model to a monitoring record; thresholds, intervals")
+    p.add_argument("data", help="monitoring CSV: time, load and observed columns")
+    p.add_argument("--scenario", required=True, metavar="BASE.toml", help="model and first guess")
+    p.add_argument("--fit", metavar="s,r,m", help="parameters to fit (default: all but q)")
+    p.add_argument("--out", metavar="FITTED.toml", help="write the fitted scenario (new file)")
+    p.add_argument("--log", action="store_true", help="fit the logarithms of the observations")
+    p.add_argument("--bootstrap", type=int, metavar="N", help="bootstrap replicates (0: none)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap draws")
+    p.add_argument("--time-column", metavar="NAME", help="time column (default: the first)")
+    p.add_argument("--control-column", metavar="NAME", help="load column (default: L or load)")
+    p.add_argument(
+        "--state", action="append", metavar="VARIABLE=COLUMN", help="observed column (repeatable)"
+    )
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+    p = sub.add_parser("signals", help="early-warning indicators of one monitored series")
+    p.add_argument("data", help="monitoring CSV: time and one or more data columns")
+    p.add_argument("--column", metavar="NAME", help="the series (needed if several columns)")
+    p.add_argument("--window", type=float, metavar="F", help="window share (default: half)")
+    p.add_argument("--bandwidth", type=float, metavar="YEARS", help="kernel bandwidth")
+    p.add_argument("--before", type=float, metavar="TIME", help="use only times before this")
+    p.add_argument("--time-column", metavar="NAME", help="time column (default: the first)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+
+
+EXTENSIONS.append(_monitoring_commands)
+
+
+@command("ensemble")
+def _ensemble(args: argparse.Namespace) -> int:
+    from planner.ensemble import DEFAULT_CHUNK, run_ensemble
+    from planner.ensemble_report import ensemble_briefing, ensemble_json, ensemble_text
+    from planner.scenario import load_scenario
+
+    scenario = load_scenario(args.file)
+    ensemble = run_ensemble(
+        scenario,
+        members=args.members,
+        seed=args.seed,
+        scheduler=args.scheduler,
+        chunk_size=DEFAULT_CHUNK if args.chunk is None else args.chunk,
+        progress=_progress(),
+    )
+    print(json.dumps(ensemble_json(ensemble), indent=2) if args.json else ensemble_text(ensemble))
+    if args.html:
+        _write(args.html, ensemble_briefing(ensemble))
+    return EXIT_OK
+
+
+def _ensemble_command(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser(
+        "ensemble", help="chance of recovery under uncertain parameters and noisy loads"
+    )
+    p.add_argument("file")
+    p.add_argument("--members", type=int, metavar="N", help="members (default: [uncertainty])")
+    p.add_argument("--seed", type=int, metavar="S", help="seed (default: [uncertainty])")
+    p.add_argument(
+        "--scheduler",
+        default="local",
+        metavar="local|processes|tcp://HOST:PORT",
+        help="where to run: this process (default), 2 local Dask worker processes, or a "
+        "running Dask scheduler",
+    )
+    p.add_argument("--chunk", type=int, metavar="M", help="members simulated together")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+
+
+EXTENSIONS.append(_ensemble_command)

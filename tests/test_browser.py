@@ -23,7 +23,7 @@ import pytest
 
 from planner.report import CAUTION
 from planner.scenario import load_scenario
-from webapp import create_app, ids
+from webapp import compute, create_app, ids
 from webapp.files import default_scenario_dir
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -45,7 +45,8 @@ pytestmark = [
     pytest.mark.browser,
     pytest.mark.skipif(
         not CHROMIUM.exists(),
-        reason="needs Debian's chromium at /usr/bin/chromium (apt-get install chromium; .ci/run does)",
+        reason="needs Debian's chromium at /usr/bin/chromium (apt-get install chromium; "
+        ".ci/run installs it)",
     ),
 ]
 
@@ -65,6 +66,7 @@ def served(tmp_path_factory):
     shutil.copytree(default_scenario_dir(), scenarios)
     saved = root / "saved"
     app = create_app(scenarios, save_dir=saved, cache_dir=root / "cache")
+    compute.clear()  # results cached by earlier tests in this process would hide the real work
     logging.getLogger("werkzeug").setLevel(logging.ERROR)
     server = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
@@ -83,7 +85,9 @@ def shots(tmp_path):
 
 def dom_id(ident: dict) -> str:
     """CSS selector of a pattern-matching id (Dash writes it as JSON with sorted keys)."""
-    return '[id="{}"]'.format(json.dumps(ident, sort_keys=True, separators=(",", ":")).replace('"', '\\"'))
+    return '[id="{}"]'.format(
+        json.dumps(ident, sort_keys=True, separators=(",", ":")).replace('"', '\\"')
+    )
 
 
 class _Structure(HTMLParser):
@@ -145,10 +149,14 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     # The table sorts by a column heading; a second click reverses the order.
     cost_heading = page.locator(f"#{ids.TABLE} th[data-column^='Total cost'] button")
     cost_heading.click()
-    expect(page.locator(f"#{ids.TABLE} th[data-column^='Total cost']")).to_have_attribute("aria-sort", "ascending")
+    expect(page.locator(f"#{ids.TABLE} th[data-column^='Total cost']")).to_have_attribute(
+        "aria-sort", "ascending"
+    )
     expect(table_names.first).to_have_text("Short cut with sediment P inactivation")
     cost_heading.click()
-    expect(page.locator(f"#{ids.TABLE} th[data-column^='Total cost']")).to_have_attribute("aria-sort", "descending")
+    expect(page.locator(f"#{ids.TABLE} th[data-column^='Total cost']")).to_have_attribute(
+        "aria-sort", "descending"
+    )
     expect(table_names.first).to_have_text("Overnight cut (breaks the rate limit)")
 
     # Edit schedule 2's floor: its verdict and cost change, in the card and in the table.
@@ -182,6 +190,17 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     expect(page.locator(dom_id(ids.schedule_result(5)))).to_contain_text("total cost")
     shot("schedule-added")
 
+    # The other views: time series, and two schedules side by side.
+    page.get_by_text("Over time", exact=True).click()
+    expect(page.locator(f"#{ids.SERIES_GRAPH} .gtitle")).to_contain_text("schedules over time")
+    expect(page.locator(f"#{ids.SERIES_GRAPH} .legendtext")).to_have_count(6)
+    shot("time-series")
+    page.get_by_text("Side by side", exact=True).click()
+    expect(page.locator(f"#{ids.SIDE_GRAPH} .gtitle")).to_contain_text("side by side")
+    expect(page.locator(f"#{ids.SIDE_GRAPH} .cartesianlayer > .subplot")).to_have_count(2)
+    shot("side-by-side")
+    page.get_by_text("Equilibrium diagram", exact=True).click()
+
     # Export the briefing: a whole HTML page carrying the caution.
     with page.expect_download() as download:
         page.locator(dom_id(ids.export_button("briefing", "html"))).click()
@@ -192,7 +211,9 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     parser.feed(text)
     assert parser.doctype.lower() == "doctype html"
     for tag in ("html", "head", "body", "table"):
-        assert parser.opened.get(tag, 0) >= 1 and parser.opened.get(tag) == parser.closed.get(tag), tag
+        assert parser.opened.get(tag, 0) >= 1 and parser.opened.get(tag) == parser.closed.get(
+            tag
+        ), tag
     assert CAUTION in html.unescape(text)
     assert "New overshoot schedule" in text and "Deep cut to 0.6" in text
     shot("briefing-exported")
@@ -228,13 +249,17 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     choose("alder-mere-edited.toml")
     expect(cards).to_have_count(6)
     expect(page.locator(dom_id(ids.schedule_field(1, "floor")))).to_have_value("1.3")
-    expect(page.locator(dom_id(ids.schedule_result(1)))).to_contain_text("stays in the undesired regime")
+    expect(page.locator(dom_id(ids.schedule_result(1)))).to_contain_text(
+        "stays in the undesired regime"
+    )
     shot("saved-file-reloaded")
 
     # The slow sweep runs in the background with a progress bar, then draws the loop.
     page.get_by_text("Slow sweep", exact=True).click()
     page.locator(f"#{ids.SWEEP_STEP}").fill("0.05")
     page.locator(f"#{ids.SWEEP_RUN}").click()
-    expect(page.locator(f"#{ids.SWEEP_GRAPH} .gtitle")).to_contain_text("quasi-static sweep", timeout=30_000)
+    expect(page.locator(f"#{ids.SWEEP_GRAPH} .gtitle")).to_contain_text(
+        "quasi-static sweep", timeout=30_000
+    )
     expect(page.locator(f"#{ids.SWEEP_SUMMARY}")).to_contain_text("jump while dialling")
     shot("sweep")

@@ -24,7 +24,17 @@ from planner.report import CAUTION
 from planner.scenario.io import MAX_SCENARIO_BYTES
 from webapp import compute, files, ids
 from webapp.settings import Settings
-from webapp.views import VIEWS, diagram, editor, export, scenario_panel, series, side_by_side, sweep, table
+from webapp.views import (
+    VIEWS,
+    diagram,
+    editor,
+    export,
+    scenario_panel,
+    series,
+    side_by_side,
+    sweep,
+    table,
+)
 
 TITLE = "Lake recovery planner"
 ASSETS = Path(__file__).resolve().parent / "assets"
@@ -51,7 +61,9 @@ def _folder(path: str | os.PathLike[str] | None, what: str, *, create: bool = Fa
         try:
             folder.mkdir(parents=True)
         except OSError as error:
-            raise InputError([Problem(str(folder), "(folder)", f"cannot create: {error.strerror}")]) from None
+            raise InputError(
+                [Problem(str(folder), "(folder)", f"cannot create: {error.strerror}")]
+            ) from None
     if not folder.is_dir():
         raise InputError([Problem(str(folder), "(folder)", f"{what}: no such folder")])
     return folder.resolve()
@@ -74,9 +86,15 @@ def page(settings: Settings) -> html.Div:
                 id=ids.TABS,
                 value=ids.TAB_DIAGRAM,
                 children=[
-                    dcc.Tab(label="Equilibrium diagram", value=ids.TAB_DIAGRAM, children=diagram.layout()),
+                    dcc.Tab(
+                        label="Equilibrium diagram",
+                        value=ids.TAB_DIAGRAM,
+                        children=diagram.layout(),
+                    ),
                     dcc.Tab(label="Over time", value=ids.TAB_SERIES, children=series.layout()),
-                    dcc.Tab(label="Side by side", value=ids.TAB_SIDE, children=side_by_side.layout()),
+                    dcc.Tab(
+                        label="Side by side", value=ids.TAB_SIDE, children=side_by_side.layout()
+                    ),
                     dcc.Tab(label="Slow sweep", value=ids.TAB_SWEEP, children=sweep.layout()),
                 ],
                 className="result-tabs",
@@ -100,7 +118,12 @@ def page(settings: Settings) -> html.Div:
                 className="page-header",
             ),
             html.P(CAUTION, id="caution", className="caution", role="note"),
-            html.Div(id=ids.APP_ERROR, className="message problem", role="alert", style={"display": "none"}),
+            html.Div(
+                id=ids.APP_ERROR,
+                className="message problem",
+                role="alert",
+                style={"display": "none"},
+            ),
             html.Div(
                 [
                     html.Aside(
@@ -136,9 +159,12 @@ def create_app(
     Raises InputError naming the folder when one cannot be used.
     """
     scenario_folder = _folder(
-        scenario_dir if scenario_dir is not None else files.default_scenario_dir(), "scenario folder"
+        scenario_dir if scenario_dir is not None else files.default_scenario_dir(),
+        "scenario folder",
     )
-    save_folder = scenario_folder if save_dir is None else _folder(save_dir, "save folder", create=True)
+    save_folder = (
+        scenario_folder if save_dir is None else _folder(save_dir, "save folder", create=True)
+    )
     folders = [files.Folder("Scenarios", scenario_folder)]
     if save_folder != scenario_folder:
         folders.append(files.Folder("Saved", save_folder))

@@ -9,8 +9,9 @@ schedule's outcome from ``planner.outcomes.compare``. What is cached:
   edit re-simulates only the schedule that changed.
 
 The caches are an in-process LRU (results only; the user's scenario lives in the browser's
-``dcc.Store``). Outcomes computed by the background worker are also written to a disk cache so
-the web process (or another worker) can read them.
+``dcc.Store``). Outcomes computed by the background worker, and with several server processes
+every outcome, are also written to a disk cache (one per process, set by ``create_app``), so the
+other processes read them instead of simulating again.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ import hashlib
 import json
 import os
 import threading
+import time
 from collections import OrderedDict
 from collections.abc import Callable, Hashable
 from pathlib import Path
@@ -62,9 +64,6 @@ class LRU:
         with self._lock:
             self._items.clear()
 
-    def __len__(self) -> int:
-        return len(self._items)
-
     def _after_fork(self) -> None:
         self._lock = threading.Lock()
 
@@ -73,29 +72,39 @@ _diagrams = LRU(DIAGRAM_CACHE_SIZE)
 _outcomes = LRU(OUTCOME_CACHE_SIZE)
 _scenarios = LRU(SCENARIO_CACHE_SIZE)
 _diagram_lock = threading.Lock()  # one diagram computed at a time: concurrent requests wait
+# One comparison at a time per process: the integrations hold the interpreter lock anyway, and
+# twenty requests time-slicing it finish later, on average, than twenty served in turn.
+_compute_slot = threading.Lock()
 _disk_folder: Path | None = None
 _disk: Any = None
 _disk_pid: int | None = None
+_share_all = False
 _counts = {"diagrams": 0, "outcomes": 0}
 
 
 def _after_fork_in_child() -> None:
     """A lock held by another thread at fork time would stay held forever in the child."""
-    global _diagram_lock, _disk, _disk_pid
+    global _diagram_lock, _compute_slot, _disk, _disk_pid
     for cache in (_diagrams, _outcomes, _scenarios):
         cache._after_fork()
     _diagram_lock = threading.Lock()
+    _compute_slot = threading.Lock()
     _disk, _disk_pid = None, None
 
 
 os.register_at_fork(after_in_child=_after_fork_in_child)
 
 
-def use_disk(folder: str | os.PathLike[str] | None) -> None:
-    """Keep outcomes computed by background workers in ``folder`` (None: memory only)."""
-    global _disk_folder, _disk, _disk_pid
+def use_disk(folder: str | os.PathLike[str] | None, *, share_all: bool = False) -> None:
+    """Keep outcomes computed by background workers in ``folder`` (None: memory only).
+
+    With ``share_all`` every outcome is written there, for server processes that serve the
+    same users (a write costs a few milliseconds, so a single process does not pay it).
+    """
+    global _disk_folder, _disk, _disk_pid, _share_all
     _disk_folder = None if folder is None else Path(folder)
     _disk, _disk_pid = None, None
+    _share_all = share_all
 
 
 def _disk_cache():
@@ -111,9 +120,9 @@ def _disk_cache():
     return _disk
 
 
-def clear() -> None:
-    """Forget every cached result (tests and benchmarks)."""
-    for cache in (_diagrams, _outcomes, _scenarios):
+def clear(*, keep_diagrams: bool = False) -> None:
+    """Forget cached results (tests and benchmarks); ``keep_diagrams`` forgets outcomes only."""
+    for cache in (_outcomes, _scenarios) if keep_diagrams else (_diagrams, _outcomes, _scenarios):
         cache.clear()
     disk = _disk_cache()
     if disk is not None:
@@ -140,8 +149,9 @@ def dump(scenario: Scenario) -> dict:
 
 
 def scenario_of(data: dict, source: str = "<editor>") -> Scenario:
-    """Validate store data into a Scenario (raises InputError), remembering recent ones."""
-    key = (source, _json(data))
+    """Validate store data into a Scenario (raises InputError naming ``source``), remembering
+    recent valid ones (only failures carry the source, so it is not part of the key)."""
+    key = _json(data)
     found = _scenarios.get(key)
     if found is None:
         found = scenario_from_data(data, source)
@@ -206,24 +216,26 @@ def cached_comparison(scenario: Scenario) -> Comparison | None:
 
 
 def comparison_of(
-    scenario: Scenario, *, progress: Progress = silent, persist: bool = False
+    scenario: Scenario, *, progress: Progress = silent, persist: bool | None = None
 ) -> Comparison:
     """The comparison of every schedule, computing (through the planner) only what is missing.
 
-    ``persist`` also writes new outcomes to the disk cache, for other processes to read.
+    ``persist`` writes new outcomes to the disk cache for other processes to read (default:
+    only when ``use_disk`` was told to share everything).
     """
     diagram, _ = diagram_of(scenario, progress=scaled(progress, 0.0, 0.2))
     keys = _outcome_keys(scenario)
     outcomes: list[ScheduleOutcome | None] = [_cached_outcome(key) for key in keys]
     todo = [i for i, outcome in enumerate(outcomes) if outcome is None]
     if todo:
-        fresh = compare(
-            scenario,
-            diagram=diagram,
-            schedules=[scenario.schedules[i] for i in todo],
-            progress=scaled(progress, 0.2, 1.0),
-        ).outcomes
-        disk = _disk_cache() if persist else None
+        with _compute_slot:
+            fresh = compare(
+                scenario,
+                diagram=diagram,
+                schedules=[scenario.schedules[i] for i in todo],
+                progress=scaled(progress, 0.2, 1.0),
+            ).outcomes
+        disk = _disk_cache() if (_share_all if persist is None else persist) else None
         for i, outcome in zip(todo, fresh, strict=True):
             outcomes[i] = outcome
             _outcomes.put(keys[i], outcome)
@@ -236,8 +248,6 @@ def comparison_of(
 
 def throttled(report: Callable[[float, str], None], interval: float = 0.25) -> Progress:
     """A planner progress callback that forwards at most every ``interval`` seconds."""
-    import time
-
     last = [0.0]
 
     def progress(fraction: float, message: str) -> None:

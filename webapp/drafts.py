@@ -13,6 +13,7 @@ import re
 from dataclasses import dataclass
 
 from planner.errors import Problem
+from webapp import ids
 
 # Field labels are our own; the key is the scenario-file key (used in every message).
 COMMON_FIELDS = (("name", "Name", "text"),)
@@ -56,7 +57,10 @@ KIND_LABELS = {
     "staircase": "Staircase: levels held in turn",
     "overshoot": "Overshoot: down to a floor, then up",
 }
-ACTION_LABELS = {"scale-state": "One-off change of a state", "parameter-pulse": "Temporary change of a parameter"}
+ACTION_LABELS = {
+    "scale-state": "One-off change of a state",
+    "parameter-pulse": "Temporary change of a parameter",
+}
 SCHEDULE_KINDS = tuple(KIND_FIELDS)
 _SPLIT = re.compile(r"[,\s]+")
 
@@ -76,7 +80,9 @@ def field_text(value: object, style: str) -> str:
     """The text shown in a field for a value from the scenario data."""
     if style == "points" and isinstance(value, list):
         return "; ".join(
-            ", ".join(number_text(v) for v in point) if isinstance(point, list) else number_text(point)
+            ", ".join(number_text(v) for v in point)
+            if isinstance(point, list)
+            else number_text(point)
             for point in value
         )
     if style == "list" and isinstance(value, list):
@@ -91,7 +97,11 @@ def parse_text(text: object, style: str) -> object:
     if style == "points":
         if not text:
             return []
-        return [[part for part in _SPLIT.split(pair.strip()) if part] for pair in text.split(";") if pair.strip()]
+        return [
+            [part for part in _SPLIT.split(pair.strip()) if part]
+            for pair in text.split(";")
+            if pair.strip()
+        ]
     if style == "list":
         return [part for part in _SPLIT.split(text.replace(";", ",")) if part]
     return text
@@ -99,6 +109,19 @@ def parse_text(text: object, style: str) -> object:
 
 def schedule_fields(kind: str) -> tuple[tuple[str, str, str], ...]:
     return COMMON_FIELDS + KIND_FIELDS.get(kind, ())
+
+
+def editor_values(data: dict) -> tuple[list[tuple[dict, str]], list[tuple[dict, str]]]:
+    """The (id, text) of every schedule field and every action field, in page order, as the
+    editor shows them for this data."""
+    fields, actions = [], []
+    for i, schedule in enumerate(data.get("schedules", [])):
+        for key, _, style in schedule_fields(schedule.get("kind")):
+            fields.append((ids.schedule_field(i, key), field_text(schedule.get(key), style)))
+        for a, action in enumerate(schedule.get("actions", [])):
+            for key, _, style in ACTION_FIELDS.get(action.get("kind"), ()):
+                actions.append((ids.action_field(i, a, key), field_text(action.get(key), style)))
+    return fields, actions
 
 
 def merge_fields(
@@ -193,7 +216,12 @@ def new_schedule(kind: str, data: dict) -> dict:
     taken = {s.get("name") for s in data.get("schedules", [])}
     name = unique_name(f"New {kind} schedule", taken)
     if kind == "path":
-        return {"name": name, "kind": "path", "actions": [], "points": [[0.0, current], [10.0, middle]]}
+        return {
+            "name": name,
+            "kind": "path",
+            "actions": [],
+            "points": [[0.0, current], [10.0, middle]],
+        }
     if kind == "staircase":
         return {
             "name": name,
@@ -222,7 +250,9 @@ def duplicate(data: dict, index: int) -> dict:
     out = copy.deepcopy(data)
     schedules = out.setdefault("schedules", [])
     copy_of = copy.deepcopy(schedules[index])
-    copy_of["name"] = unique_name(f"{copy_of.get('name', 'Schedule')} (copy)", {s.get("name") for s in schedules})
+    copy_of["name"] = unique_name(
+        f"{copy_of.get('name', 'Schedule')} (copy)", {s.get("name") for s in schedules}
+    )
     schedules.insert(index + 1, copy_of)
     return out
 

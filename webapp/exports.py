@@ -33,7 +33,7 @@ _lock = threading.Lock()
 _server_started = False
 
 
-class ExportUnavailable(RuntimeError):
+class PngUnavailableError(RuntimeError):
     """PNG export needs Chromium and kaleido; the message says what is missing."""
 
 
@@ -52,16 +52,29 @@ def _start_server() -> None:
     try:
         import kaleido
     except ImportError:
-        raise ExportUnavailable("PNG export needs the kaleido package (pip install kaleido)") from None
+        raise PngUnavailableError(
+            "PNG export needs the kaleido package (pip install kaleido)"
+        ) from None
     if "BROWSER_PATH" not in os.environ:
         if CHROMIUM.exists():
             folder = Path(tempfile.gettempdir()) / f"planner-export-{os.getuid()}"
             folder.mkdir(mode=0o700, exist_ok=True)
             os.environ["BROWSER_PATH"] = str(_browser_wrapper(folder))
         elif not (shutil.which("chromium") or shutil.which("google-chrome")):
-            raise ExportUnavailable("PNG export needs Chromium (Debian package 'chromium')")
+            raise PngUnavailableError("PNG export needs Chromium (Debian package 'chromium')")
     kaleido.start_sync_server(mathjax=False, silence_warnings=True)
     _server_started = True
+
+
+def stop_png_server() -> None:
+    """Stop the export browser (started on first PNG export); the next export starts it again."""
+    global _server_started
+    with _lock:
+        if _server_started:
+            import kaleido
+
+            kaleido.stop_sync_server(silence_warnings=True)
+            _server_started = False
 
 
 def figure_png(figure: go.Figure, *, width: int | None = None, height: int | None = None) -> bytes:

@@ -37,15 +37,13 @@ class Folder:
     path: Path
 
 
-def folder_problem(path: Path, what: str) -> InputError:
-    return InputError([Problem(str(path), "(folder)", f"{what} is not a readable folder")])
-
-
 def scenario_files(folder: Path) -> list[Path]:
     """The scenario files of a folder, sorted by name (hidden and temporary files skipped)."""
     try:
         return sorted(
-            p for p in folder.iterdir() if p.suffix == SUFFIX and p.is_file() and not p.name.startswith(".")
+            p
+            for p in folder.iterdir()
+            if p.suffix == SUFFIX and p.is_file() and not p.name.startswith(".")
         )
     except OSError:
         return []
@@ -102,7 +100,9 @@ def read_upload(contents: str, filename: str | None) -> Scenario:
     try:
         raw = base64.b64decode(payload, validate=True)
     except (binascii.Error, ValueError):
-        raise InputError([Problem(source, "(file)", "could not be read (not a file upload)")]) from None
+        raise InputError(
+            [Problem(source, "(file)", "could not be read (not a file upload)")]
+        ) from None
     if len(raw) > MAX_SCENARIO_BYTES:
         raise InputError([Problem(source, "(file)", f"larger than {MAX_SCENARIO_BYTES} bytes")])
     try:

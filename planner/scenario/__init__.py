@@ -19,6 +19,15 @@ from planner.scenario.schedule_blocks import (
     Schedule,
     StaircaseSchedule,
 )
+from planner.scenario.uncertainty import (
+    LoadVariability,
+    LognormalPrior,
+    NormalPrior,
+    Prior,
+    TriangularPrior,
+    Uncertainty,
+    UniformPrior,
+)
 
 
 def json_schema() -> dict:
@@ -31,16 +40,23 @@ __all__ = [
     "Control",
     "Costs",
     "FormulaModel",
+    "LoadVariability",
+    "LognormalPrior",
     "Measure",
+    "NormalPrior",
     "OvershootSchedule",
     "ParameterPulse",
     "PathSchedule",
+    "Prior",
     "ScaleState",
     "Scenario",
     "Schedule",
     "Simulation",
     "StaircaseSchedule",
     "Target",
+    "TriangularPrior",
+    "Uncertainty",
+    "UniformPrior",
     "json_schema",
     "load_scenario",
     "parse_scenario",

@@ -14,9 +14,17 @@ from pydantic import ValidationError
 from planner.errors import InputError, Problem
 from planner.scenario.root import Scenario
 from planner.scenario.schedule_blocks import ACTION_KINDS, SCHEDULE_KINDS
+from planner.scenario.uncertainty import PRIOR_KINDS
 
 MAX_SCENARIO_BYTES = 1_000_000
-_TAGS = {"recycling", "recycling-sediment", "formula", *SCHEDULE_KINDS, *ACTION_KINDS}
+_TAGS = {
+    "recycling",
+    "recycling-sediment",
+    "formula",
+    *SCHEDULE_KINDS,
+    *ACTION_KINDS,
+    *PRIOR_KINDS,
+}
 _FRIENDLY = {
     "missing": "required field is missing",
     "extra_forbidden": "unknown field; check its spelling (see `planner schema`)",

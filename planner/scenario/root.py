@@ -19,6 +19,7 @@ from planner.scenario.schedule_blocks import (
     Schedule,
     StaircaseSchedule,
 )
+from planner.scenario.uncertainty import Uncertainty, prior_problems
 
 
 def schedule_control_values(schedule: Schedule) -> list[tuple[Loc, float]]:
@@ -44,6 +45,7 @@ class Scenario(Strict):
     simulation: Simulation = Simulation()
     schedules: list[Schedule] = []
     costs: Costs | None = None
+    uncertainty: Uncertainty | None = None
     state_units: dict[str, str] = Field(
         default={}, description="Unit of each state variable, for axes and tables."
     )
@@ -101,6 +103,18 @@ class Scenario(Strict):
                     yield ((*where, *loc), f"control value {value:g} {why}")
             for a, action in enumerate(schedule.actions):
                 yield from self._action_problems((*where, "actions", a), action)
+        if self.uncertainty is not None:
+            yield from prior_problems(
+                self.uncertainty,
+                parameters=parameters,
+                control=control,
+                variables=variables,
+                physical_lower=self._physical_lower,
+            )
+
+    def _physical_lower(self, name: str) -> tuple[float, bool] | None:
+        info = self.spec.parameter_info(name)
+        return None if info.lower is None else (float(info.lower), info.strict)
 
     def _action_problems(self, where: Loc, action: ScaleState | ParameterPulse):
         if isinstance(action, ScaleState):

@@ -1,13 +1,17 @@
 """Helpers shared by the views: the scenario and comparison behind the working store, number
-formatting for display, and an empty figure to show before there are results."""
+formatting for display, an empty figure to show before there are results, and the rows of
+download buttons under each figure and table (handled by the export view)."""
 
 from __future__ import annotations
 
 import plotly.graph_objects as go
+from dash import dcc, html
 
 from planner.outcomes import Comparison
 from planner.scenario import Scenario
-from webapp import compute
+from webapp import compute, ids
+
+FORMAT_LABELS = {"png": "PNG image", "html": "HTML page", "csv": "CSV table"}
 
 
 def working_scenario(working: dict | None) -> Scenario | None:
@@ -54,11 +58,32 @@ def money(value: float | None, currency: str = "") -> str:
     return f"{value:,.0f} {currency}".strip()
 
 
-def years(value: float | None) -> str:
-    return "-" if value is None else f"year {value:.1f}"
-
-
 def amount(value: float | None, unit: str = "") -> str:
     if value is None:
-        return "none"
+        return "none found"
     return f"{value:.3g} {unit}".strip()
+
+
+def export_buttons(what: str, label: str, formats=("png", "html")) -> html.Div:
+    """A row of download buttons for one figure or table, with its own message line."""
+    return html.Div(
+        [
+            html.Span(f"Download {label}:", className="field-label"),
+            *(
+                html.Button(
+                    FORMAT_LABELS[f], id=ids.export_button(what, f), className="button small"
+                )
+                for f in formats
+            ),
+            html.Span(id=ids.export_message(what), className="export-message", role="status"),
+        ],
+        className="export-row",
+    )
+
+
+def figure_panel(graph_id: str, what: str, placeholder: str, label: str = "this figure") -> list:
+    """A figure and its row of download buttons."""
+    graph = dcc.Graph(
+        id=graph_id, figure=placeholder_figure(placeholder), config={"displaylogo": False}
+    )
+    return [graph, export_buttons(what, label)]

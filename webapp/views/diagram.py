@@ -13,13 +13,20 @@ from planner.report import diagram_text
 from planner.scenario import Scenario
 from webapp import compute, ids
 from webapp.settings import Settings
-from webapp.views.common import amount, placeholder_figure, working_comparison, working_scenario
-from webapp.views.export import export_buttons
+from webapp.views.common import (
+    amount,
+    figure_panel,
+    placeholder_figure,
+    working_comparison,
+    working_scenario,
+)
 
 CLASSIFICATION = {
     "reversible": "Reversible: one stable state at every value in range, no hysteresis.",
     "hysteretic": "Hysteretic: two stable states over a window of values (shaded).",
-    "irreversible": "Irreversible: the undesired state persists even at the lowest achievable value.",
+    "irreversible": (
+        "Irreversible: the undesired state persists even at the lowest achievable value."
+    ),
 }
 
 
@@ -31,7 +38,9 @@ def summary_layout() -> html.Div:
             html.Div(
                 [
                     html.Span("Show schedules:", className="field-label"),
-                    dcc.Checklist(id=ids.SHOWN, options=[], value=[], inline=True, className="checklist"),
+                    dcc.Checklist(
+                        id=ids.SHOWN, options=[], value=[], inline=True, className="checklist"
+                    ),
                 ],
                 className="shown-row",
             ),
@@ -40,12 +49,7 @@ def summary_layout() -> html.Div:
 
 
 def layout() -> html.Div:
-    return html.Div(
-        [
-            dcc.Graph(id=ids.DIAGRAM_GRAPH, figure=placeholder_figure("Choose a scenario"), config={"displaylogo": False}),
-            export_buttons("diagram", "this diagram"),
-        ]
-    )
+    return html.Div(figure_panel(ids.DIAGRAM_GRAPH, "diagram", "Choose a scenario", "this diagram"))
 
 
 def diagram_figure(scenario: Scenario, comparison: Comparison | None, shown: list[str] | None):
@@ -57,7 +61,8 @@ def diagram_figure(scenario: Scenario, comparison: Comparison | None, shown: lis
     if shown is not None:
         hidden = {t.name for t in trajectories} - set(shown)
         figure.for_each_trace(
-            lambda trace: trace.update(visible="legendonly"), selector=lambda t: t.legendgroup in hidden
+            lambda trace: trace.update(visible="legendonly"),
+            selector=lambda t: t.legendgroup in hidden,
         )
     figure.update_layout(uirevision=scenario.name, height=560)
     return figure
@@ -68,7 +73,9 @@ def summary(scenario: Scenario) -> html.Div:
     diagram, standing = compute.diagram_of(scenario)
     unit = scenario.control.unit
     name = scenario.control.label or scenario.control.parameter
-    lines = [html.P(html.Strong(CLASSIFICATION.get(diagram.classification, diagram.classification)))]
+    lines = [
+        html.P(html.Strong(CLASSIFICATION.get(diagram.classification, diagram.classification)))
+    ]
     lines.append(
         html.P(
             f"Recovery threshold {amount(diagram.recovery_threshold, unit)}; "

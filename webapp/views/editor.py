@@ -9,6 +9,7 @@ schedules need computing at once, the work goes to a background worker with a pr
 
 from __future__ import annotations
 
+import json
 import time
 
 from dash import Input, Output, State, ctx, dcc, html, no_update
@@ -17,11 +18,11 @@ from planner.errors import InputError
 from planner.report import verdict_text
 from webapp import compute, drafts, ids
 from webapp.settings import Settings
-from webapp.views.common import money, working_scenario
+from webapp.views.common import money, working_comparison, working_scenario
 
 FAST_LIMIT = 8  # schedules computed within one edit; more go to the background worker
 WIDE_STYLES = ("text", "points", "list")
-SHOWN = {"display": "block"}
+SHOWN = {"display": "flex"}
 HIDDEN = {"display": "none"}
 
 
@@ -41,7 +42,11 @@ def layout() -> html.Section:
             html.Div(id=ids.RECOMPUTE_STATUS, className="status-line", **{"aria-live": "polite"}),
             html.Div(
                 [
-                    html.Label("Comparing schedules", htmlFor=ids.COMPARE_PROGRESS),
+                    html.Label(
+                        "Comparing schedules",
+                        htmlFor=ids.COMPARE_PROGRESS,
+                        className="progress-label",
+                    ),
                     html.Progress(id=ids.COMPARE_PROGRESS, value="0", max="100"),
                     html.Span(id=ids.COMPARE_PROGRESS_TEXT, className="progress-text"),
                 ],
@@ -52,7 +57,9 @@ def layout() -> html.Section:
             html.Div(id=ids.EDITOR, className="schedule-list"),
             html.Div(
                 [
-                    html.Label("New schedule of kind", htmlFor=ids.ADD_KIND, className="field-label"),
+                    html.Label(
+                        "New schedule of kind", htmlFor=ids.ADD_KIND, className="field-label"
+                    ),
                     dcc.Dropdown(
                         id=ids.ADD_KIND,
                         options=[{"label": k, "value": k} for k in drafts.SCHEDULE_KINDS],
@@ -79,7 +86,9 @@ def _unit_suffix(style: str, data: dict) -> str:
     return ""
 
 
-def _field_row(ident: dict, message_id: dict, label: str, value: str, unit: str, wide: bool) -> html.Div:
+def _field_row(
+    ident: dict, message_id: dict, label: str, value: str, unit: str, wide: bool
+) -> html.Div:
     return html.Div(
         [
             html.Label(label, htmlFor=_dom_id(ident), className="field-label"),
@@ -105,8 +114,6 @@ def _field_row(ident: dict, message_id: dict, label: str, value: str, unit: str,
 
 def _dom_id(ident: dict) -> str:
     # Dash renders a dict id as its JSON with sorted keys; labels point at it.
-    import json
-
     return json.dumps(ident, sort_keys=True, separators=(",", ":"))
 
 
@@ -118,7 +125,9 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
     for key, label, style in drafts.schedule_fields(kind):
         unit = _unit_suffix(style, data)
         if style == "points":
-            label = f"Points: year, {control.get('label') or control.get('parameter', 'value')}; ..."
+            label = (
+                f"Points: year, {control.get('label') or control.get('parameter', 'value')}; ..."
+            )
             unit = f"(years, {control.get('unit', '')})" if control.get("unit") else ""
         rows.append(
             _field_row(
@@ -147,7 +156,9 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
         actions.append(
             html.Fieldset(
                 [
-                    html.Legend(f"Action {a + 1}: {drafts.ACTION_LABELS.get(action_kind, action_kind)}"),
+                    html.Legend(
+                        f"Action {a + 1}: {drafts.ACTION_LABELS.get(action_kind, action_kind)}"
+                    ),
                     html.Div(fields, className="fields-grid"),
                 ],
                 className="action-box",
@@ -160,7 +171,9 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
                     html.Span(f"{index + 1}", className="card-number"),
                     html.Span(drafts.KIND_LABELS.get(kind, kind), className="card-kind"),
                     html.Button(
-                        "Duplicate", id=ids.schedule_button(index, "duplicate"), className="button small"
+                        "Duplicate",
+                        id=ids.schedule_button(index, "duplicate"),
+                        className="button small",
                     ),
                     html.Button(
                         "Delete", id=ids.schedule_button(index, "delete"), className="button small"
@@ -189,7 +202,20 @@ def render(data: dict) -> list:
 # callbacks as plain functions (the registered wrappers only add ``ctx.triggered_id``)
 
 
-def restructure(loaded, _add, _buttons, add_kind, draft, values, value_ids, action_values, action_ids, *, trigger=None, trigger_value=None):
+def restructure(
+    loaded,
+    _add,
+    _buttons,
+    add_kind,
+    draft,
+    values,
+    value_ids,
+    action_values,
+    action_ids,
+    *,
+    trigger=None,
+    trigger_value=None,
+):
     """New scenario, or add / duplicate / delete -> (editor cards, draft store)."""
     if trigger == ids.LOADED or trigger is None:
         if not loaded:
@@ -200,7 +226,9 @@ def restructure(loaded, _add, _buttons, add_kind, draft, values, value_ids, acti
     if not draft or not trigger_value:
         return no_update, no_update  # a button just drawn (n_clicks None) is not a click
     data = drafts.merge_fields(
-        draft["data"], list(zip(value_ids, values, strict=True)), list(zip(action_ids, action_values, strict=True))
+        draft["data"],
+        list(zip(value_ids, values, strict=True)),
+        list(zip(action_ids, action_values, strict=True)),
     )
     if trigger == ids.ADD_BUTTON:
         data = drafts.add(data, add_kind or "overshoot")
@@ -217,32 +245,58 @@ def restructure(loaded, _add, _buttons, add_kind, draft, values, value_ids, acti
     return render(data), {**draft, "data": data}
 
 
-def recompute(values, action_values, draft, value_ids, action_ids, message_ids, action_message_ids, schedule_message_ids, working):
+def recompute(
+    values,
+    action_values,
+    draft,
+    value_ids,
+    action_ids,
+    message_ids,
+    action_message_ids,
+    schedule_message_ids,
+    working,
+):
     """Every edit -> (field messages, action messages, schedule messages, field classes, action
     field classes, working store, status line, background job)."""
     started = time.perf_counter()
-    blank = ([""] * len(message_ids), [""] * len(action_message_ids), [""] * len(schedule_message_ids))
+    blank = (
+        [""] * len(message_ids),
+        [""] * len(action_message_ids),
+        [""] * len(schedule_message_ids),
+    )
     classes = (["field-input"] * len(value_ids), ["field-input"] * len(action_ids))
     if not draft:
         return (*blank, *classes, no_update, "", no_update)
     data = drafts.merge_fields(
-        draft["data"], list(zip(value_ids, values, strict=True)), list(zip(action_ids, action_values, strict=True))
+        draft["data"],
+        list(zip(value_ids, values, strict=True)),
+        list(zip(action_ids, action_values, strict=True)),
     )
     source = draft.get("source", "scenario")
     try:
         scenario = compute.scenario_of(data, source)
     except InputError as error:
-        return _problems(error, data, message_ids, action_message_ids, schedule_message_ids, value_ids, action_ids, working, source)
+        return _problems(
+            error,
+            data,
+            message_ids,
+            action_message_ids,
+            schedule_message_ids,
+            value_ids,
+            action_ids,
+            working,
+        )
     todo = compute.missing(scenario)
-    key = compute.scenario_key(compute.dump(scenario))
-    new = {"source": source, "data": compute.dump(scenario), "key": key, "stale": False}
+    valid = compute.dump(scenario)
+    key = compute.scenario_key(valid)
+    new = {"source": source, "data": valid, "key": key, "stale": False}
     if len(todo) > FAST_LIMIT:
         new["complete"] = False
         status = html.Span(
             f"Computing {len(todo)} schedules in the background; results appear when done.",
             className="status busy",
         )
-        return (*blank, *classes, new, status, {"key": key, "data": new["data"]})
+        return (*blank, *classes, new, status, {"key": key, "data": valid})
     compute.comparison_of(scenario)
     new["complete"] = True
     elapsed = time.perf_counter() - started
@@ -251,7 +305,18 @@ def recompute(values, action_values, draft, value_ids, action_ids, message_ids, 
     return (*blank, *classes, new, html.Span(text, className="status ok"), no_update)
 
 
-def _problems(error, data, message_ids, action_message_ids, schedule_message_ids, value_ids, action_ids, working, source):
+def _problems(
+    error,
+    data,
+    message_ids,
+    action_message_ids,
+    schedule_message_ids,
+    value_ids,
+    action_ids,
+    working,
+):
+    """Each problem beside its field (or its schedule, or in the status line); the working
+    store keeps the last valid scenario, marked stale."""
     fields: dict[tuple, list[str]] = {}
     actions: dict[tuple, list[str]] = {}
     schedules: dict[int, list[str]] = {}
@@ -269,11 +334,13 @@ def _problems(error, data, message_ids, action_message_ids, schedule_message_ids
             general.append(text)
     field_messages = ["; ".join(fields.get((m["index"], m["field"]), [])) for m in message_ids]
     action_messages = [
-        "; ".join(actions.get((m["index"], m["action"], m["field"]), [])) for m in action_message_ids
+        "; ".join(actions.get((m["index"], m["action"], m["field"]), []))
+        for m in action_message_ids
     ]
     schedule_messages = ["; ".join(schedules.get(m["index"], [])) for m in schedule_message_ids]
     field_classes = [
-        "field-input invalid" if (v["index"], v["field"]) in fields else "field-input" for v in value_ids
+        "field-input invalid" if (v["index"], v["field"]) in fields else "field-input"
+        for v in value_ids
     ]
     action_classes = [
         "field-input invalid" if (v["index"], v["action"], v["field"]) in actions else "field-input"
@@ -290,15 +357,25 @@ def _problems(error, data, message_ids, action_message_ids, schedule_message_ids
         role="alert",
     )
     kept = {**working, "stale": True} if working else no_update
-    return (field_messages, action_messages, schedule_messages, field_classes, action_classes, kept, status, no_update)
+    return (
+        field_messages,
+        action_messages,
+        schedule_messages,
+        field_classes,
+        action_classes,
+        kept,
+        status,
+        no_update,
+    )
 
 
 def result_lines(working, _ready, result_ids):
-    """The verdict and cost line under each schedule, from cached results only."""
+    """The verdict and cost line under each schedule ("computing..." while the background
+    worker has them)."""
     scenario = working_scenario(working)
     if scenario is None:
         return [""] * len(result_ids)
-    comparison = compute.cached_comparison(scenario)
+    comparison = working_comparison(working)
     if comparison is None:
         return [html.Span("computing...", className="status busy")] * len(result_ids)
     outcomes = comparison.outcomes
@@ -308,7 +385,9 @@ def result_lines(working, _ready, result_ids):
     for ident in result_ids:
         i = ident["index"]
         if i >= len(outcomes) or (stale and len(outcomes) != len(result_ids)):
-            lines.append(html.Span("not computed yet: fix the values above", className="status problem"))
+            lines.append(
+                html.Span("not computed yet: fix the values above", className="status problem")
+            )
             continue
         outcome = outcomes[i]
         parts = [
@@ -319,11 +398,15 @@ def result_lines(working, _ready, result_ids):
                 else "target not met by the horizon"
             ),
             html.Span(f"total cost {money(outcome.cost.total, currency)}", className="cost-total"),
-            html.Span(f"present value {money(outcome.cost.present_value, currency)}", className="cost-pv"),
+            html.Span(
+                f"present value {money(outcome.cost.present_value, currency)}", className="cost-pv"
+            ),
         ]
         body = [html.Div(parts, className="result-parts")]
         if outcome.infeasible is not None:
-            body.append(html.Div(f"Infeasible: {outcome.infeasible.message}", className="infeasible"))
+            body.append(
+                html.Div(f"Infeasible: {outcome.infeasible.message}", className="infeasible")
+            )
         if stale:
             body.append(html.Div("(for the last valid values)", className="hint"))
         state = "recovered" if outcome.recovered else "not-recovered"
@@ -336,7 +419,7 @@ def compare_in_background(set_progress, pending):
     if not pending:
         return no_update, no_update
     scenario = compute.scenario_of(pending["data"])
-    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), m)))
+    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
     comparison = compute.comparison_of(scenario, progress=report, persist=True)
     text = f"{len(comparison.outcomes)} schedules compared in the background."
     return {"key": pending["key"], "finished": time.time()}, html.Span(text, className="status ok")
@@ -346,12 +429,23 @@ def compare_in_background(set_progress, pending):
 
 
 def register(callback, settings: Settings) -> None:
-    def on_structure(loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids):
+    def on_structure(
+        loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids
+    ):
         trigger = ctx.triggered_id
         value = ctx.triggered[0]["value"] if ctx.triggered else None
         return restructure(
-            loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids,
-            trigger=trigger, trigger_value=value,
+            loaded,
+            add,
+            buttons,
+            add_kind,
+            draft,
+            values,
+            value_ids,
+            action_values,
+            action_ids,
+            trigger=trigger,
+            trigger_value=value,
         )
 
     callback(
@@ -401,7 +495,10 @@ def register(callback, settings: Settings) -> None:
         Input(ids.PENDING, "data"),
         background=True,
         interval=500,
-        progress=[Output(ids.COMPARE_PROGRESS, "value"), Output(ids.COMPARE_PROGRESS_TEXT, "children")],
+        progress=[
+            Output(ids.COMPARE_PROGRESS, "value"),
+            Output(ids.COMPARE_PROGRESS_TEXT, "children"),
+        ],
         progress_default=["0", ""],
         running=[(Output(ids.COMPARE_PROGRESS_BOX, "style"), SHOWN, HIDDEN)],
         prevent_initial_call=True,

@@ -55,7 +55,9 @@ def layout(options: list[dict], value: str | None) -> html.Section:
             html.Div(id=ids.LOAD_MESSAGE, className="message-area", **{"aria-live": "polite"}),
             html.Div(
                 [
-                    html.Label("Save as (new file name)", htmlFor=ids.SAVE_NAME, className="field-label"),
+                    html.Label(
+                        "Save as (new file name)", htmlFor=ids.SAVE_NAME, className="field-label"
+                    ),
                     html.Div(
                         [
                             dcc.Input(
@@ -72,14 +74,18 @@ def layout(options: list[dict], value: str | None) -> html.Section:
                     html.Div(
                         [
                             html.Span(id=ids.SAVE_CONFIRM_TEXT),
-                            html.Button("Overwrite", id=ids.SAVE_OVERWRITE, className="button danger"),
+                            html.Button(
+                                "Overwrite", id=ids.SAVE_OVERWRITE, className="button danger"
+                            ),
                             html.Button("Cancel", id=ids.SAVE_CANCEL, className="button"),
                         ],
                         id=ids.SAVE_CONFIRM,
                         className="confirm-box",
                         style=HIDDEN,
                     ),
-                    html.Div(id=ids.SAVE_MESSAGE, className="message-area", **{"aria-live": "polite"}),
+                    html.Div(
+                        id=ids.SAVE_MESSAGE, className="message-area", **{"aria-live": "polite"}
+                    ),
                 ],
                 className="save-block",
             ),
@@ -89,7 +95,8 @@ def layout(options: list[dict], value: str | None) -> html.Section:
 
 
 def load_scenario_choice(choice, upload, upload_name, loaded, *, settings: Settings, trigger=None):
-    """Pick or upload -> (loaded store, message). Invalid input keeps the current scenario."""
+    """Pick or upload -> (loaded store, message, upload contents). Invalid input keeps the
+    current scenario; ``serial`` makes every load a new value, so the editor always redraws."""
     serial = (loaded or {}).get("serial", 0) + 1
     if trigger == ids.UPLOAD:
         if not upload:
@@ -98,20 +105,26 @@ def load_scenario_choice(choice, upload, upload_name, loaded, *, settings: Setti
             scenario = files.read_upload(upload, upload_name)
         except InputError as error:
             message = problem_list(
-                error, f"{upload_name or 'The file'} was not loaded; the scenario shown is unchanged."
+                error,
+                f"{upload_name or 'The file'} was not loaded; the scenario shown is unchanged.",
             )
             return no_update, message, None
         source = upload_name or "uploaded file"
-        store = {"source": source, "data": compute.dump(scenario), "serial": serial, "origin": "upload"}
-        text = f"Loaded the uploaded file {source}: {len(scenario.schedules)} schedules. Not saved yet."
+        store = {"source": source, "data": compute.dump(scenario), "serial": serial}
+        count = len(scenario.schedules)
+        text = f"Loaded the uploaded file {source}: {count} schedules. Not saved yet."
         return store, html.Div(text, className="message ok"), None
     if not choice:
         return no_update, no_update, no_update
     try:
         name, scenario = files.read_choice(list(settings.folders), choice)
     except InputError as error:
-        return no_update, problem_list(error, "That file was not loaded; the scenario shown is unchanged."), no_update
-    store = {"source": name, "data": compute.dump(scenario), "serial": serial, "origin": "file"}
+        return (
+            no_update,
+            problem_list(error, "That file was not loaded; the scenario shown is unchanged."),
+            no_update,
+        )
+    store = {"source": name, "data": compute.dump(scenario), "serial": serial}
     text = f"Loaded {name}: {len(scenario.schedules)} schedules."
     return store, html.Div(text, className="message ok"), no_update
 
@@ -122,17 +135,19 @@ def save_as(name_text, working, pending, *, settings: Settings, trigger=None):
     An existing name is never replaced at once: the user is asked, and only "Overwrite" calls
     the planner's save with ``overwrite=True``.
     """
-    unchanged = (no_update,) * 6
-    folders = list(settings.folders)
+
+    def not_saved(message):
+        return message, HIDDEN, "", None, no_update, no_update
+
     if trigger == ids.SAVE_CANCEL:
-        return html.Div("Not saved.", className="message"), HIDDEN, "", None, no_update, no_update
+        return not_saved(html.Div("Not saved.", className="message"))
     if trigger not in (ids.SAVE_BUTTON, ids.SAVE_OVERWRITE):
-        return unchanged
+        return (no_update,) * 6
     if not working or not working.get("data"):
-        return html.Div("Nothing to save yet.", className="message problem"), HIDDEN, "", None, no_update, no_update
+        return not_saved(html.Div("Nothing to save yet.", className="message problem"))
     if working.get("stale"):
         text = "Fix the fields marked in the schedule editor first; nothing was written."
-        return html.Div(text, className="message problem"), HIDDEN, "", None, no_update, no_update
+        return not_saved(html.Div(text, className="message problem"))
     overwrite = trigger == ids.SAVE_OVERWRITE
     try:
         name = pending if overwrite and pending else files.save_name(name_text)
@@ -143,8 +158,8 @@ def save_as(name_text, working, pending, *, settings: Settings, trigger=None):
             return "", SHOWN, text, name, no_update, no_update
         path = files.save(scenario, settings.save_folder, name, overwrite=overwrite)
     except InputError as error:
-        return problem_list(error, "Not saved."), HIDDEN, "", None, no_update, no_update
-    options = files.picker_options(folders)
+        return not_saved(problem_list(error, "Not saved."))
+    options = files.picker_options(list(settings.folders))
     value = f"{settings.save_index}/{path.name}"
     text = f"Saved {path.name} in {path.parent}; it is now the scenario shown."
     return html.Div(text, className="message ok"), HIDDEN, "", None, options, value

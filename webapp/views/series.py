@@ -3,23 +3,17 @@ with the thresholds and the target line (``planner.figures.time_series_figure``)
 
 from __future__ import annotations
 
-from dash import Input, Output, dcc, html, no_update
+from dash import Input, Output, html, no_update
 
 from planner.figures import time_series_figure
 from planner.outcomes import Comparison
 from webapp import ids
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure, working_comparison
-from webapp.views.export import export_buttons
+from webapp.views.common import figure_panel, placeholder_figure, working_comparison
 
 
 def layout() -> html.Div:
-    return html.Div(
-        [
-            dcc.Graph(id=ids.SERIES_GRAPH, figure=placeholder_figure("Choose a scenario"), config={"displaylogo": False}),
-            export_buttons("series", "this figure"),
-        ]
-    )
+    return html.Div(figure_panel(ids.SERIES_GRAPH, "series", "Choose a scenario"))
 
 
 def series_figure(comparison: Comparison, shown: list[str] | None):

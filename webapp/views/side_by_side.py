@@ -9,8 +9,12 @@ from planner.figures import small_multiples_figure
 from planner.outcomes import Comparison
 from webapp import ids
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure, working_comparison, working_scenario
-from webapp.views.export import export_buttons
+from webapp.views.common import (
+    figure_panel,
+    placeholder_figure,
+    working_comparison,
+    working_scenario,
+)
 
 FEWEST, MOST = 2, 4
 
@@ -18,11 +22,14 @@ FEWEST, MOST = 2, 4
 def layout() -> html.Div:
     return html.Div(
         [
-            html.Label("Schedules to set side by side (two to four)", htmlFor=ids.SIDE_CHOICE, className="field-label"),
+            html.Label(
+                "Schedules to set side by side (two to four)",
+                htmlFor=ids.SIDE_CHOICE,
+                className="field-label",
+            ),
             dcc.Dropdown(id=ids.SIDE_CHOICE, options=[], value=[], multi=True),
             html.Div(id=ids.SIDE_MESSAGE, className="message-area", role="alert"),
-            dcc.Graph(id=ids.SIDE_GRAPH, figure=placeholder_figure("Choose two to four schedules"), config={"displaylogo": False}),
-            export_buttons("side", "this figure"),
+            *figure_panel(ids.SIDE_GRAPH, "side", "Choose two to four schedules"),
         ]
     )
 
@@ -36,7 +43,7 @@ def choice_problem(chosen: list[str] | None) -> str | None:
 
 def side_figure(comparison: Comparison, chosen: list[str]):
     figure = small_multiples_figure(comparison, chosen)
-    figure.update_layout(uirevision=comparison.scenario.name)
+    figure.update_layout(uirevision=comparison.scenario.name, height=520, margin={"t": 100})
     return figure
 
 

@@ -10,8 +10,7 @@ from planner.figures import sweep_figure
 from planner.report import sweep_text
 from webapp import compute, ids
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure
-from webapp.views.export import export_buttons
+from webapp.views.common import figure_panel
 
 SHOWN = {"display": "flex"}
 HIDDEN = {"display": "none"}
@@ -28,8 +27,16 @@ def layout() -> html.Div:
             ),
             html.Div(
                 [
-                    html.Label("Step (blank: range / 200)", htmlFor=ids.SWEEP_STEP, className="field-label"),
-                    dcc.Input(id=ids.SWEEP_STEP, type="text", value="", className="text-input short", debounce=False),
+                    html.Label(
+                        "Step (blank: range / 200)", htmlFor=ids.SWEEP_STEP, className="field-label"
+                    ),
+                    dcc.Input(
+                        id=ids.SWEEP_STEP,
+                        type="text",
+                        value="",
+                        className="text-input short",
+                        debounce=False,
+                    ),
                     html.Button("Run the sweep", id=ids.SWEEP_RUN, className="button primary"),
                     html.Button("Cancel", id=ids.SWEEP_CANCEL, className="button", disabled=True),
                 ],
@@ -37,6 +44,9 @@ def layout() -> html.Div:
             ),
             html.Div(
                 [
+                    html.Label(
+                        "Sweep progress", htmlFor=ids.SWEEP_PROGRESS, className="progress-label"
+                    ),
                     html.Progress(id=ids.SWEEP_PROGRESS, value="0", max="100"),
                     html.Span(id=ids.SWEEP_PROGRESS_TEXT, className="progress-text"),
                 ],
@@ -45,9 +55,8 @@ def layout() -> html.Div:
                 style=HIDDEN,
             ),
             html.Div(id=ids.SWEEP_MESSAGE, className="message-area", role="alert"),
-            dcc.Graph(id=ids.SWEEP_GRAPH, figure=placeholder_figure("Run the sweep to see the loop"), config={"displaylogo": False}),
+            *figure_panel(ids.SWEEP_GRAPH, "sweep", "Run the sweep to see the loop"),
             html.Pre(id=ids.SWEEP_SUMMARY, className="sweep-summary"),
-            export_buttons("sweep", "this figure"),
         ]
     )
 
@@ -87,10 +96,11 @@ def run_sweep(set_progress, _clicks, working, step_text):
         return no_update, no_update, "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
     from planner.sweep import sweep_for
 
-    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), m)))
+    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
     sweep = sweep_for(scenario, step=step, progress=report)
     diagram, _ = compute.diagram_of(scenario)
     figure = sweep_figure(scenario, sweep, diagram)
+    figure.update_layout(height=560)
     return figure, sweep_text(scenario, sweep), ""
 
 

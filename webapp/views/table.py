@@ -8,8 +8,7 @@ from dash import Input, Output, State, ctx, html, no_update
 from planner.outcomes import Comparison
 from webapp import ids
 from webapp.settings import Settings
-from webapp.views.common import working_comparison
-from webapp.views.export import export_buttons
+from webapp.views.common import export_buttons, working_comparison
 
 RECOVERED = "Recovered"
 TEXT_COLUMNS = ("Schedule", "Verdict", "Why infeasible")
@@ -24,7 +23,12 @@ def table_rows(comparison: Comparison) -> tuple[list[str], list[list[object]]]:
     scenario = comparison.scenario
     unit = scenario.control.unit
     currency = scenario.costs.currency if scenario.costs is not None else ""
-    units = {"Lowest control": unit, "Overshoot depth": unit, "Total cost": currency, "Present value": currency}
+    units = {
+        "Lowest control": unit,
+        "Overshoot depth": unit,
+        "Total cost": currency,
+        "Present value": currency,
+    }
     named = [f"{h} ({units[h]})" if units.get(h) else h for h in header]
     at = header.index("Verdict") + 1
     named.insert(at, RECOVERED)
@@ -46,7 +50,9 @@ def cell_text(column: str, value: object) -> str:
     return str(value)
 
 
-def sorted_rows(rows: list[list[object]], column: int | None, descending: bool) -> list[list[object]]:
+def sorted_rows(
+    rows: list[list[object]], column: int | None, descending: bool
+) -> list[list[object]]:
     """Rows in the order asked for; empty cells always last."""
     if column is None:
         return rows
@@ -61,10 +67,18 @@ def sorted_rows(rows: list[list[object]], column: int | None, descending: bool) 
 
     present = sorted(rows, key=key)
     if descending:
-        text = [r for r in present if not isinstance(r[column], int | float) and r[column] not in (None, "")]
+        text = [
+            r
+            for r in present
+            if not isinstance(r[column], int | float) and r[column] not in (None, "")
+        ]
         if text:  # text keys sort ascending above; flip them, keep empties last
             empty = [r for r in present if r[column] in (None, "")]
-            present = list(reversed(text)) + [r for r in present if isinstance(r[column], int | float)] + empty
+            present = (
+                list(reversed(text))
+                + [r for r in present if isinstance(r[column], int | float)]
+                + empty
+            )
     return present
 
 
@@ -83,7 +97,12 @@ def table(comparison: Comparison | None, sort: dict | None) -> list:
             mark, aria = (" \u25bc", "descending") if descending else (" \u25b2", "ascending")
         head.append(
             html.Th(
-                html.Button(name + mark, id=ids.sort_button(name), className="sort-button", title="Sort by this column"),
+                html.Button(
+                    name + mark,
+                    id=ids.sort_button(name),
+                    className="sort-button",
+                    title="Sort by this column",
+                ),
                 className="text" if name in TEXT_COLUMNS else "number",
                 **{"aria-sort": aria, "data-column": name},
             )
@@ -91,11 +110,21 @@ def table(comparison: Comparison | None, sort: dict | None) -> list:
     body = []
     for row in sorted_rows(rows, column, descending):
         cells = [
-            html.Td(cell_text(name, value), className="text" if name in TEXT_COLUMNS else "number", **{"data-column": name})
+            html.Td(
+                cell_text(name, value),
+                className="text" if name in TEXT_COLUMNS else "number",
+                **{"data-column": name},
+            )
             for name, value in zip(header, row, strict=True)
         ]
         feasible = row[header.index("Feasible")] == "yes"
-        body.append(html.Tr(cells, className="" if feasible else "infeasible-row", **{"data-schedule": str(row[0])}))
+        body.append(
+            html.Tr(
+                cells,
+                className="" if feasible else "infeasible-row",
+                **{"data-schedule": str(row[0])},
+            )
+        )
     return [html.Thead(html.Tr(head)), html.Tbody(body)]
 
 

@@ -1,0 +1,1218 @@
+"""Fit a scenario's model to a monitoring record: parameters, thresholds and their intervals.
+
+Method (trajectory matching, nonlinear least squares; e.g. Bates & Watts 1988, Nonlinear
+Regression Analysis and Its Applications, ch. 2):
+
+- The recorded yearly loads become a piecewise-linear control path (linear interpolation between
+  the rows that have a load, held before the first and after the last); the model is integrated
+  under it by :func:`planner.simulate.integrate_path` (the one integrator) from a fitted initial
+  state at the first time of the record. Each observed value is compared with the model state
+  at its time (an annual value is compared with the state at its time stamp).
+- Fitted quantities: the chosen parameters and the initial state. Parameters with a
+  non-negative physical lower bound (rates, half-saturation levels, steepness) are fitted as
+  logarithms, which keeps them positive and makes their intervals multiplicative; the initial
+  state of a model whose state is an amount is fitted as a logarithm too. Others are fitted as is.
+- Residuals: observed minus modelled, optionally of the logarithms (``log=True``, for
+  multiplicative measurement error); without logarithms each variable's residuals are divided by
+  the root mean square of its observations so that variables in different units weigh alike.
+  scipy.optimize.least_squares (trust region reflective, bounds) minimises their sum of squares.
+- The Jacobian of the residuals comes from the forward sensitivity equations
+  dS/dt = J S + df/dtheta, S(0) = [0 | I], integrated alongside the state in the same run (one
+  integration per iteration, and exact to the integration tolerance).
+- Covariance s^2 (J^T J)^-1 at the optimum, s^2 = residual sum of squares / (n - p); intervals
+  z +- t(0.975, n - p) se on the fitting scale (Student's t), mapped back (so intervals of
+  log-fitted parameters are asymmetric and positive).
+- Thresholds: the recovery and collapse folds of the fitted model from
+  :func:`planner.equilibria.diagram_for`; their covariance intervals by the delta method with the
+  fold's sensitivity du/dtheta = -(w . df/dtheta) / (w . df/du), w the left null vector of the
+  Jacobian at the fold (implicit function theorem on f(x, u, theta) = 0 along the fold curve).
+- Residual bootstrap (Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 9):
+  centred residuals of each variable, inflated by sqrt(n / (n - p)), are resampled with
+  replacement and added to the fitted values; each replicate is refitted from the estimate and
+  its diagram recomputed; percentile intervals. Replicates without a recovery threshold (no
+  hysteresis window on their equilibrium curve) are counted and reported, never dropped silently.
+
+Residuals are treated as independent; yearly records with serially correlated errors give
+intervals that are too narrow.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from functools import cache
+from typing import Any
+
+import numpy as np
+import sympy
+from scipy import stats
+from scipy.optimize import least_squares
+
+from planner.equilibria import Diagram, diagram_for
+from planner.errors import InputError, Problem
+from planner.models import ModelSpec, compile_model
+from planner.monitoring import Record, same_unit
+from planner.progress import Progress, scaled, silent
+from planner.report import CAUTION
+from planner.scenario import Scenario, scenario_from_data
+from planner.schedules import ControlPath
+from planner.simulate import Status, Trajectory, integrate_path
+
+CONFIDENCE = 0.95
+DEFAULT_BOOTSTRAP = 200
+MIN_RESIDUAL_DOF = 3  # observations beyond the fitted quantities (common practice, no source)
+FIT_RTOL = 1e-7  # integration tolerance inside the fit (well below any measurement error)
+PARAMETER_SPAN = 1e3  # a fitted positive parameter stays within base / 1e3 .. base * 1e3
+STATE_FLOOR = 1e-6  # smallest starting guess for a log-fitted initial state
+MAX_EVALUATIONS = 200
+FIT_TOLERANCE = 1e-8  # least_squares ftol, xtol and gtol of the fit
+BOOTSTRAP_TOLERANCE = 1e-5  # ... of each bootstrap refit (its spread dwarfs this)
+FAILED_RESIDUAL = 1e6  # residual returned where the model cannot be simulated (step rejected)
+SINGULAR = 1e-10  # smallest / largest singular value of J below which J^T J is singular
+FLAT_DIRECTION = 1e-4  # ... below which a direction counts as flat (cond(J^T J) > 1e8)
+WIDE_INTERVAL_RATIO = 100.0  # hi / lo of a positive parameter's interval: two orders of magnitude
+STRONG_CORRELATION = 0.99
+MIN_BOOTSTRAP_SUCCESS = 0.8  # below this share of successful refits the bootstrap is flagged
+DEFAULT_CONTROL_COLUMN = "load"
+YEAR_UNITS = frozenset({"", "a", "y", "yr", "yrs", "year", "years"})
+HELD_BY_DEFAULT: dict[str, tuple[str, ...]] = {
+    # The steepness of recycling is rarely pinned down by a few decades of yearly data (it shows
+    # only where the lake crosses the steep part of the recycling curve): held unless asked for.
+    "recycling": ("q",),
+    "recycling-sediment": ("q",),
+}
+
+
+# ---------------------------------------------------------------------------------------------
+# The record matched to a scenario
+
+
+@dataclass(frozen=True, eq=False)
+class Observations:
+    """A record matched to a scenario's model: the load path and the observed values.
+
+    Times are years since ``start`` (the record's first time). ``variable_index`` gives the model
+    variable of each observation, ``time_index`` its place in ``times``; ``rows`` its file row.
+    """
+
+    record: Record
+    control_column: str
+    columns: tuple[tuple[str, str], ...]  # (model variable, record column)
+    start: float
+    path: ControlPath
+    times: np.ndarray
+    values: np.ndarray
+    variable_index: np.ndarray
+    time_index: np.ndarray
+    rows: np.ndarray
+
+    @property
+    def count(self) -> int:
+        return int(self.values.size)
+
+    @property
+    def horizon(self) -> float:
+        return float(self.record.times[-1] - self.start)
+
+    def column_of(self, variable: str) -> str:
+        return dict(self.columns)[variable]
+
+
+def observations_for(
+    record: Record,
+    scenario: Scenario,
+    *,
+    control_column: str | None = None,
+    states: Mapping[str, str] | None = None,
+) -> Observations:
+    """Match ``record`` to ``scenario``: which column is the load and which columns observe
+    which model variables; units are checked against the scenario's.
+
+    Defaults: the load column is named like the control parameter (``L``) if the record has one,
+    else ``load``; each model variable is observed by the column of the same name; when no
+    column is named after a variable and exactly one data column is left, it observes the target
+    variable. The load column may have gaps (interpolated linearly, see the module docstring).
+    """
+    source = record.source
+    variables = scenario.spec.variables
+    if record.time_unit.strip().lower() not in YEAR_UNITS:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    f"column {record.time_name}",
+                    f"times must be in years (decimal years), not {record.time_unit!r}",
+                )
+            ]
+        )
+    if control_column is None:
+        parameter = scenario.control.parameter
+        control_column = parameter if record.has(parameter) else DEFAULT_CONTROL_COLUMN
+    loads = record.column(control_column, option="--control-column")
+    _check_unit(record, control_column, scenario.control.unit, "the scenario's control unit")
+    known = np.isfinite(loads)
+    if np.count_nonzero(known) < 2:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    f"column {control_column}",
+                    "needs a load in at least two rows to drive the model",
+                )
+            ]
+        )
+    start = float(record.times[0])
+    load_times = record.times[known] - start
+    load_values = loads[known]
+    if load_times[0] > 0:  # held back to the start of the record
+        load_times = np.concatenate([[0.0], load_times])
+        load_values = np.concatenate([[load_values[0]], load_values])
+    path = ControlPath(load_times, load_values)
+
+    mapping = _state_columns(record, scenario, control_column, states)
+    times = record.times - start
+    values, variable_index, time_index, rows = [], [], [], []
+    for variable, column in mapping:
+        data = record.column(column, option="--state")
+        present = np.nonzero(np.isfinite(data))[0]
+        values.append(data[present])
+        variable_index.append(np.full(present.size, variables.index(variable)))
+        time_index.append(present)
+        rows.append(record.rows[present])
+    return Observations(
+        record=record,
+        control_column=control_column,
+        columns=tuple(mapping),
+        start=start,
+        path=path,
+        times=times,
+        values=np.concatenate(values),
+        variable_index=np.concatenate(variable_index).astype(int),
+        time_index=np.concatenate(time_index).astype(int),
+        rows=np.concatenate(rows).astype(int),
+    )
+
+
+def _check_unit(record: Record, column: str, expected: str, what: str) -> None:
+    stated = record.unit(column)
+    if not same_unit(stated, expected):
+        raise InputError(
+            [
+                Problem(
+                    record.source,
+                    f"column {column}",
+                    f"unit {stated!r} differs from {what} {expected!r}; "
+                    "convert the column or the scenario to the same unit",
+                )
+            ]
+        )
+
+
+def _state_columns(
+    record: Record, scenario: Scenario, control_column: str, states: Mapping[str, str] | None
+) -> list[tuple[str, str]]:
+    variables = scenario.spec.variables
+    source = record.source
+    if states:
+        problems = [
+            Problem(
+                "--state",
+                variable,
+                f"not a model variable (variables: {', '.join(variables)})",
+            )
+            for variable in states
+            if variable not in variables
+        ]
+        problems += [
+            Problem(
+                source,
+                f"column {column}",
+                f"not found (columns: {', '.join(record.names)}); check --state {variable}=COLUMN",
+            )
+            for variable, column in states.items()
+            if not record.has(column)
+        ]
+        if problems:
+            raise InputError(problems)
+        mapping = [(v, states[v]) for v in variables if v in states]
+    else:
+        mapping = [(v, v) for v in variables if record.has(v) and v != control_column]
+        others = [n for n in record.names if n != control_column]
+        if not mapping and len(others) == 1:
+            mapping = [(scenario.target.variable, others[0])]
+    if not mapping:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    "(columns)",
+                    f"no column observes a model variable ({', '.join(variables)}); "
+                    f"map one with --state {scenario.target.variable}=COLUMN",
+                )
+            ]
+        )
+    for variable, column in mapping:
+        if column == control_column:
+            raise InputError(
+                [Problem(source, f"column {column}", "is the load column; it cannot be observed")]
+            )
+        expected = scenario.state_units.get(variable, "")
+        _check_unit(record, column, expected, f"the scenario's unit of {variable}")
+    return mapping
+
+
+# ---------------------------------------------------------------------------------------------
+# Sensitivity equations
+
+
+def _sensitivity_name(variable: str, quantity: str) -> str:
+    return f"d_{variable}__d_{quantity}"
+
+
+@cache
+def sensitivity_spec(spec: ModelSpec, fitted: tuple[str, ...]) -> ModelSpec:
+    """The model with its forward sensitivities: state x and S = dx/d(fitted parameters, x0).
+
+    Variables: the model's, then S row by row (S[i, j] = d x_i / d quantity_j, the quantities
+    being ``fitted`` then the initial state). dS/dt = J S + [df/dtheta | 0]. Built once per
+    model and choice of parameters (cached); compiled by the model library like any model.
+    """
+    state = [sympy.Symbol(v) for v in spec.variables]
+    n, k = len(state), len(fitted)
+    quantities = [*fitted, *(f"{v}_initial" for v in spec.variables)]
+    sens = [[sympy.Symbol(_sensitivity_name(v, q)) for q in quantities] for v in spec.variables]
+    jacobian = [[sympy.diff(f, x) for x in state] for f in spec.equations]
+    equations = list(spec.equations)
+    for i in range(n):
+        for j in range(k + n):
+            rate = sum((jacobian[i][m] * sens[m][j] for m in range(n)), sympy.Integer(0))
+            if j < k:
+                rate += sympy.diff(spec.equations[i], sympy.Symbol(fitted[j]))
+            equations.append(rate)
+    return ModelSpec(
+        kind=f"{spec.kind} with sensitivities",
+        variables=(*spec.variables, *(str(s) for row in sens for s in row)),
+        parameters=spec.parameters,
+        equations=tuple(equations),
+        nonnegative_state=False,  # sensitivities take either sign
+        source=spec.source,
+    )
+
+
+@dataclass(frozen=True)
+class _Layout:
+    """How the fitted vector z maps to parameters and initial state, with bounds."""
+
+    names: tuple[str, ...]  # fitted parameters
+    variables: tuple[str, ...]
+    log_parameter: np.ndarray  # (k,) bool
+    log_state: bool
+    lower: np.ndarray
+    upper: np.ndarray
+
+    @property
+    def k(self) -> int:
+        return len(self.names)
+
+    @property
+    def labels(self) -> tuple[str, ...]:
+        return (*self.names, *(f"initial {v}" for v in self.variables))
+
+    def natural(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Parameters (k,) and initial state (n,) from z."""
+        theta = np.where(self.log_parameter, np.exp(z[: self.k]), z[: self.k])
+        x0 = np.exp(z[self.k :]) if self.log_state else z[self.k :].copy()
+        return theta, x0
+
+    def chain(self, z: np.ndarray) -> np.ndarray:
+        """d(natural)/dz for each component (the log-scale factor, or 1)."""
+        theta, x0 = self.natural(z)
+        factor_theta = np.where(self.log_parameter, theta, 1.0)
+        factor_x0 = x0 if self.log_state else np.ones_like(x0)
+        return np.concatenate([factor_theta, factor_x0])
+
+    def log_scale(self) -> np.ndarray:
+        return np.concatenate([self.log_parameter, np.full(len(self.variables), self.log_state)])
+
+
+class _Simulator:
+    """Predictions of the observed values and their derivatives in z, one run per z (cached)."""
+
+    def __init__(self, scenario: Scenario, observations: Observations, layout: _Layout):
+        self.scenario = scenario
+        self.observations = observations
+        self.layout = layout
+        spec = scenario.spec
+        self.n = len(spec.variables)
+        self.model = compile_model(sensitivity_spec(spec, layout.names), scenario.control.parameter)
+        self.unique_times = observations.times
+        self._last: tuple[bytes, Any] | None = None
+
+    def parameters(self, theta: np.ndarray) -> dict[str, float]:
+        values = dict(self.scenario.model.parameters)
+        values.update({name: float(v) for name, v in zip(self.layout.names, theta, strict=True)})
+        return values
+
+    def run(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+        """(predicted values (m,), d predicted / dz (m, p)), or None if the model fails."""
+        key = np.asarray(z, dtype=float).tobytes()
+        if self._last is not None and self._last[0] == key:
+            return self._last[1]
+        result = self._run(np.asarray(z, dtype=float))
+        self._last = (key, result)
+        return result
+
+    def _run(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+        layout, obs, n = self.layout, self.observations, self.n
+        theta, x0 = layout.natural(z)
+        p = layout.k + n
+        start = np.concatenate([x0, np.zeros(n * p)])
+        for i in range(n):
+            start[n + i * p + layout.k + i] = 1.0
+        system = self.model.bind(self.parameters(theta))
+        run = integrate_path(
+            system,
+            start,
+            obs.path,
+            obs.horizon,
+            rtol=FIT_RTOL,
+            limit=self.scenario.simulation.state_limit,
+        )
+        if run.status is not Status.FINISHED:
+            return None
+        at = run.state_at(self.unique_times)
+        if not np.all(np.isfinite(at)):
+            return None
+        predicted = at[obs.variable_index, obs.time_index]
+        sens = at[n:].reshape(n, p, -1)
+        derivative = sens[obs.variable_index, :, obs.time_index] * layout.chain(z)
+        return predicted, derivative
+
+
+# ---------------------------------------------------------------------------------------------
+# Results
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """A fitted quantity: value, covariance interval (Student t on the fitting scale, mapped
+    back; None where the data do not determine it) and bootstrap percentile interval."""
+
+    name: str
+    value: float
+    interval: tuple[float, float] | None
+    bootstrap_interval: tuple[float, float] | None
+    standard_error: float | None  # on the fitting scale (of the logarithm when log_scale)
+    log_scale: bool
+
+    @property
+    def best(self) -> tuple[tuple[float, float] | None, str]:
+        """The interval to show first and how it was made: bootstrap if run, else covariance."""
+        if self.bootstrap_interval is not None:
+            return self.bootstrap_interval, "bootstrap percentile"
+        return self.interval, "covariance (t)"
+
+
+@dataclass(frozen=True)
+class ThresholdEstimate:
+    """The recovery or collapse threshold of the fitted model (control units) with intervals.
+
+    ``interval`` by the delta method, ``bootstrap_interval`` from the replicates that have this
+    threshold; ``bootstrap_without`` counts the replicates that do not (no window of that side).
+    """
+
+    kind: str
+    value: float | None
+    interval: tuple[float, float] | None
+    bootstrap_interval: tuple[float, float] | None
+    bootstrap_values: np.ndarray = field(repr=False)
+    bootstrap_without: int = 0
+
+    @property
+    def best(self) -> tuple[tuple[float, float] | None, str]:
+        if self.bootstrap_interval is not None:
+            return self.bootstrap_interval, "bootstrap percentile"
+        return self.interval, "delta method (t)"
+
+
+@dataclass(frozen=True)
+class BootstrapSummary:
+    """What the residual bootstrap did: replicates asked for, refitted, failed, and how many of
+    the refitted models were reversible, hysteretic or irreversible."""
+
+    replicates: int
+    succeeded: int
+    failed: int
+    classifications: dict[str, int]
+    samples: np.ndarray = field(repr=False)  # (succeeded, p) natural-scale fitted quantities
+
+
+@dataclass(frozen=True, eq=False)
+class Fit:
+    """A model fitted to a record. Times in ``trajectory`` are years since ``observations.start``.
+
+    ``residuals`` are on the fitting scale (log, or divided by each variable's scale ``weights``);
+    ``sigma`` is their standard deviation s; ``covariance`` is s^2 (J^T J)^-1 on the fitting scale
+    (None when J^T J is singular); ``singular_values`` those of J.
+    """
+
+    scenario: Scenario
+    fitted_scenario: Scenario
+    observations: Observations
+    fitted: tuple[str, ...]
+    log: bool
+    parameters: tuple[Estimate, ...]
+    initial_state: tuple[Estimate, ...]
+    end_state: np.ndarray
+    end_control: float
+    thresholds: dict[str, ThresholdEstimate]
+    diagram: Diagram
+    predictions: np.ndarray
+    residuals: np.ndarray
+    weights: np.ndarray
+    sigma: float
+    dof: int
+    covariance: np.ndarray | None
+    singular_values: np.ndarray
+    trajectory: Trajectory
+    bootstrap: BootstrapSummary | None
+    warnings: tuple[str, ...]
+    identifiable: bool
+    converged: bool
+    message: str
+
+    @property
+    def classification(self) -> str:
+        return self.diagram.classification
+
+    def parameter(self, name: str) -> Estimate:
+        for estimate in self.parameters:
+            if estimate.name == name:
+                return estimate
+        raise KeyError(name)
+
+
+# ---------------------------------------------------------------------------------------------
+# Fitting
+
+
+def default_fitted(scenario: Scenario) -> tuple[str, ...]:
+    """Parameters fitted when none are named: every non-control parameter except those in
+    HELD_BY_DEFAULT for the model kind (the recycling steepness q)."""
+    held = HELD_BY_DEFAULT.get(scenario.spec.kind, ())
+    control = scenario.control.parameter
+    return tuple(p for p in scenario.spec.parameter_names if p != control and p not in held)
+
+
+def _check_fitted(scenario: Scenario, fit: Sequence[str] | None) -> tuple[str, ...]:
+    if fit is None:
+        names = default_fitted(scenario)
+    else:
+        names = tuple(dict.fromkeys(name.strip() for name in fit))
+    parameters = scenario.spec.parameter_names
+    problems = []
+    for name in names:
+        if name == scenario.control.parameter:
+            problems.append(
+                Problem("--fit", name, "is the control: the record's load column gives it")
+            )
+        elif name not in parameters:
+            problems.append(
+                Problem("--fit", name, f"not a model parameter ({', '.join(parameters)})")
+            )
+    if not names:
+        problems.append(Problem("--fit", "(list)", "name at least one parameter to fit"))
+    if problems:
+        raise InputError(problems)
+    return names
+
+
+def _layout(scenario: Scenario, names: tuple[str, ...], start_state: np.ndarray):
+    spec = scenario.spec
+    values = scenario.model.parameters
+    logs, lower, upper, z0 = [], [], [], []
+    for name in names:
+        info = spec.parameter_info(name)
+        value = float(values[name])
+        positive = info.lower is not None and info.lower >= 0 and value > 0
+        logs.append(positive)
+        if positive:
+            floor = np.log(info.lower) if info.lower > 0 else -np.inf
+            lower.append(max(floor, np.log(value / PARAMETER_SPAN)))
+            upper.append(np.log(value * PARAMETER_SPAN))
+            z0.append(np.log(value))
+        else:
+            lower.append(-np.inf if info.lower is None else info.lower)
+            upper.append(np.inf)
+            z0.append(value)
+    log_state = spec.nonnegative_state
+    if log_state:
+        guess = np.maximum(start_state, STATE_FLOOR * max(float(np.max(start_state)), 1.0))
+        z_state = np.log(guess)
+        lower += list(z_state - np.log(PARAMETER_SPAN))
+        upper += list(z_state + np.log(PARAMETER_SPAN))
+    else:
+        z_state = np.asarray(start_state, dtype=float)
+        lower += [-np.inf] * z_state.size
+        upper += [np.inf] * z_state.size
+    layout = _Layout(
+        names=names,
+        variables=spec.variables,
+        log_parameter=np.array(logs, dtype=bool),
+        log_state=log_state,
+        lower=np.array(lower, dtype=float),
+        upper=np.array(upper, dtype=float),
+    )
+    z = np.clip(np.concatenate([z0, z_state]), layout.lower, layout.upper)
+    return layout, z
+
+
+def _start_state(scenario: Scenario, observations: Observations) -> np.ndarray:
+    """Initial-state guess: each observed variable's first observation (the scenario's current
+    state for unobserved variables)."""
+    guess = scenario.initial_state.copy()
+    for i in range(guess.size):
+        mine = observations.variable_index == i
+        if np.any(mine):
+            first = np.argmin(np.where(mine, observations.time_index, np.iinfo(int).max))
+            guess[i] = observations.values[first]
+    return guess
+
+
+class _Objective:
+    """Residuals and their Jacobian for one set of observed values (on the fitting scale)."""
+
+    def __init__(self, simulator: _Simulator, observed: np.ndarray, weights: np.ndarray, log: bool):
+        self.simulator = simulator
+        self.log = log
+        self.weights = weights
+        self.target = np.log(observed) if log else observed / weights
+
+    def _transform(self, predicted: np.ndarray, derivative: np.ndarray):
+        if self.log:
+            if np.any(predicted <= 0):
+                return None
+            return np.log(predicted), derivative / predicted[:, None]
+        return predicted / self.weights, derivative / self.weights[:, None]
+
+    def residuals(self, z: np.ndarray) -> np.ndarray:
+        result = self.simulator.run(z)
+        out = None if result is None else self._transform(*result)
+        if out is None:
+            return np.full(self.target.size, FAILED_RESIDUAL)
+        return out[0] - self.target
+
+    def jacobian(self, z: np.ndarray) -> np.ndarray:
+        result = self.simulator.run(z)
+        out = None if result is None else self._transform(*result)
+        if out is None:  # only reached if the start itself fails; least_squares then stops
+            return np.zeros((self.target.size, z.size))
+        return out[1]
+
+    def solve(self, z0: np.ndarray, layout: _Layout, tolerance: float = FIT_TOLERANCE):
+        return least_squares(
+            self.residuals,
+            z0,
+            jac=self.jacobian,
+            bounds=(layout.lower, layout.upper),
+            method="trf",
+            x_scale="jac",
+            ftol=tolerance,
+            xtol=tolerance,
+            gtol=tolerance,
+            max_nfev=MAX_EVALUATIONS,
+        )
+
+
+def fit_record(
+    scenario: Scenario,
+    observations: Observations,
+    *,
+    fit: Sequence[str] | None = None,
+    log: bool = False,
+    bootstrap: int | None = DEFAULT_BOOTSTRAP,
+    seed: int = 0,
+    progress: Progress | None = None,
+) -> Fit:
+    """Fit the parameters ``fit`` (default :func:`default_fitted`) and the initial state of
+    ``scenario``'s model to ``observations``; see the module docstring for the method.
+
+    ``bootstrap`` replicates (0: none; None: DEFAULT_BOOTSTRAP) refit resampled data and
+    recompute the diagram, for percentile intervals of parameters and thresholds; ``seed`` fixes
+    their random draws.
+    """
+    report = progress or silent
+    names = _check_fitted(scenario, fit)
+    bootstrap = DEFAULT_BOOTSTRAP if bootstrap is None else int(bootstrap)
+    if bootstrap < 0:
+        raise InputError([Problem("--bootstrap", "replicates", "must be 0 or more")])
+    source = observations.record.source
+    if log and np.any(observations.values <= 0):
+        where = int(np.nonzero(observations.values <= 0)[0][0])
+        variable = scenario.spec.variables[observations.variable_index[where]]
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    f"row {observations.rows[where]}, column {observations.column_of(variable)}",
+                    "zero cannot be log-transformed; fit without --log or remove the value",
+                )
+            ]
+        )
+    n_fitted = len(names) + len(scenario.spec.variables)
+    needed = n_fitted + MIN_RESIDUAL_DOF
+    if observations.count < needed:
+        columns = ", ".join(column for _, column in observations.columns)
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    f"column {columns}",
+                    f"too few points for the fit: {observations.count} observed values for "
+                    f"{n_fitted} fitted quantities ({', '.join(names)} and the initial state); "
+                    f"at least {needed} are needed (or fit fewer parameters with --fit)",
+                )
+            ]
+        )
+
+    report(0.0, "fitting the model to the record")
+    layout, z0 = _layout(scenario, names, _start_state(scenario, observations))
+    simulator = _Simulator(scenario, observations, layout)
+    weights = _weights(observations, log)
+    objective = _Objective(simulator, observations.values, weights, log)
+    if simulator.run(z0) is None or objective._transform(*simulator.run(z0)) is None:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    "(fit)",
+                    "the base scenario's parameters cannot be simulated over the record; "
+                    "start from parameters closer to the lake's",
+                )
+            ]
+        )
+    solution = objective.solve(z0, layout)
+    z = solution.x
+    residuals = objective.residuals(z)
+    jacobian = objective.jacobian(z)
+    m, p = residuals.size, z.size
+    dof = m - p
+    sigma = float(np.sqrt(np.sum(residuals**2) / dof))
+    singular = np.linalg.svd(jacobian, compute_uv=False)
+    covariance = _covariance(jacobian, sigma)
+    t_value = float(stats.t.ppf(0.5 + CONFIDENCE / 2, dof))
+    report(0.15, "equilibria of the fitted model")
+
+    theta, x0 = layout.natural(z)
+    parameters = simulator.parameters(theta)
+    nominal = scenario.system(**{n: parameters[n] for n in names})
+    trajectory = integrate_path(nominal, x0, observations.path, observations.horizon, rtol=FIT_RTOL)
+    end_state = trajectory.state_at(observations.horizon)
+    end_control = float(observations.path(observations.horizon))
+    warnings: list[str] = []
+    fitted_scenario = _fitted_scenario(
+        scenario, observations, names, parameters, end_state, end_control, warnings
+    )
+    diagram = diagram_for(fitted_scenario)
+    gradients = _threshold_gradients(diagram, simulator, z, layout)
+    predictions = simulator.run(z)[0]
+
+    boot = None
+    boot_thresholds: dict[str, np.ndarray] = {}
+    boot_without = {"recovery": 0, "collapse": 0}
+    if bootstrap > 0:
+        boot, boot_thresholds, boot_without = _bootstrap(
+            objective,
+            simulator,
+            layout,
+            z,
+            residuals,
+            fitted_scenario,
+            bootstrap,
+            seed,
+            scaled(report, 0.2, 1.0),
+        )
+
+    estimates = _estimates(layout, z, covariance, t_value, boot)
+    thresholds = {}
+    for kind in ("recovery", "collapse"):
+        value = getattr(diagram, f"{kind}_threshold")
+        gradient = gradients.get(kind)
+        interval = None
+        if value is not None and gradient is not None and covariance is not None:
+            spread = t_value * float(np.sqrt(max(gradient @ covariance @ gradient, 0.0)))
+            interval = (value - spread, value + spread)
+        samples = boot_thresholds.get(kind, np.empty(0))
+        thresholds[kind] = ThresholdEstimate(
+            kind=kind,
+            value=value,
+            interval=interval,
+            bootstrap_interval=_percentiles(samples),
+            bootstrap_values=samples,
+            bootstrap_without=boot_without[kind],
+        )
+
+    unidentified = _identifiability_warnings(layout, jacobian, estimates)
+    identifiable = not unidentified
+    warnings = unidentified + _correlation_notes(layout, covariance) + warnings
+    if not solution.success or solution.status <= 0:
+        warnings.append(f"the least-squares search stopped early: {solution.message}")
+    for estimate, low, high, value in zip(estimates, layout.lower, layout.upper, z, strict=True):
+        if np.isfinite(low) and value - low < 1e-6 or np.isfinite(high) and high - value < 1e-6:
+            warnings.append(
+                f"{estimate.name} ended at a bound of the search ({estimate.value:.4g})"
+            )
+            identifiable = False
+    if boot is not None and boot.succeeded < MIN_BOOTSTRAP_SUCCESS * boot.replicates:
+        warnings.append(
+            f"only {boot.succeeded} of {boot.replicates} bootstrap refits succeeded; "
+            "their intervals are unreliable"
+        )
+    for kind, threshold in thresholds.items():
+        if boot is not None and threshold.bootstrap_without:
+            warnings.append(
+                f"{threshold.bootstrap_without} of {boot.succeeded} bootstrap replicates have no "
+                f"{kind} threshold"
+            )
+    report(1.0, "done")
+    k = layout.k
+    return Fit(
+        scenario=scenario,
+        fitted_scenario=fitted_scenario,
+        observations=observations,
+        fitted=names,
+        log=log,
+        parameters=tuple(estimates[:k]),
+        initial_state=tuple(estimates[k:]),
+        end_state=end_state,
+        end_control=end_control,
+        thresholds=thresholds,
+        diagram=diagram,
+        predictions=predictions,
+        residuals=residuals,
+        weights=weights,
+        sigma=sigma,
+        dof=dof,
+        covariance=covariance,
+        singular_values=singular,
+        trajectory=trajectory,
+        bootstrap=boot,
+        warnings=tuple(warnings),
+        identifiable=identifiable,
+        converged=bool(solution.success),
+        message=str(solution.message),
+    )
+
+
+def _weights(observations: Observations, log: bool) -> np.ndarray:
+    """Scale of each observation's residual: 1 for logs, else the RMS of its variable's data."""
+    if log:
+        return np.ones_like(observations.values)
+    weights = np.empty_like(observations.values)
+    for i in np.unique(observations.variable_index):
+        mine = observations.variable_index == i
+        rms = float(np.sqrt(np.mean(observations.values[mine] ** 2)))
+        weights[mine] = rms if rms > 0 else 1.0
+    return weights
+
+
+def _covariance(jacobian: np.ndarray, sigma: float) -> np.ndarray | None:
+    """s^2 (J^T J)^-1 via the SVD of J; None when J^T J is numerically singular."""
+    _, singular, vt = np.linalg.svd(jacobian, full_matrices=False)
+    if singular.size == 0 or singular[-1] <= SINGULAR * singular[0]:
+        return None
+    return sigma**2 * (vt.T / singular**2) @ vt
+
+
+def _natural_interval(low: float, high: float, log_scale: bool) -> tuple[float, float]:
+    return (float(np.exp(low)), float(np.exp(high))) if log_scale else (float(low), float(high))
+
+
+def _percentiles(samples: np.ndarray) -> tuple[float, float] | None:
+    samples = samples[np.isfinite(samples)]
+    if samples.size < 2:
+        return None
+    tail = 50 * (1 - CONFIDENCE)
+    low, high = np.percentile(samples, [tail, 100 - tail])
+    return float(low), float(high)
+
+
+def _estimates(
+    layout: _Layout,
+    z: np.ndarray,
+    covariance: np.ndarray | None,
+    t_value: float,
+    boot: BootstrapSummary | None,
+) -> list[Estimate]:
+    theta, x0 = layout.natural(z)
+    natural = np.concatenate([theta, x0])
+    log_scale = layout.log_scale()
+    out = []
+    for i, label in enumerate(layout.labels):
+        error = None if covariance is None else float(np.sqrt(max(covariance[i, i], 0.0)))
+        interval = (
+            None
+            if error is None
+            else _natural_interval(z[i] - t_value * error, z[i] + t_value * error, log_scale[i])
+        )
+        samples = None if boot is None else boot.samples[:, i]
+        out.append(
+            Estimate(
+                name=label,
+                value=float(natural[i]),
+                interval=interval,
+                bootstrap_interval=None if samples is None else _percentiles(samples),
+                standard_error=error,
+                log_scale=bool(log_scale[i]),
+            )
+        )
+    return out
+
+
+def _identifiability_warnings(
+    layout: _Layout, jacobian: np.ndarray, estimates: list[Estimate]
+) -> list[str]:
+    """Flat directions of J and intervals spanning orders of magnitude, in plain words."""
+    warnings = []
+    _, singular, vt = np.linalg.svd(jacobian, full_matrices=False)
+    labels = [
+        f"log {n}" if lg else n for n, lg in zip(layout.labels, layout.log_scale(), strict=True)
+    ]
+    if singular.size and singular[-1] <= FLAT_DIRECTION * singular[0]:
+        direction = vt[-1]
+        order = np.argsort(-np.abs(direction))
+        terms = [f"{direction[i]:+.2f} {labels[i]}" for i in order if abs(direction[i]) >= 0.2]
+        condition = np.inf if singular[-1] == 0 else (singular[0] / singular[-1]) ** 2
+        warnings.append(
+            f"not identifiable: the record barely constrains the combination {' '.join(terms)} "
+            f"(condition number of J^T J {condition:.2g}); hold one of them (--fit) or add data"
+        )
+    for estimate in estimates:
+        if estimate.interval is None:
+            continue
+        low, high = estimate.interval
+        if estimate.log_scale and low > 0 and high / low > WIDE_INTERVAL_RATIO:
+            warnings.append(
+                f"{estimate.name}: the 95% interval {low:.3g} to {high:.3g} spans more than "
+                f"{np.log10(WIDE_INTERVAL_RATIO):.0f} orders of magnitude"
+            )
+        elif (
+            not estimate.log_scale
+            and estimate.value != 0
+            and (high - low) / abs(estimate.value) > WIDE_INTERVAL_RATIO
+        ):
+            warnings.append(
+                f"{estimate.name}: the 95% interval is very wide ({low:.3g} to {high:.3g})"
+            )
+    return warnings
+
+
+def _correlation_notes(layout: _Layout, covariance: np.ndarray | None) -> list[str]:
+    """Pairs of fitted parameters whose estimates are almost perfectly correlated: the record
+    pins down a combination of them better than each (common in trajectory fits; a note, not
+    a failure)."""
+    warnings: list[str] = []
+    if covariance is not None:
+        errors = np.sqrt(np.maximum(np.diag(covariance), 1e-300))
+        correlation = covariance / np.outer(errors, errors)
+        for i in range(layout.k):
+            for j in range(i + 1, layout.k):
+                if abs(correlation[i, j]) > STRONG_CORRELATION:
+                    warnings.append(
+                        f"{layout.names[i]} and {layout.names[j]} are strongly correlated "
+                        f"({correlation[i, j]:+.3f}): the record constrains a combination of them"
+                    )
+    return warnings
+
+
+def _threshold_gradients(
+    diagram: Diagram, simulator: _Simulator, z: np.ndarray, layout: _Layout
+) -> dict[str, np.ndarray]:
+    """d(threshold)/dz for the recovery and collapse folds of the main window.
+
+    At a fold f = 0 and J has a left null vector w; differentiating f(x, u, theta) = 0 along the
+    fold and multiplying by w gives du/dtheta = -(w . df/dtheta) / (w . df/du). The parameter
+    derivatives df/dtheta are the sensitivity right-hand side with S = 0.
+    """
+    out = {}
+    system = diagram.system
+    n, k = simulator.n, layout.k
+    theta, _ = layout.natural(z)
+    augmented = simulator.model.bind(simulator.parameters(theta))
+    chain = layout.chain(z)
+    for kind in ("recovery", "collapse"):
+        value = getattr(diagram, f"{kind}_threshold")
+        if value is None:
+            continue
+        folds = [f for f in diagram.folds if f.control == value]
+        if not folds:
+            continue
+        x, u = folds[0].state, folds[0].control
+        u_left, _, _ = np.linalg.svd(system.jac(x, u))
+        w = u_left[:, -1]
+        f_u = system.dfdu(x, u)
+        rates = augmented.rhs(np.concatenate([x, np.zeros(n * (k + n))]), u)
+        f_theta = rates[n:].reshape(n, k + n)[:, :k]
+        denominator = float(w @ f_u)
+        if denominator == 0:
+            continue
+        gradient = np.zeros(k + n)
+        gradient[:k] = -(w @ f_theta) / denominator
+        out[kind] = gradient * chain
+    return out
+
+
+def _with_parameters(scenario: Scenario, parameters: Mapping[str, float]) -> Scenario:
+    """The scenario with some model parameters replaced (no re-validation: values from a fit)."""
+    model = scenario.model.model_copy(
+        update={"parameters": {**scenario.model.parameters, **parameters}}
+    )
+    return scenario.model_copy(update={"model": model})
+
+
+def _bootstrap(
+    objective: _Objective,
+    simulator: _Simulator,
+    layout: _Layout,
+    z: np.ndarray,
+    residuals: np.ndarray,
+    fitted_scenario: Scenario,
+    replicates: int,
+    seed: int,
+    report: Progress,
+):
+    observations = simulator.observations
+    m, p = residuals.size, z.size
+    fitted_values = residuals + objective.target  # model on the fitting scale
+    inflate = np.sqrt(m / (m - p))
+    groups = [
+        np.nonzero(observations.variable_index == i)[0]
+        for i in np.unique(observations.variable_index)
+    ]
+    centred = residuals.copy()
+    for group in groups:
+        centred[group] -= centred[group].mean()
+    step = np.linalg.pinv(objective.jacobian(z))  # z shift per unit change of the data
+    rng = np.random.default_rng(seed)
+    samples, classes = [], {"reversible": 0, "hysteretic": 0, "irreversible": 0}
+    found: dict[str, list[float]] = {"recovery": [], "collapse": []}
+    without = {"recovery": 0, "collapse": 0}
+    failed = 0
+    for b in range(replicates):
+        report(b / replicates, f"bootstrap replicate {b + 1} of {replicates}")
+        noise = np.empty(m)
+        for group in groups:
+            noise[group] = rng.choice(centred[group], size=group.size, replace=True) * inflate
+        synthetic = fitted_values + noise
+        observed = np.exp(synthetic) if objective.log else synthetic * objective.weights
+        replica = _Objective(simulator, observed, objective.weights, objective.log)
+        # Start from the linearised solution (one Gauss-Newton step from the estimate): the
+        # refit then needs two or three integrations instead of four or five.
+        start = np.clip(z + step @ (synthetic - fitted_values), layout.lower, layout.upper)
+        inside = (start > layout.lower) & (start < layout.upper)
+        start = np.where(inside, start, z)
+        try:
+            solution = replica.solve(start, layout, BOOTSTRAP_TOLERANCE)
+        except (ValueError, np.linalg.LinAlgError):
+            failed += 1
+            continue
+        if solution.status <= 0 or np.any(replica.residuals(solution.x) >= FAILED_RESIDUAL):
+            failed += 1
+            continue
+        theta, x0 = layout.natural(solution.x)
+        values = dict(zip(layout.names, map(float, theta), strict=True))
+        diagram = diagram_for(_with_parameters(fitted_scenario, values))
+        samples.append(np.concatenate([theta, x0]))
+        classes[diagram.classification] += 1
+        for kind in found:
+            value = getattr(diagram, f"{kind}_threshold")
+            if value is None:
+                without[kind] += 1
+            else:
+                found[kind].append(value)
+    report(1.0, "bootstrap done")
+    summary = BootstrapSummary(
+        replicates=replicates,
+        succeeded=len(samples),
+        failed=failed,
+        classifications=classes,
+        samples=np.array(samples).reshape(len(samples), p),
+    )
+    return summary, {k: np.array(v) for k, v in found.items()}, without
+
+
+def _fitted_scenario(
+    scenario: Scenario,
+    observations: Observations,
+    names: tuple[str, ...],
+    parameters: Mapping[str, float],
+    end_state: np.ndarray,
+    end_control: float,
+    warnings: list[str],
+) -> Scenario:
+    """The base scenario with the fitted parameters, and as its present the end of the record:
+    the modelled state and the recorded load at the last time. Schedules and costs are kept."""
+    data = scenario.model_dump(mode="json", exclude_none=True)
+    values = {**data["model"]["parameters"], **{n: float(parameters[n]) for n in names}}
+    low, high = scenario.control.range
+    if low <= end_control <= high:
+        values[scenario.control.parameter] = end_control
+    else:
+        warnings.append(
+            f"the last recorded load {end_control:g} lies outside the control range "
+            f"[{low:g}, {high:g}]; the fitted scenario keeps the current load of the base"
+        )
+    data["model"]["parameters"] = values
+    data["state"] = {
+        v: max(float(x), 0.0) if scenario.spec.nonnegative_state else float(x)
+        for v, x in zip(scenario.spec.variables, end_state, strict=True)
+    }
+    record = observations.record
+    first, last = record.times[0], record.times[-1]
+    note = (
+        f"Parameters {', '.join(names)} fitted to {record.source} ({first:g} to {last:g}); "
+        f"state and load are the model's at the end of the record ({last:g})."
+    )
+    data["description"] = f"{scenario.description}\n\n{note}".strip()
+    suffix = " (fitted)"
+    data["name"] = scenario.name[: 120 - len(suffix)] + suffix
+    return scenario_from_data(data, source="fitted scenario")
+
+
+# ---------------------------------------------------------------------------------------------
+# Plain data for JSON and text
+
+
+def _pair(interval: tuple[float, float] | None) -> list[float] | None:
+    return None if interval is None else [float(interval[0]), float(interval[1])]
+
+
+def _estimate_json(estimate: Estimate) -> dict[str, Any]:
+    best, method = estimate.best
+    return {
+        "value": estimate.value,
+        "interval": _pair(best),
+        "method": method,
+        "covariance_interval": _pair(estimate.interval),
+        "bootstrap_interval": _pair(estimate.bootstrap_interval),
+        "log_scale": estimate.log_scale,
+    }
+
+
+def fit_json(fit: Fit) -> dict[str, Any]:
+    """The `planner fit --json` object: parameters and thresholds with 95% intervals, and more."""
+    scenario, observations = fit.scenario, fit.observations
+    record = observations.record
+    variables = scenario.spec.variables
+    thresholds = {}
+    for kind, threshold in fit.thresholds.items():
+        best, method = threshold.best
+        thresholds[kind] = {
+            "value": threshold.value,
+            "interval": _pair(best),
+            "method": method,
+            "delta_interval": _pair(threshold.interval),
+            "bootstrap_interval": _pair(threshold.bootstrap_interval),
+            "bootstrap_without": threshold.bootstrap_without,
+        }
+    held = [p for p in scenario.spec.parameter_names if p not in fit.fitted]
+    parameters = fit.fitted_scenario.model.parameters
+    boot = fit.bootstrap
+    return {
+        "record": record.source,
+        "scenario": scenario.name,
+        "confidence": CONFIDENCE,
+        "control": {
+            "parameter": scenario.control.parameter,
+            "column": observations.control_column,
+            "unit": scenario.control.unit,
+        },
+        "observed": {
+            variable: {"column": column, "values": int(np.sum(observations.variable_index == i))}
+            for variable, column in observations.columns
+            for i in [variables.index(variable)]
+        },
+        "times": {"first": float(record.times[0]), "last": float(record.times[-1])},
+        "log": fit.log,
+        "fitted": list(fit.fitted),
+        "parameters": {e.name: _estimate_json(e) for e in fit.parameters},
+        "held": {name: float(parameters[name]) for name in held},
+        "initial_state": {
+            v: _estimate_json(e) for v, e in zip(variables, fit.initial_state, strict=True)
+        },
+        "end_state": {v: float(x) for v, x in zip(variables, fit.end_state, strict=True)},
+        "end_control": fit.end_control,
+        "thresholds": thresholds,
+        "classification": fit.classification,
+        "residual": {"sigma": fit.sigma, "dof": fit.dof, "observations": fit.residuals.size},
+        "bootstrap": None
+        if boot is None
+        else {
+            "replicates": boot.replicates,
+            "succeeded": boot.succeeded,
+            "failed": boot.failed,
+            "classifications": boot.classifications,
+        },
+        "identifiable": fit.identifiable,
+        "converged": fit.converged,
+        "warnings": list(fit.warnings),
+    }
+
+
+def _interval_text(interval: tuple[float, float] | None) -> str:
+    return "not determined" if interval is None else f"{interval[0]:.4g} to {interval[1]:.4g}"
+
+
+def fit_text(fit: Fit, *, caution: bool = True) -> str:
+    """A terminal summary of a fit: estimates with intervals, thresholds, warnings."""
+    scenario = fit.scenario
+    record = fit.observations.record
+    unit = scenario.control.unit
+    lines = [
+        f"{scenario.name}: fitted to {record.source} "
+        f"({record.times[0]:g} to {record.times[-1]:g}, {fit.residuals.size} observed values"
+        f"{', logarithms' if fit.log else ''})",
+        "",
+        f"{'quantity':<14} {'estimate':>11}  95% interval",
+    ]
+    for estimate in (*fit.parameters, *fit.initial_state):
+        best, method = estimate.best
+        lines.append(
+            f"{estimate.name:<14} {estimate.value:>11.4g}  {_interval_text(best)} ({method})"
+        )
+    lines.append("")
+    least = scenario.control.least
+    for kind, threshold in fit.thresholds.items():
+        best, method = threshold.best
+        value = "none" if threshold.value is None else f"{threshold.value:.4g} {unit}"
+        lines.append(f"{kind} threshold: {value}; 95% interval {_interval_text(best)} ({method})")
+        if kind == "recovery" and threshold.value is not None and threshold.value < least:
+            lines.append(
+                "  below the lowest achievable load"
+                + (
+                    " (below zero: the turbid state persists at any load)"
+                    if threshold.value < 0
+                    else ""
+                )
+                + "; load cuts alone cannot bring the fitted lake back"
+            )
+    lines.append(f"classification of the fitted lake: {fit.classification}")
+    if fit.bootstrap is not None:
+        boot = fit.bootstrap
+        counts = ", ".join(f"{k} {v}" for k, v in boot.classifications.items() if v)
+        lines.append(
+            f"bootstrap: {boot.succeeded} of {boot.replicates} replicates refitted ({counts})"
+        )
+        stuck = boot.classifications.get("irreversible", 0)
+        if stuck:
+            lines.append(
+                f"  in {stuck} of {boot.succeeded} replicates the turbid state persists even at "
+                f"the lowest achievable load ({least:g} {unit}): load cuts alone may not suffice"
+            )
+    lines.append(f"residual standard deviation: {fit.sigma:.4g} ({fit.dof} degrees of freedom)")
+    if fit.warnings:
+        lines.append("")
+        lines += [f"warning: {w}" for w in fit.warnings]
+    if caution:
+        lines += ["", CAUTION]
+    return "\n".join(lines)

@@ -1,0 +1,739 @@
+"""The recovery frontier: how far below the recovery threshold, and for how long, the control must
+go for the lake to recover once the control relaxes again.
+
+For a family of schedules that take the control down to a ``floor``, hold it there, then relax it
+to ``relax_to`` (DESIGN.md section 2: overshoot depth = recovery threshold - floor), the frontier
+gives for each depth the least hold (years) that still recovers, and conversely the least depth
+for a given hold. The verdict is the planner's own (integrate under the schedule, then hold the
+final control until the state settles, and match it to the desired attractor). It is monotone in
+both the hold and the depth when lower loads give lower phosphorus at every time (a comparison
+principle, e.g. Hirsch & Smith 2005, Monotone dynamical systems, Handbook of Differential
+Equations; from memory), so each least value is found by bracketing then bisection on the
+verdict.
+
+Speed: for one floor all holds share the path down to the floor, so that part is integrated
+once with dense output; each verdict then only integrates the relaxation from the stored state
+at the moment the control leaves the floor. One integrator (``planner.simulate``) does all of it.
+For one-variable models the settled verdict is read off without settling: the state is in the
+desired basin exactly when no unstable equilibrium at relax_to lies between it and the desired
+attractor (the basins of a 1-D flow are the intervals between unstable equilibria).
+
+Near the recovery fold the least hold follows the bottleneck law D ~ pi / sqrt(a b depth), with a
+= |df/du| and b = |d2f/dx2| / 2 at the fold (Strogatz 2015, Nonlinear Dynamics and Chaos, section
+4.3): shallow cuts need very long holds.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any, Literal
+
+import numpy as np
+
+from planner.equilibria import Diagram, diagram_for
+from planner.errors import InputError, Problem
+from planner.outcomes import evaluate
+from planner.progress import Progress, scaled, silent
+from planner.scenario import OvershootSchedule, Scenario, Schedule, StaircaseSchedule
+from planner.schedules import ControlPath
+from planner.simulate import Status, Trajectory, integrate_path, settle
+
+HOLD_TOLERANCE = 0.01  # years: the least hold is bracketed this tightly (found value: upper end)
+DEPTH_TOLERANCE = 1e-4  # converse: depth bracket width, as a fraction of the control range width
+SMALLEST_DEPTH = 1e-3  # default depths start at this fraction of the control range width
+DEFAULT_DEPTHS = 20
+RAMP_YEARS_WITHOUT_LIMIT = 0.0  # with no yearly-change limit the family jumps between levels
+MAX_DEPTHS = 400
+DESCENTS_KEPT = 64  # integrated descents remembered per family (dense output, one per floor)
+NAME_DIGITS = 3
+
+FamilyKind = Literal["overshoot", "staircase"]
+FAMILY_KINDS: tuple[FamilyKind, ...] = ("overshoot", "staircase")
+
+
+# ---------------------------------------------------------------------------------------------
+# Families of schedules
+
+
+@dataclass(frozen=True)
+class Family:
+    """Schedules with two free numbers, ``floor`` (control unit) and ``hold`` (years at the floor).
+
+    - overshoot: from year 0 ramp from ``current`` down to the floor at the largest yearly change
+      ``rate``, hold it ``hold`` years, ramp up to ``relax_to`` at the same rate, hold.
+    - staircase: two levels, [floor, relax_to]; every change takes the same ramp time (the one the
+      larger change needs at ``rate``), the floor is held ``hold`` years after the ramp down, so
+      the change up is slower than the rate allows when relax_to lies closer to the floor.
+
+    With ``rate`` None (no limit) ramps take RAMP_YEARS_WITHOUT_LIMIT years (jumps). Each
+    schedule must be complete by ``horizon`` (years) so that its verdict is the one at relax_to.
+    """
+
+    kind: FamilyKind
+    current: float
+    relax_to: float
+    rate: float | None
+    horizon: float
+
+    def ramp_years(self, start: float, end: float) -> float:
+        """Years a change from ``start`` to ``end`` takes at the largest yearly change."""
+        if self.rate is None:
+            return RAMP_YEARS_WITHOUT_LIMIT
+        return abs(end - start) / self.rate
+
+    def _ramps(self, floor: float) -> tuple[float, float]:
+        """(years down to the floor, years up from it to relax_to)."""
+        if self.kind == "overshoot":
+            return self.ramp_years(self.current, floor), self.ramp_years(floor, self.relax_to)
+        both = max(self.ramp_years(self.current, floor), self.ramp_years(floor, self.relax_to))
+        return both, both
+
+    def min_hold(self, floor: float) -> float:
+        """Shortest hold (years) the family allows (a staircase step must last some time)."""
+        if self.kind == "staircase" and self._ramps(floor)[0] == 0.0:
+            return HOLD_TOLERANCE
+        return 0.0
+
+    def max_hold(self, floor: float) -> float:
+        """Longest hold (years) that still relaxes by the horizon (negative: none fits)."""
+        down, up = self._ramps(floor)
+        return self.horizon - down - up
+
+    def lowest_floor(self, hold: float) -> float:
+        """The lowest floor whose schedule with this hold still fits within the horizon."""
+        spare = self.horizon - hold
+        if self.rate is None:
+            return -math.inf if spare >= 0 else math.inf
+        if self.kind == "overshoot":
+            return (self.current + self.relax_to - self.rate * spare) / 2
+        return max(self.current, self.relax_to) - self.rate * spare / 2
+
+    def leave_time(self, floor: float, hold: float) -> float:
+        """Year at which the control leaves the floor."""
+        return self._ramps(floor)[0] + hold
+
+    def descent(self, floor: float) -> ControlPath:
+        """The control path from year 0 down to the floor, then held there."""
+        down = self._ramps(floor)[0]
+        return ControlPath(np.array([0.0, down]), np.array([self.current, floor]))
+
+    def relaxation(self, floor: float) -> tuple[ControlPath, float]:
+        """The control path from the moment it leaves the floor (time 0 here), and its length."""
+        up = self._ramps(floor)[1]
+        return ControlPath(np.array([0.0, up]), np.array([floor, self.relax_to])), up
+
+    def schedule(self, floor: float, hold: float, name: str | None = None) -> Schedule:
+        """The scenario-file schedule for (floor, hold)."""
+        floor, hold = float(floor), float(hold)
+        down, up = self._ramps(floor)
+        if name is None:
+            name = f"{self.kind.capitalize()} to {floor:.{NAME_DIGITS}g}, held {hold:.2f} yr"
+        if self.kind == "overshoot":
+            return OvershootSchedule(
+                kind="overshoot",
+                name=name,
+                start=0.0,
+                floor=floor,
+                down_years=down,
+                hold_years=hold,
+                relax_to=self.relax_to,
+                up_years=up,
+            )
+        return StaircaseSchedule(
+            kind="staircase",
+            name=name,
+            start=0.0,
+            levels=[floor, self.relax_to],
+            step_years=down + hold,
+            ramp_years=down,
+        )
+
+    def time_below(self, threshold: float, floor: float, hold: float) -> float:
+        """Years the control spends below ``threshold`` (ramps included)."""
+        return self._ramps_below(threshold, floor) + hold
+
+    def _ramps_below(self, threshold: float, floor: float) -> float:
+        if floor >= threshold:
+            return 0.0
+        down, up = self._ramps(floor)
+        total = 0.0
+        for start, years in ((self.current, down), (self.relax_to, up)):
+            if years > 0 and start > floor:
+                total += years * min((threshold - floor) / (start - floor), 1.0)
+        return total
+
+
+def family_for(scenario: Scenario, kind: FamilyKind, relax_to: float) -> Family:
+    """The family of ``kind`` under the scenario's largest yearly change and horizon."""
+    return Family(
+        kind=kind,
+        current=scenario.current_control,
+        relax_to=float(relax_to),
+        rate=scenario.control.max_change_per_year,
+        horizon=scenario.simulation.horizon,
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# Fast verdicts
+
+
+class Verdicts:
+    """Recovered or not for (floor, hold) in one family, reusing one diagram and, per floor, one
+    integration of the descent (dense output) from which every hold branches off.
+
+    Equivalent to ``planner.outcomes.evaluate(...).recovered`` for the family's schedules: the
+    state is integrated to the time the control leaves the floor, then under the relaxation,
+    then with relax_to held until it settles; recovered means it settles on the desired
+    attractor at relax_to.
+    """
+
+    def __init__(self, scenario: Scenario, diagram: Diagram, family: Family):
+        self.scenario = scenario
+        self.diagram = diagram
+        self.family = family
+        self.system = scenario.system()
+        self.count = 0
+        self._descents: dict[float, Trajectory] = {}
+        self._basin = self._basin_1d()
+
+    def _basin_1d(self) -> tuple[float, tuple[float, ...]] | None:
+        """For a one-variable model: the desired attractor at relax_to and the unstable
+        equilibria there (the basin boundaries). A state then lies in the desired basin exactly
+        when no unstable equilibrium lies between it and the attractor, which decides the verdict
+        without waiting for the state to settle. None for n-D models (they settle)."""
+        if self.system.n != 1:
+            return None
+        u = self.family.relax_to
+        desired = self.diagram.desired_attractor(u)
+        if desired is None:
+            return None
+        unstable = tuple(float(e.state[0]) for e in self.diagram.equilibria_at(u) if not e.stable)
+        return float(desired.state[0]), unstable
+
+    def _recovers_from(self, x: np.ndarray) -> bool:
+        """The verdict for a state at the moment the control reaches relax_to (held after)."""
+        simulation = self.scenario.simulation
+        u = self.family.relax_to
+        if self._basin is not None:
+            desired, boundaries = self._basin
+            value = float(x[0])
+            if not np.isfinite(value) or abs(value) > simulation.state_limit:
+                return False
+            return not any((b - value) * (b - desired) <= 0 for b in boundaries)
+        end = settle(self.system, x, u, cap=simulation.settle_cap, limit=simulation.state_limit)
+        return end.status is Status.SETTLED and self.diagram.is_desired(end.state, u)
+
+    def _descent(self, floor: float) -> Trajectory:
+        if floor not in self._descents:
+            if len(self._descents) >= DESCENTS_KEPT:
+                self._descents.clear()
+            self._descents[floor] = integrate_path(
+                self.system,
+                self.scenario.initial_state,
+                self.family.descent(floor),
+                self.family.horizon,
+                limit=self.scenario.simulation.state_limit,
+            )
+        return self._descents[floor]
+
+    def __call__(self, floor: float, hold: float) -> bool:
+        """Whether the family's schedule (floor, hold) recovers (a hold that does not fit within
+        the horizon never counts as recovering)."""
+        family, simulation = self.family, self.scenario.simulation
+        if hold > family.max_hold(floor) + 1e-9 * family.horizon:
+            return False
+        self.count += 1
+        descent = self._descent(floor)
+        leave = min(family.leave_time(floor, hold), family.horizon)
+        if descent.status is not Status.FINISHED and descent.t_end < leave:
+            return False
+        x = np.asarray(descent.state_at(leave), dtype=float)
+        path, years = family.relaxation(floor)
+        if years > 0:
+            run = integrate_path(self.system, x, path, years, limit=simulation.state_limit)
+            if run.status is not Status.FINISHED:
+                return False
+            x = run.final_state
+        return self._recovers_from(x)
+
+
+def least_hold(verdicts: Verdicts, floor: float, *, upper: float | None = None) -> float | None:
+    """Least hold (years) at ``floor`` that recovers, to HOLD_TOLERANCE (the upper end of the
+    final bracket, so it recovers); None when no hold up to the horizon recovers.
+
+    ``upper``: a hold believed to recover (found at a shallower floor); checked before use.
+    """
+    family = verdicts.family
+    low, high = family.min_hold(floor), family.max_hold(floor)
+    if high < low:
+        return None
+    if verdicts(floor, low):
+        return low
+    if upper is not None and low < upper < high and verdicts(floor, upper):
+        high = upper
+    elif not verdicts(floor, high):
+        return None
+    while high - low > HOLD_TOLERANCE:
+        middle = 0.5 * (low + high)
+        if verdicts(floor, middle):
+            high = middle
+        else:
+            low = middle
+    return high
+
+
+def least_depth(
+    verdicts: Verdicts, threshold: float, hold: float, deepest: float
+) -> tuple[float | None, float]:
+    """Least depth below ``threshold`` (control units) that recovers with this hold (years), to
+    DEPTH_TOLERANCE of the range width; None when even ``deepest`` does not. Also returns the
+    deepest depth tried (it shrinks when deeper schedules would not fit within the horizon)."""
+    family = verdicts.family
+    deepest = min(deepest, threshold - family.lowest_floor(hold))
+    width = verdicts.scenario.control.range[1] - verdicts.scenario.control.range[0]
+    if deepest <= 0 or hold < family.min_hold(threshold - deepest):
+        return None, max(deepest, 0.0)
+    if not verdicts(threshold - deepest, hold):
+        return None, deepest
+    low, high = 0.0, deepest
+    while high - low > DEPTH_TOLERANCE * width:
+        middle = 0.5 * (low + high)
+        if verdicts(threshold - middle, hold):
+            high = middle
+        else:
+            low = middle
+    return high, deepest
+
+
+# ---------------------------------------------------------------------------------------------
+# The frontier
+
+
+@dataclass(frozen=True)
+class FrontierPoint:
+    """One depth (control units below the recovery threshold) and the least hold (years) that
+    recovers there; ``duration`` None when no hold that ends by the horizon recovers.
+    ``time_below`` adds the ramps' years below the threshold. ``achievable``: the floor is at or
+    above the lowest achievable control."""
+
+    depth: float
+    floor: float
+    duration: float | None
+    time_below: float | None
+    achievable: bool
+
+
+@dataclass(frozen=True)
+class ConversePoint:
+    """For a hold (years), the least depth (control units) that recovers, or None."""
+
+    duration: float
+    depth: float | None
+    floor: float | None
+
+
+@dataclass(frozen=True)
+class OwnSchedule:
+    """One of the scenario's own overshoot schedules placed on the frontier's axes."""
+
+    name: str
+    depth: float
+    duration: float
+    recovered: bool
+    verdict: str
+    feasible: bool
+    with_actions: bool
+
+
+@dataclass(frozen=True)
+class Frontier:
+    """The recovery frontier of one family of a scenario (depths in the control's unit, holds
+    in years), its converse, and the scenario's own overshoot schedules for reference."""
+
+    scenario_name: str
+    family: Family
+    recovery_threshold: float
+    lowest_achievable: float
+    unit: str
+    points: tuple[FrontierPoint, ...]
+    converse: tuple[ConversePoint, ...]
+    own: tuple[OwnSchedule, ...]
+    verdicts: int
+
+    @property
+    def relax_to(self) -> float:
+        return self.family.relax_to
+
+    @property
+    def deepest(self) -> float:
+        """The deepest achievable cut below the recovery threshold."""
+        return self.recovery_threshold - self.lowest_achievable
+
+
+def recovery_threshold_of(scenario: Scenario, diagram: Diagram, source: str) -> float:
+    """The recovery threshold, or an InputError saying why no overshoot can recover."""
+    threshold = diagram.recovery_threshold
+    if threshold is None:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    "model",
+                    f"the lake is {diagram.classification}: it has no recovery threshold, so "
+                    "there is no overshoot to plan",
+                )
+            ]
+        )
+    least = scenario.control.least
+    if threshold <= least:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    "control.range"
+                    if scenario.control.lowest_achievable is None
+                    else "control.lowest_achievable",
+                    f"the recovery threshold {threshold:.4g} lies at or below the lowest "
+                    f"achievable control {least:g}: no load cut alone recovers this lake "
+                    f"({diagram.classification}); consider in-lake actions",
+                )
+            ]
+        )
+    return float(threshold)
+
+
+def default_relax_to(scenario: Scenario, diagram: Diagram) -> float:
+    """The relax_to of the first overshoot schedule whose relax_to lies inside the bistable
+    window, else the middle of the window (within the control range)."""
+    low, high = scenario.control.range
+    recovery = diagram.recovery_threshold if diagram.recovery_threshold is not None else low
+    collapse = diagram.collapse_threshold if diagram.collapse_threshold is not None else high
+    for schedule in scenario.schedules:
+        if isinstance(schedule, OvershootSchedule) and recovery <= schedule.relax_to < collapse:
+            return float(schedule.relax_to)
+    return 0.5 * (max(recovery, low) + min(collapse, high))
+
+
+def checked_relax_to(
+    scenario: Scenario, diagram: Diagram, relax_to: float | None, source: str
+) -> float:
+    """relax_to, defaulted and checked: within the control range and the bistable window."""
+    value = default_relax_to(scenario, diagram) if relax_to is None else float(relax_to)
+    low, high = scenario.control.range
+    threshold = recovery_threshold_of(scenario, diagram, source)
+    if not (math.isfinite(value) and low <= value <= high):
+        reason = f"{value:g} lies outside the control range [{low:g}, {high:g}]"
+    elif value < threshold:
+        reason = (
+            f"{value:g} lies below the recovery threshold {threshold:.4g}: relaxing there "
+            "recovers with no overshoot at all; choose a value at or above it"
+        )
+    elif diagram.collapse_threshold is not None and value >= diagram.collapse_threshold:
+        reason = (
+            f"{value:g} lies at or above the collapse threshold "
+            f"{diagram.collapse_threshold:.4g}: the clear state is lost there whatever the "
+            "overshoot; choose a value below it"
+        )
+    else:
+        return value
+    raise InputError([Problem(source, "relax_to", reason)])
+
+
+def prepared(
+    scenario: Scenario,
+    diagram: Diagram | None,
+    relax_to: float | None,
+    families: Sequence[str],
+    source: str,
+    progress: Progress = silent,
+) -> tuple[Diagram, float, float]:
+    """Check the families, compute the diagram if not given, and return it with the recovery
+    threshold and the checked relax_to (InputError naming ``source`` otherwise)."""
+    for kind in families:
+        if kind not in FAMILY_KINDS:
+            raise InputError([Problem(source, "family", f"{kind!r} is not one of {FAMILY_KINDS}")])
+    if diagram is None:
+        diagram = diagram_for(scenario, progress=progress)
+    threshold = recovery_threshold_of(scenario, diagram, source)
+    return diagram, threshold, checked_relax_to(scenario, diagram, relax_to, source)
+
+
+def default_depths(scenario: Scenario, threshold: float, count: int = DEFAULT_DEPTHS) -> np.ndarray:
+    """``count`` depths spaced evenly in logarithm from SMALLEST_DEPTH of the range width to the
+    deepest achievable cut (the least hold changes fastest near the fold)."""
+    low, high = scenario.control.range
+    deepest = threshold - scenario.control.least
+    smallest = min(SMALLEST_DEPTH * (high - low), deepest / 10)
+    return np.geomspace(smallest, deepest, count)
+
+
+def _checked_depths(
+    scenario: Scenario, threshold: float, depths: Sequence[float], source: str
+) -> np.ndarray:
+    values = np.asarray(depths, dtype=float).reshape(-1)
+    bottom = scenario.control.range[0]
+    problems = []
+    if not 1 <= values.size <= MAX_DEPTHS:
+        problems.append(Problem(source, "depths", f"give between 1 and {MAX_DEPTHS} depths"))
+    for i, depth in enumerate(values):
+        if not (math.isfinite(depth) and depth > 0):
+            problems.append(Problem(source, f"depths.{i}", f"{depth:g} must be a positive number"))
+        elif threshold - depth < bottom:
+            problems.append(
+                Problem(
+                    source,
+                    f"depths.{i}",
+                    f"{depth:g} reaches below the control range: the deepest possible is "
+                    f"{threshold - bottom:.4g} (recovery threshold {threshold:.4g} minus the "
+                    f"range's lower end {bottom:g})",
+                )
+            )
+    if problems:
+        raise InputError(problems)
+    return np.sort(values)
+
+
+def _checked_durations(durations: Sequence[float], source: str) -> np.ndarray:
+    values = np.asarray(durations, dtype=float).reshape(-1)
+    problems = [
+        Problem(source, f"durations.{i}", f"{d:g} must be a number of years at least 0")
+        for i, d in enumerate(values)
+        if not (math.isfinite(d) and d >= 0)
+    ]
+    if values.size > MAX_DEPTHS:
+        problems.append(Problem(source, "durations", f"give at most {MAX_DEPTHS} durations"))
+    if problems:
+        raise InputError(problems)
+    return values
+
+
+def frontier_points(
+    verdicts: Verdicts,
+    threshold: float,
+    depths: np.ndarray,
+    *,
+    progress: Progress = silent,
+) -> list[FrontierPoint]:
+    """Least holds at the given depths (ascending). Shallow to deep, each found hold bounds the
+    next (a deeper cut needs no longer hold)."""
+    family, least = verdicts.family, verdicts.scenario.control.least
+    points: list[FrontierPoint] = []
+    previous: float | None = None
+    for i, depth in enumerate(depths):
+        floor = threshold - float(depth)
+        hold = least_hold(verdicts, floor, upper=previous)
+        if hold is not None:
+            previous = hold
+        points.append(
+            FrontierPoint(
+                depth=float(depth),
+                floor=floor,
+                duration=hold,
+                time_below=None if hold is None else family.time_below(threshold, floor, hold),
+                achievable=floor >= least - 1e-12 * max(1.0, abs(least)),
+            )
+        )
+        progress((i + 1) / len(depths), f"depth {depth:.3g}: least hold {_years(hold)}")
+    return points
+
+
+def _two_decimals(value: object) -> object:
+    """Years with two decimals for terminal tables (None stays None)."""
+    return f"{value:.2f}" if isinstance(value, float) else value
+
+
+def _years(value: float | None) -> str:
+    return "none within the horizon" if value is None else f"{value:.2f} yr"
+
+
+def own_overshoots(scenario: Scenario, diagram: Diagram, threshold: float) -> list[OwnSchedule]:
+    """The scenario's overshoot schedules with their depth, hold and verdict (from evaluate)."""
+    out = []
+    for schedule in scenario.schedules:
+        if not isinstance(schedule, OvershootSchedule):
+            continue
+        outcome = evaluate(scenario, diagram, schedule)
+        out.append(
+            OwnSchedule(
+                name=schedule.name,
+                depth=float(threshold - schedule.floor),
+                duration=float(schedule.hold_years),
+                recovered=outcome.recovered,
+                verdict=outcome.verdict.value,
+                feasible=outcome.feasible,
+                with_actions=bool(schedule.actions),
+            )
+        )
+    return out
+
+
+def recovery_frontier(
+    scenario: Scenario,
+    *,
+    diagram: Diagram | None = None,
+    relax_to: float | None = None,
+    depths: Sequence[float] | None = None,
+    durations: Sequence[float] = (),
+    family: FamilyKind = "overshoot",
+    own_schedules: bool = True,
+    source: str = "<scenario>",
+    progress: Progress = silent,
+) -> Frontier:
+    """The least hold (years) for each depth below the recovery threshold (control units), when
+    the control then relaxes to ``relax_to``; and for each of ``durations`` (years) the least
+    depth. Defaults: relax_to from ``default_relax_to``, depths from ``default_depths``.
+
+    User errors (no recovery threshold, relax_to or depths out of range) raise InputError naming
+    ``source``.
+    """
+    diagram, threshold, relax = prepared(
+        scenario, diagram, relax_to, (family,), source, scaled(progress, 0.0, 0.1)
+    )
+    chosen = (
+        default_depths(scenario, threshold)
+        if depths is None
+        else _checked_depths(scenario, threshold, depths, source)
+    )
+    holds = _checked_durations(durations, source)
+    verdicts = Verdicts(scenario, diagram, family_for(scenario, family, relax))
+    share = 0.8 if holds.size else 0.9
+    points = frontier_points(
+        verdicts, threshold, chosen, progress=scaled(progress, 0.1, 0.1 + share * 0.9)
+    )
+    converse = []
+    deepest = threshold - scenario.control.least
+    for i, hold in enumerate(holds):
+        depth, _ = least_depth(verdicts, threshold, float(hold), deepest)
+        converse.append(
+            ConversePoint(
+                duration=float(hold),
+                depth=depth,
+                floor=None if depth is None else threshold - depth,
+            )
+        )
+        progress(0.82 + 0.08 * (i + 1) / holds.size, f"hold {hold:g} yr: least depth")
+    own = own_overshoots(scenario, diagram, threshold) if own_schedules else []
+    progress(1.0, "done")
+    return Frontier(
+        scenario_name=scenario.name,
+        family=verdicts.family,
+        recovery_threshold=threshold,
+        lowest_achievable=scenario.control.least,
+        unit=scenario.control.unit,
+        points=tuple(points),
+        converse=tuple(converse),
+        own=tuple(own),
+        verdicts=verdicts.count,
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# Plain data for JSON, tables and text
+
+
+def frontier_json(frontier: Frontier) -> dict[str, Any]:
+    """The `planner frontier --json` object: recovery_threshold, relax_to and points (depth,
+    duration or null), plus the floor, the years below the threshold, the converse and the
+    scenario's own overshoot schedules."""
+    family = frontier.family
+    return {
+        "scenario": frontier.scenario_name,
+        "family": family.kind,
+        "unit": frontier.unit,
+        "recovery_threshold": frontier.recovery_threshold,
+        "relax_to": family.relax_to,
+        "lowest_achievable": frontier.lowest_achievable,
+        "largest_yearly_change": family.rate,
+        "horizon": family.horizon,
+        "tolerance_years": HOLD_TOLERANCE,
+        "points": [
+            {
+                "depth": p.depth,
+                "floor": p.floor,
+                "duration": p.duration,
+                "time_below_threshold": p.time_below,
+                "achievable": p.achievable,
+            }
+            for p in frontier.points
+        ],
+        "converse": [
+            {"duration": c.duration, "depth": c.depth, "floor": c.floor} for c in frontier.converse
+        ],
+        "own_schedules": [
+            {
+                "name": o.name,
+                "depth": o.depth,
+                "duration": o.duration,
+                "recovered": o.recovered,
+                "verdict": o.verdict,
+                "feasible": o.feasible,
+                "with_actions": o.with_actions,
+            }
+            for o in frontier.own
+        ],
+        "verdicts_computed": frontier.verdicts,
+    }
+
+
+def frontier_rows(frontier: Frontier) -> tuple[tuple[str, ...], list[list[object]]]:
+    """Table of the frontier: depth, floor, least hold, years below the threshold."""
+    unit = f" ({frontier.unit})" if frontier.unit else ""
+    header = (
+        f"depth{unit}",
+        f"floor{unit}",
+        "least hold (yr)",
+        "years below threshold",
+        "achievable",
+    )
+    rows = [
+        [p.depth, p.floor, p.duration, p.time_below, "yes" if p.achievable else "no"]
+        for p in frontier.points
+    ]
+    return header, rows
+
+
+def frontier_text(frontier: Frontier) -> str:
+    """A terminal summary of the frontier, its converse and the scenario's own overshoots."""
+    from planner.report import CAUTION, text_table
+
+    family = frontier.family
+    header, rows = frontier_rows(frontier)
+    unit = f" {frontier.unit}" if frontier.unit else ""
+    rate = (
+        "jumps (no yearly-change limit)"
+        if family.rate is None
+        else f"ramps at {family.rate:g}{unit} per year"
+    )
+    lines = [
+        f"Recovery frontier: {frontier.scenario_name}",
+        f"  recovery threshold {frontier.recovery_threshold:.4g}{unit}; the control relaxes to "
+        f"{family.relax_to:.4g}{unit} ({family.kind}, {rate}; horizon {family.horizon:g} yr)",
+        f"  least hold at the floor that recovers, to {HOLD_TOLERANCE:g} yr "
+        "('-': none within the horizon):",
+        "",
+        text_table(
+            header,
+            [[*row[:2], _two_decimals(row[2]), _two_decimals(row[3]), row[4]] for row in rows],
+        ),
+    ]
+    if frontier.converse:
+        lines += ["", "Least depth for a given hold:"]
+        rows = [[_two_decimals(c.duration), c.depth, c.floor] for c in frontier.converse]
+        lines.append(text_table(("hold (yr)", f"least depth{unit}", f"floor{unit}"), rows))
+    if frontier.own:
+        lines += ["", "The scenario's own overshoot schedules:"]
+        rows = [
+            [
+                o.name,
+                o.depth,
+                _two_decimals(o.duration),
+                o.verdict + (" (with in-lake actions)" if o.with_actions else ""),
+            ]
+            for o in frontier.own
+        ]
+        lines.append(text_table(("schedule", f"depth{unit}", "hold (yr)", "verdict"), rows))
+    lines += ["", CAUTION]
+    return "\n".join(lines)

@@ -1,0 +1,704 @@
+"""The web app without a browser: the factory, the layout, and each callback as a plain
+function (loading, editing, validation messages, saving, exports, background work)."""
+
+from __future__ import annotations
+
+import base64
+import importlib.util
+import json
+import re
+import shutil
+import subprocess
+import sys
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+from dash import no_update
+
+from planner.cli import main as cli_main
+from planner.errors import InputError
+from planner.report import CAUTION
+from planner.scenario import load_scenario
+from planner.scenario.io import MAX_SCENARIO_BYTES
+from webapp import compute, create_app, drafts, exports, files, ids
+from webapp.settings import Settings
+from webapp.views import diagram, editor, export, scenario_panel, side_by_side, sweep, table
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMOS = files.default_scenario_dir()
+ALDER = "alder-mere.toml"
+DEEP_CUT = 1  # "Deep cut to 0.6 for 6 years, relax to 1.5": an overshoot schedule
+
+
+# ---------------------------------------------------------------------------------------------
+# helpers
+
+
+@pytest.fixture
+def folders(tmp_path):
+    scenarios = tmp_path / "scenarios"
+    shutil.copytree(DEMOS, scenarios)
+    saved = tmp_path / "saved"
+    saved.mkdir()
+    return scenarios, saved
+
+
+@pytest.fixture
+def settings(folders, tmp_path):
+    scenarios, saved = folders
+    compute.use_disk(tmp_path / "cache" / "results")
+    yield Settings(
+        (files.Folder("Scenarios", scenarios), files.Folder("Saved", saved)), 1, tmp_path / "cache"
+    )
+    compute.use_disk(None)
+
+
+def draft_of(name: str = ALDER) -> dict:
+    return {"source": name, "data": compute.dump(load_scenario(DEMOS / name)), "serial": 1}
+
+
+def run_recompute(
+    draft: dict, edits: dict | None = None, working=None, action_edits: dict | None = None
+):
+    """Call the editor's recompute as Dash would after the user typed ``edits``."""
+    fields, actions = drafts.editor_values(draft["data"])
+    edits, action_edits = edits or {}, action_edits or {}
+    values = [edits.get((i["index"], i["field"]), text) for i, text in fields]
+    action_values = [
+        action_edits.get((i["index"], i["action"], i["field"]), text) for i, text in actions
+    ]
+    field_ids = [i for i, _ in fields]
+    action_ids = [i for i, _ in actions]
+    messages = [ids.field_message(i["index"], i["field"]) for i in field_ids]
+    action_messages = [ids.action_message(i["index"], i["action"], i["field"]) for i in action_ids]
+    schedule_messages = [ids.schedule_message(i) for i in range(len(draft["data"]["schedules"]))]
+    out = editor.recompute(
+        values,
+        action_values,
+        draft,
+        field_ids,
+        action_ids,
+        messages,
+        action_messages,
+        schedule_messages,
+        working,
+    )
+    names = (
+        "field_messages",
+        "action_messages",
+        "schedule_messages",
+        "field_classes",
+        "action_classes",
+        "working",
+        "status",
+        "pending",
+    )
+    result = dict(zip(names, out, strict=True))
+    result["message_ids"], result["action_message_ids"] = messages, action_messages
+    return result
+
+
+def result_texts(working, count: int) -> list[str]:
+    lines = editor.result_lines(working, None, [ids.schedule_result(i) for i in range(count)])
+    return [text_of(line) for line in lines]
+
+
+def text_of(component) -> str:
+    """All the text inside a Dash component tree."""
+    if component is None:
+        return ""
+    if isinstance(component, str | int | float):
+        return str(component)
+    if isinstance(component, list | tuple):
+        return " ".join(text_of(c) for c in component)
+    return text_of(getattr(component, "children", None))
+
+
+def upload_of(text: str | bytes) -> str:
+    raw = text.encode("utf-8") if isinstance(text, str) else text
+    return "data:application/octet-stream;base64," + base64.b64encode(raw).decode()
+
+
+class _Tags(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.tags: list[str] = []
+        self.doctype = ""
+
+    def handle_decl(self, decl):
+        self.doctype = decl
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+
+
+# ---------------------------------------------------------------------------------------------
+# factory and layout
+
+
+def test_planner_imports_no_dash():
+    """The core stays free of UI code: importing every planner module loads no dash."""
+    code = (
+        "import sys, planner, planner.cli, planner.figures, planner.briefing, planner.report, "
+        "planner.outcomes, planner.sweep\n"
+        "print(sorted(m for m in sys.modules if m == 'dash' or m.startswith('dash.')))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+
+
+def test_create_app_serves_a_page_with_the_caution(folders, tmp_path):
+    scenarios, saved = folders
+    app = create_app(scenarios, save_dir=saved, cache_dir=tmp_path / "cache")
+    client = app.server.test_client()
+    assert client.get("/").status_code == 200
+    layout = client.get("/_dash-layout").get_data(as_text=True)
+    assert json.dumps(CAUTION)[1:-1] in layout
+    options = files.picker_options(
+        [files.Folder("Scenarios", scenarios), files.Folder("Saved", saved)]
+    )
+    assert [o["value"] for o in options] == [
+        "0/alder-mere.toml",
+        "0/brellow-reservoir.toml",
+        "0/tarnby-water.toml",
+    ]
+    assert "Alder Mere" in options[0]["label"]
+    assert client.get("/assets/style.css").status_code == 200
+
+
+def test_create_app_defaults_to_the_bundled_demos():
+    app = create_app()
+    page = app.layout()
+    assert CAUTION in text_of(page.children)
+    picker = _find(page, ids.PICKER)
+    assert picker.value.endswith("/alder-mere.toml")
+
+
+def _find(component, ident):
+    if getattr(component, "id", None) == ident:
+        return component
+    children = getattr(component, "children", None)
+    for child in children if isinstance(children, list) else [children]:
+        if child is not None and not isinstance(child, str):
+            found = _find(child, ident)
+            if found is not None:
+                return found
+    return None
+
+
+def test_create_app_names_a_missing_folder(tmp_path):
+    with pytest.raises(InputError) as caught:
+        create_app(tmp_path / "nowhere")
+    assert caught.value.problems[0].field == "(folder)"
+    assert str(tmp_path / "nowhere") in str(caught.value)
+
+
+def test_cli_app_refuses_a_missing_folder(tmp_path, capsys):
+    assert cli_main(["app", str(tmp_path / "nowhere")]) == 2
+    assert "no such folder" in capsys.readouterr().err
+
+
+# ---------------------------------------------------------------------------------------------
+# loading and uploading
+
+
+def test_picking_a_demo_loads_it(settings):
+    store, message, _ = scenario_panel.load_scenario_choice(
+        "0/alder-mere.toml", None, None, None, settings=settings
+    )
+    assert store["source"] == ALDER and len(store["data"]["schedules"]) == 5
+    assert "Loaded alder-mere.toml" in text_of(message)
+
+
+def test_a_path_outside_the_listing_is_refused(settings):
+    store, message, _ = scenario_panel.load_scenario_choice(
+        "0/../../../etc/passwd", None, None, {"serial": 3}, settings=settings
+    )
+    assert store is no_update
+    assert "no such scenario" in text_of(message)
+
+
+def test_malformed_upload_names_the_field_and_keeps_the_scenario(settings):
+    text = (DEMOS / ALDER).read_text(encoding="utf-8").replace("floor = 0.6", 'floor = "deep"')
+    store, message, contents = scenario_panel.load_scenario_choice(
+        None, upload_of(text), "bad.toml", {"serial": 1}, settings=settings, trigger=ids.UPLOAD
+    )
+    assert store is no_update
+    assert "bad.toml: schedules.1.floor:" in text_of(message)
+    assert contents is None  # the upload box is cleared so the same file can be tried again
+
+
+def test_upload_messages_match_planner_check(tmp_path, settings, capsys):
+    text = (
+        (DEMOS / ALDER).read_text(encoding="utf-8").replace("hold_years = 6.0", "hold_years = -2")
+    )
+    bad = tmp_path / "bad.toml"
+    bad.write_text(text, encoding="utf-8")
+    assert cli_main(["check", str(bad)]) == 2
+    from_cli = [line.split(": ", 1)[1] for line in capsys.readouterr().err.splitlines()]
+    _, message, _ = scenario_panel.load_scenario_choice(
+        None, upload_of(text), "bad.toml", None, settings=settings, trigger=ids.UPLOAD
+    )
+    shown = [li.children.split(": ", 1)[1] for li in message.children[1].children]
+    assert shown == from_cli and any("schedules.1.hold_years" in line for line in shown)
+
+
+@pytest.mark.parametrize(
+    ("raw", "reason"),
+    [
+        (b"x" * (MAX_SCENARIO_BYTES + 1), f"larger than {MAX_SCENARIO_BYTES} bytes"),
+        (b"name = \xff\xfe", "not UTF-8 text"),
+        (b"name = [unclosed", "not valid TOML"),
+    ],
+)
+def test_bad_uploads_are_refused_with_a_reason(raw, reason):
+    with pytest.raises(InputError) as caught:
+        files.read_upload(upload_of(raw), "up.toml")
+    problem = caught.value.problems[0]
+    assert (problem.source, problem.field) == ("up.toml", "(file)")
+    assert reason in problem.reason
+
+
+def test_a_valid_upload_is_loaded(settings):
+    text = (DEMOS / "tarnby-water.toml").read_text(encoding="utf-8")
+    store, message, _ = scenario_panel.load_scenario_choice(
+        None, upload_of(text), "mine.toml", None, settings=settings, trigger=ids.UPLOAD
+    )
+    assert store["source"] == "mine.toml" and len(store["data"]["schedules"]) == 2
+    assert "Not saved yet" in text_of(message)
+
+
+# ---------------------------------------------------------------------------------------------
+# editing
+
+
+def test_editing_a_floor_changes_verdict_and_cost_and_only_that_schedule_is_simulated():
+    compute.clear()
+    draft = draft_of()
+    first = run_recompute(draft)
+    assert first["working"]["complete"] and not first["working"]["stale"]
+    before = result_texts(first["working"], 5)
+    counts = compute.counts()
+    second = run_recompute(draft, {(DEEP_CUT, "floor"): "1.3"}, working=first["working"])
+    after = result_texts(second["working"], 5)
+    assert (
+        compute.counts()["outcomes"] == counts["outcomes"] + 1
+    )  # the other four came from the cache
+    assert compute.counts()["diagrams"] == counts["diagrams"]  # a schedule edit keeps the diagram
+    assert second["working"]["data"]["schedules"][DEEP_CUT]["floor"] == 1.3
+    assert "recovers" in before[DEEP_CUT] and "stays in the undesired regime" in after[DEEP_CUT]
+    cost = lambda text: text.split("total cost ")[1].split(" EUR")[0]  # noqa: E731
+    assert cost(before[DEEP_CUT]) != cost(after[DEEP_CUT])
+    assert [b for i, b in enumerate(before) if i != DEEP_CUT] == [
+        a for i, a in enumerate(after) if i != DEEP_CUT
+    ]
+
+
+def test_a_value_that_is_not_a_number_is_named_beside_its_field():
+    draft = draft_of()
+    good = run_recompute(draft)["working"]
+    out = run_recompute(draft, {(DEEP_CUT, "floor"): "deep"}, working=good)
+    messages = dict(
+        zip(
+            (json.dumps(m, sort_keys=True) for m in out["message_ids"]),
+            out["field_messages"],
+            strict=True,
+        )
+    )
+    floor_message = messages[json.dumps(ids.field_message(DEEP_CUT, "floor"), sort_keys=True)]
+    assert floor_message.startswith("schedules.1.floor: ")
+    assert sum(bool(m) for m in out["field_messages"]) == 1
+    assert out["working"]["stale"] and out["working"]["data"] == good["data"]  # last valid kept
+    assert "1 value to fix" in text_of(out["status"])
+    invalid = [c for c in out["field_classes"] if "invalid" in c]
+    assert len(invalid) == 1
+
+
+def test_a_cross_field_rule_lands_on_its_field():
+    draft = draft_of()
+    out = run_recompute(draft, {(DEEP_CUT, "relax_to"): "0.3"}, working=None)
+    joined = " | ".join(out["field_messages"])
+    assert "schedules.1.relax_to: must be at least the floor 0.6" in joined
+
+
+def test_action_fields_are_editable_and_checked():
+    draft = draft_of()
+    bad = run_recompute(draft, action_edits={(3, 0, "parameter"): "L"})
+    assert any("schedules.3.actions.0.parameter" in m for m in bad["action_messages"])
+    good = run_recompute(draft, action_edits={(3, 0, "cost"): "900000"})
+    assert good["working"]["data"]["schedules"][3]["actions"][0]["cost"] == 900000.0
+
+
+def test_points_and_levels_are_typed_as_lists():
+    draft = draft_of()
+    out = run_recompute(draft, {(0, "points"): "0, 2.6; 4, 1.0", (2, "levels"): "2, 1, 0.5"})
+    schedules = out["working"]["data"]["schedules"]
+    assert schedules[0]["points"] == [[0.0, 2.6], [4.0, 1.0]]
+    assert schedules[2]["levels"] == [2.0, 1.0, 0.5]
+    broken = run_recompute(draft, {(0, "points"): "0, 2.6; 4"})
+    assert any(m.startswith("schedules.0.points.1") for m in broken["field_messages"])
+
+
+def test_add_duplicate_and_delete_keep_what_was_typed():
+    draft = draft_of()
+    fields, actions = drafts.editor_values(draft["data"])
+    values = [("1.3" if i == ids.schedule_field(DEEP_CUT, "floor") else text) for i, text in fields]
+    args = (
+        None,
+        None,
+        None,
+        "staircase",
+        draft,
+        values,
+        [i for i, _ in fields],
+        [t for _, t in actions],
+        [i for i, _ in actions],
+    )
+    cards, added = editor.restructure(*args, trigger=ids.ADD_BUTTON, trigger_value=1)
+    assert len(cards) == 6 and added["data"]["schedules"][-1]["kind"] == "staircase"
+    assert added["data"]["schedules"][DEEP_CUT]["floor"] == "1.3"  # kept as typed
+    assert (
+        run_recompute(added)["working"]["data"]["schedules"][-1]["name"] == "New staircase schedule"
+    )
+
+    copy = editor.restructure(*args, trigger=ids.schedule_button(0, "duplicate"), trigger_value=1)[
+        1
+    ]
+    names = [s["name"] for s in copy["data"]["schedules"]]
+    assert names[:2] == ["Cut to 1.2 and hold", "Cut to 1.2 and hold (copy)"]
+    assert not run_recompute(copy)["working"]["stale"]  # the copy's name keeps names unique
+
+    fewer = editor.restructure(*args, trigger=ids.schedule_button(0, "delete"), trigger_value=1)[1]
+    assert [s["name"] for s in fewer["data"]["schedules"]] == names[2:] and len(names) == 6
+
+    # A button just drawn reports n_clicks None: that is not a click.
+    assert editor.restructure(
+        *args, trigger=ids.schedule_button(0, "delete"), trigger_value=None
+    ) == (no_update, no_update)
+
+
+def test_new_schedules_are_valid_for_every_demo():
+    for path in files.scenario_files(DEMOS):
+        data = compute.dump(load_scenario(path))
+        for kind in drafts.SCHEDULE_KINDS:
+            data = drafts.add(data, kind)
+        scenario = compute.scenario_of(data)
+        assert [s.kind for s in scenario.schedules[-3:]] == list(drafts.SCHEDULE_KINDS)
+
+
+def test_many_schedules_go_to_the_background_worker(settings):
+    compute.clear()
+    draft = draft_of()
+    data = draft["data"]
+    for _ in range(editor.FAST_LIMIT):
+        data = drafts.duplicate(data, 1)
+    big = {**draft, "data": data}
+    out = run_recompute(big)
+    assert out["pending"]["key"] == out["working"]["key"] and not out["working"]["complete"]
+    assert "background" in text_of(out["status"])
+    assert compute.cached_comparison(compute.scenario_of(out["working"]["data"])) is None
+    reported = []
+    ready, status = editor.compare_in_background(
+        lambda value: reported.append(value), out["pending"]
+    )
+    assert ready["key"] == out["pending"]["key"]
+    assert reported and reported[-1][0] == "100"
+    compute._outcomes.clear()  # as in another process: results are read back from the disk
+    comparison = compute.cached_comparison(compute.scenario_of(out["working"]["data"]))
+    assert comparison is not None and len(comparison.outcomes) == len(data["schedules"])
+
+
+# ---------------------------------------------------------------------------------------------
+# views
+
+
+def test_diagram_shows_every_path_with_units_and_hides_unchosen_ones():
+    working = run_recompute(draft_of())["working"]
+    shown = ["Cut to 1.2 and hold"]
+    figure = diagram.draw(working, None, shown, ids.TAB_DIAGRAM)
+    assert (
+        "g P / m2 / yr" in figure.layout.xaxis.title.text
+        and "g P / m2" in figure.layout.yaxis.title.text
+    )
+    hidden = {t.legendgroup for t in figure.data if t.visible == "legendonly"}
+    assert "Deep cut to 0.6 for 6 years, relax to 1.5" in hidden and shown[0] not in hidden
+    assert diagram.draw(working, None, shown, ids.TAB_SERIES) is no_update  # not drawn off-screen
+    options, value = diagram.shown_choices(working, None, None)
+    assert value == [o["value"] for o in options] and len(value) == 5
+
+
+def test_summary_states_thresholds_from_the_planner():
+    working = run_recompute(draft_of())["working"]
+    scenario = compute.scenario_of(working["data"])
+    dia, _ = compute.diagram_of(scenario)
+    text = text_of(diagram.describe(working).children)
+    assert f"Recovery threshold {dia.recovery_threshold:.3g} g P / m2 / yr" in text
+    assert "Hysteretic" in text
+
+
+def test_table_has_the_planner_rows_and_sorts():
+    working = run_recompute(draft_of())["working"]
+    comparison = compute.comparison_of(compute.scenario_of(working["data"]))
+    header, rows = table.table_rows(comparison)
+    assert header[:3] == ["Schedule", "Verdict", "Recovered"]
+    assert "Total cost (EUR)" in header and "Overshoot depth (g P / m2 / yr)" in header
+    assert [r[2] for r in rows] == ["yes" if o.recovered else "no" for o in comparison.outcomes]
+    cost = header.index("Total cost (EUR)")
+    _, sort = table.fill(
+        working, None, None, None, trigger=ids.sort_button("Total cost (EUR)"), trigger_value=1
+    )
+    assert sort == {"column": "Total cost (EUR)", "descending": False}
+    _, again = table.fill(
+        working, None, None, sort, trigger=ids.sort_button("Total cost (EUR)"), trigger_value=1
+    )
+    assert again["descending"] is True
+    ordered = table.sorted_rows(rows, cost, descending=False)
+    assert [r[cost] for r in ordered] == sorted(r[cost] for r in rows)
+    meets = header.index("Meets target at (yr)")
+    for descending in (False, True):
+        column = [r[meets] for r in table.sorted_rows(rows, meets, descending)]
+        assert column[-1] is None  # not reached: always last
+
+
+def test_side_by_side_wants_two_to_four():
+    assert side_by_side.choice_problem(["a"]) == "Choose two to four schedules (1 chosen)."
+    assert side_by_side.choice_problem(["a", "b", "c", "d", "e"]) is not None
+    assert side_by_side.choice_problem(["a", "b"]) is None
+    working = run_recompute(draft_of())["working"]
+    options, value = side_by_side.choices(working, None, None)
+    assert len(options) == 5 and len(value) == 2
+    figure, message = side_by_side.draw(working, None, value, ids.TAB_SIDE)
+    assert message == "" and figure.layout.xaxis.title.text.endswith("(g P / m2 / yr)")
+
+
+def test_sweep_runs_with_progress_and_checks_its_step():
+    working = run_recompute(draft_of("tarnby-water.toml"))["working"]
+    reported = []
+    figure, summary, message = sweep.run_sweep(reported.append, 1, working, "0.1")
+    assert message == "" and "quasi-static sweep" in figure.layout.title.text
+    assert "Quasi-static sweep in steps of 0.1" in summary
+    assert reported and all(0 <= int(value) <= 100 for value, _ in reported)
+    _, _, refused = sweep.run_sweep(reported.append, 1, working, "-1")
+    assert refused.startswith("step: must be a positive number")
+
+
+# ---------------------------------------------------------------------------------------------
+# saving
+
+
+def test_save_as_writes_a_new_file_and_asks_before_overwriting(settings):
+    working = run_recompute(draft_of(), {(DEEP_CUT, "floor"): "1.3"})["working"]
+    message, style, _, pending, options, value = scenario_panel.save_as(
+        "my plan", working, None, settings=settings, trigger=ids.SAVE_BUTTON
+    )
+    target = settings.save_folder / "my plan.toml"
+    assert "Saved my plan.toml" in text_of(message) and value == "1/my plan.toml"
+    assert load_scenario(target).schedules[DEEP_CUT].floor == 1.3
+    assert any(o["value"] == value for o in options)
+    assert [p.name for p in settings.save_folder.iterdir()] == ["my plan.toml"]  # no temporary left
+    written = target.read_bytes()
+
+    changed = run_recompute(draft_of(), {(DEEP_CUT, "floor"): "0.8"})["working"]
+    out = scenario_panel.save_as(
+        "my plan.toml", changed, None, settings=settings, trigger=ids.SAVE_BUTTON
+    )
+    assert out[1]["display"] == "block" and "exists already" in out[2] and out[3] == "my plan.toml"
+    assert target.read_bytes() == written  # asked, not written
+
+    cancelled = scenario_panel.save_as(
+        "my plan.toml", changed, "my plan.toml", settings=settings, trigger=ids.SAVE_CANCEL
+    )
+    assert cancelled[3] is None and target.read_bytes() == written
+
+    done = scenario_panel.save_as(
+        "ignored", changed, "my plan.toml", settings=settings, trigger=ids.SAVE_OVERWRITE
+    )
+    assert "Saved my plan.toml" in text_of(done[0])
+    assert load_scenario(target).schedules[DEEP_CUT].floor == 0.8
+
+
+@pytest.mark.parametrize("name", ["", "../escape", "a/b", ".hidden", "x" * 90])
+def test_save_as_refuses_names_that_are_not_plain(settings, name):
+    working = run_recompute(draft_of())["working"]
+    message, *_ = scenario_panel.save_as(
+        name, working, None, settings=settings, trigger=ids.SAVE_BUTTON
+    )
+    assert "file name" in text_of(message) and "Not saved" in text_of(message)
+    assert list(settings.save_folder.iterdir()) == []
+
+
+def test_save_as_refuses_while_a_field_is_invalid(settings):
+    draft = draft_of()
+    good = run_recompute(draft)["working"]
+    stale = run_recompute(draft, {(DEEP_CUT, "floor"): "deep"}, working=good)["working"]
+    message, *_ = scenario_panel.save_as(
+        "x", stale, None, settings=settings, trigger=ids.SAVE_BUTTON
+    )
+    assert "nothing was written" in text_of(message)
+    assert list(settings.save_folder.iterdir()) == []
+
+
+# ---------------------------------------------------------------------------------------------
+# exports
+
+
+def test_briefing_export_is_a_whole_page_with_the_caution():
+    working = run_recompute(draft_of())["working"]
+    download, name = export.build_export("briefing", "html", working, None, None, None, ALDER)
+    assert name == "alder-mere-briefing.html" and download["type"] == "text/html"
+    tags = _Tags()
+    tags.feed(download["content"])
+    assert tags.doctype.lower() == "doctype html"
+    assert {"html", "head", "body", "table", "h1"} <= set(tags.tags)
+    assert CAUTION in download["content"]
+
+
+def test_table_exports_as_csv():
+    import csv
+
+    working = run_recompute(draft_of())["working"]
+    download, name = export.build_export("table", "csv", working, None, None, None, ALDER)
+    rows = list(csv.reader(download["content"].splitlines()))
+    assert name.endswith(".csv") and rows[0][:3] == ["Schedule", "Verdict", "Recovered"]
+    assert len(rows) == 6 and rows[2][0] == "Deep cut to 0.6 for 6 years, relax to 1.5"
+
+
+@pytest.mark.parametrize("what", ["diagram", "series", "side"])
+def test_figures_export_as_html_pages_with_the_caution(what):
+    working = run_recompute(draft_of())["working"]
+    side = ["Cut to 1.2 and hold", "Deep cut to 0.6 for 6 years, relax to 1.5"]
+    download, name = export.build_export(what, "html", working, None, side, None, ALDER)
+    assert name == f"alder-mere-{what}.html"
+    assert CAUTION in download["content"] and "plotly" in download["content"]
+
+
+def test_exports_refused_with_a_reason():
+    draft = draft_of()
+    good = run_recompute(draft)["working"]
+    stale = run_recompute(draft, {(DEEP_CUT, "floor"): "deep"}, working=good)["working"]
+    with pytest.raises(export.ExportRefusedError, match="fix the values"):
+        export.build_export("briefing", "html", stale, None, None, None, ALDER)
+    with pytest.raises(export.ExportRefusedError, match="run the sweep first"):
+        export.build_export("sweep", "png", good, None, None, {"data": []}, ALDER)
+    download, messages = export.on_export(
+        [1],
+        stale,
+        None,
+        None,
+        None,
+        [ids.export_message("briefing"), ids.export_message("diagram")],
+        trigger=ids.export_button("briefing", "html"),
+    )
+    assert download is no_update and messages[0].startswith("Not exported") and messages[1] == ""
+
+
+@pytest.mark.skipif(
+    not Path("/usr/lib/chromium/chromium").exists(), reason="PNG export needs Debian's chromium"
+)
+def test_png_export_through_the_system_chromium():
+    working = run_recompute(draft_of())["working"]
+    try:
+        download, name = export.build_export("diagram", "png", working, None, None, None, ALDER)
+    finally:
+        exports.stop_png_server()  # no export browser left running for later tests
+    assert name == "alder-mere-diagram.png" and download["base64"]
+    assert base64.b64decode(download["content"]).startswith(b"\x89PNG\r\n\x1a\n")
+
+
+# ---------------------------------------------------------------------------------------------
+# through Dash's own endpoint, as the load benchmark drives it
+
+
+def load_benchmark(name: str):
+    spec = importlib.util.spec_from_file_location(name, ROOT / "benchmarks" / f"{name}.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def test_the_recompute_endpoint_answers_the_load_benchmark_request(folders, tmp_path):
+    app_load = load_benchmark("app_load")
+    scenarios, _ = folders
+    app = create_app(scenarios, cache_dir=tmp_path / "cache")
+    body = app_load.recompute_body(
+        app_load.recompute_callback_id(app), draft_of(), {(DEEP_CUT, "floor"): "1.3"}
+    )
+    reply = app.server.test_client().post("/_dash-update-component", json=body)
+    assert reply.status_code == 200
+    response = reply.get_json()["response"]
+    assert response[ids.WORKING]["data"]["data"]["schedules"][DEEP_CUT]["floor"] == 1.3
+
+
+def test_a_failing_callback_shows_a_plain_line_not_a_traceback(folders, tmp_path):
+    app_load = load_benchmark("app_load")
+    scenarios, _ = folders
+    app = create_app(scenarios, cache_dir=tmp_path / "cache")
+    body = app_load.recompute_body(app_load.recompute_callback_id(app), draft_of(), {})
+    body["inputs"][2]["value"] = {"source": "x", "data": 5}  # a store no page could produce
+    reply = app.server.test_client().post("/_dash-update-component", json=body)
+    assert reply.status_code == 200
+    shown = reply.get_json()["sideUpdate"][ids.APP_ERROR]
+    assert "Your scenario and saved files are unchanged" in shown["children"]
+    assert "Traceback" not in reply.get_data(as_text=True)
+
+
+def test_views_never_import_the_app():
+    """Views get the app's ``callback`` when registering; none imports the app module."""
+    import ast
+
+    for path in (ROOT / "webapp" / "views").glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.ImportFrom) and node.module == "webapp":
+                assert not {a.name for a in node.names} & {"app", "create_app"}, path.name
+            elif isinstance(node, ast.ImportFrom):
+                assert node.module != "webapp.app", path.name
+            elif isinstance(node, ast.Import):
+                assert "webapp.app" not in {a.name for a in node.names}, path.name
+
+
+@pytest.mark.slow
+def test_two_worker_processes_serve_pages_and_recomputes(folders):
+    """``planner app --workers 2`` on loopback: page, page scripts and recompute are served by
+    whichever worker takes each connection (a worker that never rendered the page still serves
+    its scripts)."""
+    import http.client
+    import selectors
+
+    scenarios, _ = folders
+    code = (
+        "import sys\n"
+        "from webapp.serve import serve\n"
+        f"serve({str(scenarios)!r}, host='127.0.0.1', port=0, workers=2,"
+        " ready=lambda port: print(port, flush=True))\n"
+    )
+    server = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    try:
+        with selectors.DefaultSelector() as selector:
+            selector.register(server.stdout, selectors.EVENT_READ)
+            assert selector.select(timeout=60), "the server did not start within 60 s"
+        port = int(server.stdout.readline())
+        app_load = load_benchmark("app_load")
+        callback_id = app_load.recompute_callback_id(create_app(scenarios))
+        body = json.dumps(
+            app_load.recompute_body(callback_id, draft_of(), {(DEEP_CUT, "floor"): "1.3"})
+        )
+        statuses = []
+        for _ in range(6):  # several connections, so both workers take some
+            connection = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
+            connection.request("GET", "/")
+            page = connection.getresponse().read().decode()
+            script = re.search(r'src="(/_dash-component-suites/[^"]+)"', page).group(1)
+            connection.request("GET", script)
+            statuses.append(connection.getresponse().status)
+            connection.request(
+                "POST", "/_dash-update-component", body, {"Content-Type": "application/json"}
+            )
+            reply = connection.getresponse()
+            statuses.append(reply.status)
+            assert b'"floor":1.3' in reply.read()
+            connection.close()
+        assert statuses == [200] * 12
+    finally:
+        server.terminate()
+        server.wait(timeout=20)
