@@ -132,8 +132,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_INTERNAL
 
 
-if __name__ == "__main__":
-    sys.exit(main())
 
 
 @command("compare")
@@ -511,3 +509,7 @@ def _ensemble_command(sub: argparse._SubParsersAction) -> None:
 
 
 EXTENSIONS.append(_ensemble_command)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -826,7 +826,7 @@ def _plan(scenario: Scenario, diagram: Diagram, schedule: Schedule, per_year: fl
     path = make_control_path(schedule, current=scenario.current_control)
     timeline = action_timeline(schedule)
     final = float(path(horizon))
-    equilibria = [e.state for e in diagram.equilibria_at(final)]
+    equilibria = [e.state for e in diagram.desired_candidates(final)]
     control = scenario.control
     infeasible = check_limits(
         path,

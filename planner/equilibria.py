@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Literal
 
 import numpy as np
@@ -43,6 +44,7 @@ UPRIGHT_FLOOR = 1e-5
 COVER_DISTANCE = 2e-3
 NEGATIVE_MARGIN = 0.02  # scaled state allowed below zero for non-negative models
 SAME_POINT = 1e-7
+RUN_MATCH = 0.05  # scaled distance within which an equilibrium belongs to a traced run
 FOLD_NUDGE = 1e-3  # how far past a fold (fraction of the range width) the jump is probed
 
 Classification = Literal["reversible", "hysteretic", "irreversible"]
@@ -103,6 +105,15 @@ class StabilityChange:
     state: np.ndarray
     oscillatory: bool
     in_range: bool
+
+
+@dataclass(frozen=True)
+class StableRun:
+    """Stable equilibria between folds, sorted by control; ``undesired``: see stable_runs."""
+
+    controls: np.ndarray
+    states: np.ndarray  # (k, n)
+    undesired: bool
 
 
 @dataclass(frozen=True)
@@ -177,9 +188,58 @@ class Diagram:
             return None
         return np.array([brentq(f, a[0], b[0], xtol=1e-15, rtol=4 * np.finfo(float).eps)])
 
+    @cached_property
+    def stable_runs(self) -> list[StableRun]:
+        """Every run of stable equilibria, sorted by control, each flagged ``undesired`` when
+        somewhere along it another stable run lies lower (``regime`` "lowest") at the same
+        control: the turbid branch of a hysteretic lake stays turbid beyond the collapse
+        threshold, where it is the only equilibrium left."""
+        runs = []
+        for branch in self.branches:
+            for stable, part in branch.runs():
+                if stable and part.stop - part.start >= 2:
+                    order = np.argsort(branch.controls[part], kind="stable")
+                    runs.append((branch.controls[part][order], branch.states[part][order]))
+        sign = 1.0 if self.regime == "lowest" else -1.0
+        k = self.target_index
+        tolerance = 1e-9 * self.scale[k]
+        out = []
+        for i, (c, x) in enumerate(runs):
+            undesired = False
+            for j, (c2, x2) in enumerate(runs):
+                low, high = max(c[0], c2[0]), min(c[-1], c2[-1])
+                if i == j or not high > low:
+                    continue
+                probe = np.linspace(low, high, 7)[1:-1]
+                mine = np.interp(probe, c, x[:, k])
+                other = np.interp(probe, c2, x2[:, k])
+                undesired |= bool(np.any(sign * other < sign * mine - tolerance))
+            out.append(StableRun(c, x, undesired))
+        return out
+
+    def desired_candidates(self, u: float) -> list[Equilibrium]:
+        """Stable equilibria at ``u`` that do not lie on an undesired run."""
+        found = []
+        for e in self.equilibria_at(u):
+            if not e.stable:
+                continue
+            nearest, distance = None, np.inf
+            for run in self.stable_runs:
+                if run.controls[0] <= u <= run.controls[-1]:
+                    guess = np.array(
+                        [np.interp(u, run.controls, run.states[:, i]) for i in range(len(e.state))]
+                    )
+                    d = float(np.max(np.abs(guess - e.state) / self.scale[:-1]))
+                    if d < distance:
+                        nearest, distance = run, d
+            if nearest is None or distance > RUN_MATCH or not nearest.undesired:
+                found.append(e)
+        return found
+
     def desired_attractor(self, u: float) -> Equilibrium | None:
-        """The stable equilibrium at ``u`` with the lowest (or highest) target variable."""
-        stable = [e for e in self.equilibria_at(u) if e.stable]
+        """The stable equilibrium at ``u`` with the lowest (or highest) target variable, among
+        those not on an undesired run; None when only undesired states exist at ``u``."""
+        stable = self.desired_candidates(u)
         if not stable:
             return None
         sign = 1.0 if self.regime == "lowest" else -1.0

@@ -211,17 +211,20 @@ def _years_in_desired_basin(diagram: Diagram, trajectory: Trajectory) -> float |
     sign = 1.0 if diagram.regime == "lowest" else -1.0
     desired = np.full(len(u), np.inf)
     separatrices: list[np.ndarray] = []
+    for run in diagram.stable_runs:
+        inside = (u >= run.controls[0]) & (u <= run.controls[-1])
+        if not run.undesired:
+            value = np.interp(u, run.controls, run.states[:, 0])
+            desired = np.where(inside, np.minimum(desired, sign * value), desired)
     for branch in diagram.branches:
         for stable, part in branch.runs():
+            if stable:
+                continue
             c, values = branch.controls[part], branch.states[part, 0]
             order = np.argsort(c)
             c, values = c[order], values[order]
             inside = (u >= c[0]) & (u <= c[-1])
-            value = np.where(inside, np.interp(u, c, values), np.nan)
-            if stable:
-                desired = np.where(inside, np.minimum(desired, sign * value), desired)
-            else:
-                separatrices.append(value)
+            separatrices.append(np.where(inside, np.interp(u, c, values), np.nan))
     desired = sign * desired
     inside = np.isfinite(desired)
     for value in separatrices:

@@ -210,3 +210,30 @@ def test_compare_csv_and_briefing(tmp_path):
         and "screening tool" in text
         and "licensed professionals" in text
     )
+
+
+def test_relaxing_above_the_collapse_threshold_is_not_recovery():
+    """Above the collapse threshold only the turbid equilibrium of the recycling model exists
+    (the upper branch of the S-shaped curve; Carpenter, Ludwig & Brock 1999): a schedule that
+    ends there has not recovered, even though that equilibrium is the lowest one left. The
+    collapse fold is derived here from dL/dP = 0 with brentq."""
+    scenario = load_scenario(DEMO)
+    p = scenario.model.parameters
+    s, r, m, q = p["s"], p["r"], p["m"], p["q"]
+    slope = lambda x: s - r * q * m**q * x ** (q - 1) / (m**q + x**q) ** 2  # noqa: E731
+    x_fold = brentq(slope, 1.0, m)
+    collapse = s * x_fold - r * x_fold**q / (m**q + x_fold**q)
+    diagram = diagram_for(scenario)
+    schedule = OvershootSchedule(
+        kind="overshoot",
+        name="back up",
+        start=0.0,
+        floor=0.5,
+        down_years=5.0,
+        hold_years=6.0,
+        relax_to=collapse + 0.5,
+        up_years=8.0,
+    )
+    assert evaluate(scenario, diagram, schedule).verdict is Verdict.NOT_RECOVERED
+    assert diagram.desired_attractor(collapse + 0.5) is None
+    assert diagram.desired_attractor(collapse - 0.5) is not None
