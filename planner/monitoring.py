@@ -21,11 +21,11 @@ import io
 import os
 import re
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 
 from planner.errors import InputError, Problem
+from planner.textfiles import read_user_text
 
 MAX_RECORD_BYTES = 5_000_000
 MAX_PROBLEMS = 20  # report at most this many cell problems, then say how many more there were
@@ -107,19 +107,8 @@ def same_unit(a: str, b: str) -> bool:
 
 def read_record(path: str | os.PathLike[str], *, time_column: str | None = None) -> Record:
     """Read and check a monitoring CSV file (see the module docstring for the layout)."""
-    path = Path(path)
-    source = str(path)
-    try:
-        if path.stat().st_size > MAX_RECORD_BYTES:
-            raise InputError([Problem(source, "(file)", f"larger than {MAX_RECORD_BYTES} bytes")])
-        raw = path.read_bytes()
-    except OSError as error:
-        raise InputError([Problem(source, "(file)", f"cannot read: {error.strerror}")]) from None
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
-    return parse_record(text, source, time_column=time_column)
+    text = read_user_text(path, MAX_RECORD_BYTES, encoding="utf-8-sig")
+    return parse_record(text, str(path), time_column=time_column)
 
 
 def parse_record(text: str, source: str = "<text>", *, time_column: str | None = None) -> Record:

@@ -15,6 +15,7 @@ from planner.errors import InputError, Problem
 from planner.scenario.root import Scenario
 from planner.scenario.schedule_blocks import ACTION_KINDS, SCHEDULE_KINDS
 from planner.scenario.uncertainty import PRIOR_KINDS
+from planner.textfiles import read_user_text
 
 MAX_SCENARIO_BYTES = 1_000_000
 _TAGS = {
@@ -76,20 +77,8 @@ def parse_scenario(text: str, source: str = "<text>") -> Scenario:
 
 def load_scenario(path: str | os.PathLike[str]) -> Scenario:
     """Read and validate a scenario file."""
-    path = Path(path)
-    source = str(path)
-    try:
-        size = path.stat().st_size
-        if size > MAX_SCENARIO_BYTES:
-            raise InputError([Problem(source, "(file)", f"larger than {MAX_SCENARIO_BYTES} bytes")])
-        raw = path.read_bytes()
-    except OSError as error:
-        raise InputError([Problem(source, "(file)", f"cannot read: {error.strerror}")]) from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
-    return parse_scenario(text, source)
+    text = read_user_text(path, MAX_SCENARIO_BYTES)
+    return parse_scenario(text, str(path))
 
 
 def scenario_to_toml(scenario: Scenario) -> str:
