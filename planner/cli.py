@@ -132,8 +132,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_INTERNAL
 
 
-
-
 @command("compare")
 def _compare(args: argparse.Namespace) -> int:
     from planner.briefing import comparison_briefing

@@ -251,3 +251,23 @@ def schedule_costs(
             path, measures, baseline=baseline, horizon=horizon, currency=costs.currency, unit=unit
         ),
     )
+
+
+def scenario_costs(
+    scenario, path: ControlPath, timeline, not_meeting_target: Sequence[tuple[float, float]] = ()
+) -> CostBreakdown:
+    """Costs of a control path and its actions under a scenario's cost block (zeros when it has
+    none); reductions are measured from ``costs.baseline`` or else the current control."""
+    horizon = scenario.simulation.horizon
+    costs = scenario.costs
+    if costs is None:
+        return no_costs(horizon)
+    return schedule_costs(
+        path,
+        costs,
+        baseline=scenario.current_control if costs.baseline is None else costs.baseline,
+        horizon=horizon,
+        one_off=timeline.one_off_costs,
+        not_meeting_target=not_meeting_target,
+        unit=scenario.control.unit,
+    )

@@ -60,7 +60,7 @@ from typing import Any
 import numpy as np
 from scipy.special import ndtri
 
-from planner.costs import schedule_costs
+from planner.costs import scenario_costs
 from planner.equilibria import Diagram, diagram_for
 from planner.errors import InputError, Problem
 from planner.models import System
@@ -835,20 +835,10 @@ def _plan(scenario: Scenario, diagram: Diagram, schedule: Schedule, per_year: fl
         max_change_per_year=control.max_change_per_year,
         unit=control.unit,
     )
-    planned = 0.0
-    costs = scenario.costs
-    if costs is not None:
-        breakdown = schedule_costs(
-            path,
-            costs,
-            baseline=scenario.current_control if costs.baseline is None else costs.baseline,
-            horizon=horizon,
-            one_off=timeline.one_off_costs,
-            unit=control.unit,
-        )
-        planned = breakdown.present_value
-        if infeasible is None:
-            infeasible = breakdown.infeasible
+    breakdown = scenario_costs(scenario, path, timeline)
+    planned = breakdown.present_value
+    if infeasible is None:
+        infeasible = breakdown.infeasible
     return _Plan(
         noise_key=zlib.crc32(schedule.name.encode("utf-8")),
         name=schedule.name,

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planner.costs import CostBreakdown, no_costs, schedule_costs
+from planner.costs import CostBreakdown, scenario_costs
 from planner.equilibria import Diagram, diagram_for
 from planner.progress import Progress, scaled, silent
 from planner.scenario import Scenario, Schedule
@@ -157,21 +157,10 @@ def evaluate(
         max_change_per_year=control.max_change_per_year,
         unit=control.unit,
     )
-    costs = scenario.costs
-    if costs is None:
-        cost = no_costs(horizon)
-    else:
-        cost = schedule_costs(
-            path,
-            costs,
-            baseline=scenario.current_control if costs.baseline is None else costs.baseline,
-            horizon=horizon,
-            one_off=timeline.one_off_costs,
-            not_meeting_target=not_meeting if scenario.target.threshold is not None else (),
-            unit=control.unit,
-        )
-        if infeasible is None and cost.infeasible is not None:
-            infeasible = cost.infeasible
+    met_or_not = not_meeting if scenario.target.threshold is not None else ()
+    cost = scenario_costs(scenario, path, timeline, met_or_not)
+    if infeasible is None and cost.infeasible is not None:
+        infeasible = cost.infeasible
     progress(1.0, "done")
     return ScheduleOutcome(
         name=schedule.name,
