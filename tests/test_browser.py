@@ -263,3 +263,13 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     )
     expect(page.locator(f"#{ids.SWEEP_SUMMARY}")).to_contain_text("jump while dialling")
     shot("sweep")
+
+    # The ensemble runs in the background with a progress bar, then draws the chance by year.
+    page.get_by_text("Uncertainty", exact=True).click()
+    page.locator(f"#{ids.ENSEMBLE_MEMBERS}").fill("100")
+    page.locator(f"#{ids.ENSEMBLE_RUN}").click()
+    expect(page.locator(f"#{ids.ENSEMBLE_GRAPH} .gtitle")).to_contain_text(
+        "chance of meeting the target", timeout=30_000
+    )
+    expect(page.locator(f"#{ids.ENSEMBLE_TABLE} td").first).to_be_visible()
+    shot("ensemble")

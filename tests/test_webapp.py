@@ -23,7 +23,18 @@ from planner.scenario import load_scenario
 from planner.scenario.io import MAX_SCENARIO_BYTES
 from webapp import compute, create_app, drafts, exports, files, ids
 from webapp.settings import Settings
-from webapp.views import diagram, editor, export, scenario_panel, side_by_side, sweep, table
+from webapp.views import data as data_view
+from webapp.views import (
+    diagram,
+    editor,
+    export,
+    scenario_panel,
+    side_by_side,
+    sweep,
+    table,
+)
+from webapp.views import ensemble as ensemble_view
+from webapp.views import frontier as frontier_view
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMOS = files.default_scenario_dir()
@@ -481,6 +492,105 @@ def test_sweep_runs_with_progress_and_checks_its_step():
     assert reported and all(0 <= int(value) <= 100 for value, _ in reported)
     _, _, refused = sweep.run_sweep(reported.append, 1, working, "-1")
     assert refused.startswith("step: must be a positive number")
+
+
+# ---------------------------------------------------------------------------------------------
+# recovery frontier, uncertainty and monitoring data
+
+
+def test_the_new_tabs_are_in_the_layout():
+    tabs = _find(create_app().layout(), ids.TABS)
+    labels = {tab.value: tab.label for tab in tabs.children}
+    assert labels[ids.TAB_FRONTIER] == "Recovery frontier"
+    assert labels[ids.TAB_ENSEMBLE] == "Uncertainty"
+    assert labels[ids.TAB_DATA] == "Monitoring data"
+
+
+def test_frontier_view_draws_the_frontier_and_explains_an_irreversible_lake():
+    """The view shows the planner's frontier for a hysteretic lake and, for a lake whose
+    recovery threshold lies below the lowest achievable load, the planner's own InputError
+    reason inline (DESIGN.md section 8: Tarnby Water is irreversible)."""
+    from planner.frontier import recovery_frontier
+
+    working = run_recompute(draft_of())["working"]
+    reported = []
+    depths = [0.1, 0.3, 0.5]
+    figure, message = frontier_view.run_frontier(reported.append, 1, working, depths)
+    assert message == "" and len(figure.data) > 0
+    assert reported and all(0 <= int(value) <= 100 for value, _ in reported)
+    expected = recovery_frontier(compute.scenario_of(working["data"]), depths=depths)
+    drawn = [y for trace in figure.data for y in (trace.y or ())]
+    assert any(
+        p.duration is not None and any(abs(p.duration - y) < 1e-12 for y in drawn if y)
+        for p in expected.points
+    )
+    tarnby = run_recompute(draft_of("tarnby-water.toml"))["working"]
+    _, refused = frontier_view.run_frontier(reported.append, 1, tarnby, [0.1])
+    assert "irreversible" in refused and "Traceback" not in refused
+
+
+def test_add_found_appends_a_schedule_with_a_unique_name():
+    working = run_recompute(draft_of())["working"]
+    found = {**working["data"]["schedules"][DEEP_CUT], "name": "Cheapest found: deep cut"}
+    loaded = {"source": ALDER, "serial": 4}
+    store, message = frontier_view.add_found(1, working, loaded, found)
+    names = [s["name"] for s in store["data"]["schedules"]]
+    assert len(names) == 6 and names[-1] == "Cheapest found: deep cut"
+    assert store["serial"] == 5 and store["source"] == ALDER and "Added" in message
+    again = run_recompute({**store, "serial": 6})["working"]
+    second, _ = frontier_view.add_found(1, again, store, found)
+    assert second["data"]["schedules"][-1]["name"] == "Cheapest found: deep cut (2)"
+    assert frontier_view.add_found(1, working, loaded, None)[0] is no_update
+
+
+def test_ensemble_view_shows_the_planners_table_and_fans():
+    """The table shown is the planner's ``ensemble_rows`` for the same members and seed (runs
+    are bit-identical for a given seed, planner.ensemble docstring)."""
+    from planner.ensemble import run_ensemble
+    from planner.ensemble_report import ensemble_rows
+
+    working = run_recompute(draft_of())["working"]
+    reported = []
+    figure, fans, names, chosen, table_div, message = ensemble_view.run(
+        reported.append, 1, working, "50"
+    )
+    assert message == "" and len(figure.data) > 0 and reported
+    assert set(fans) == set(names) and chosen == names[0] and len(names) == 5
+    header, rows = ensemble_rows(run_ensemble(compute.scenario_of(working["data"]), members=50))
+    assert (
+        text_of(table_div).split()
+        == text_of([*header, *(str(c) for row in rows for c in row)]).split()
+    )
+    assert len(ensemble_view.fan(names[1], fans).data) > 0
+    refused = ensemble_view.run(reported.append, 1, working, "0")
+    assert refused[0] is no_update and refused[-1].startswith("members: must be a whole number")
+    assert ensemble_view.members_of("", compute.scenario_of(working["data"])) == 2000
+
+
+def test_ensemble_view_explains_a_scenario_without_uncertainty():
+    working = run_recompute(draft_of("tarnby-water.toml"))["working"]
+    *_, message = ensemble_view.run(lambda _: None, 1, working, "3")
+    assert message == ensemble_view.NO_UNCERTAINTY
+    scenario = compute.scenario_of(working["data"])
+    assert ensemble_view.members_of(" ", scenario) == ensemble_view.DEFAULT_MEMBERS
+
+
+def test_data_view_fits_the_demo_record_and_names_a_bad_cell():
+    record = ROOT / "scenarios" / "data" / "alder-mere-monitoring.csv"
+    text = record.read_text(encoding="utf-8")
+    working = run_recompute(draft_of())["working"]
+    reported = []
+    fit_fig, diagram_fig, summary, message = data_view.run_fit(
+        reported.append, upload_of(text), record.name, working
+    )
+    assert message == "" and len(fit_fig.data) > 0 and len(diagram_fig.data) > 0
+    assert record.name in summary and reported
+    bad = text.replace("1977,1.482,1.074", "1977,1.482,cloudy")
+    *_, problems = data_view.run_fit(reported.append, upload_of(bad), "bad.csv", working)
+    line = text_of(problems)
+    assert line.startswith("bad.csv: row 7, column TP:") and "Traceback" not in line
+    with pytest.raises(InputError, match="larger than"):
+        data_view.read_record_upload(upload_of(b"x" * (data_view.MAX_UPLOAD_BYTES + 1)), "big.csv")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -26,9 +26,12 @@ from webapp import compute, files, ids
 from webapp.settings import Settings
 from webapp.views import (
     VIEWS,
+    data,
     diagram,
     editor,
+    ensemble,
     export,
+    frontier,
     scenario_panel,
     series,
     side_by_side,
@@ -96,6 +99,15 @@ def page(settings: Settings) -> html.Div:
                         label="Side by side", value=ids.TAB_SIDE, children=side_by_side.layout()
                     ),
                     dcc.Tab(label="Slow sweep", value=ids.TAB_SWEEP, children=sweep.layout()),
+                    dcc.Tab(
+                        label="Recovery frontier",
+                        value=ids.TAB_FRONTIER,
+                        children=frontier.layout(),
+                    ),
+                    dcc.Tab(
+                        label="Uncertainty", value=ids.TAB_ENSEMBLE, children=ensemble.layout()
+                    ),
+                    dcc.Tab(label="Monitoring data", value=ids.TAB_DATA, children=data.layout()),
                 ],
                 className="result-tabs",
             ),

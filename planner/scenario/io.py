@@ -40,7 +40,7 @@ def field_path(loc: tuple[str | int, ...]) -> str:
     for element in loc:
         is_tag = element in _TAGS and (previous == "model" or isinstance(previous, int))
         if not is_tag:
-            parts.append(str(element))
+            parts.append(str(element) or '""')  # an empty key still needs a visible name
         previous = element
     return ".".join(parts) or "(top level)"
 

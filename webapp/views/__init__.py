@@ -3,9 +3,12 @@ which registers its callbacks through the ``dash.callback``-style function it is
 app's own), so views never import the app."""
 
 from webapp.views import (
+    data,
     diagram,
     editor,
+    ensemble,
     export,
+    frontier,
     scenario_panel,
     series,
     side_by_side,
@@ -13,6 +16,18 @@ from webapp.views import (
     table,
 )
 
-VIEWS = (scenario_panel, editor, diagram, series, table, side_by_side, sweep, export)
+VIEWS = (
+    scenario_panel,
+    editor,
+    diagram,
+    series,
+    table,
+    side_by_side,
+    sweep,
+    frontier,
+    ensemble,
+    data,
+    export,
+)
 
 __all__ = ["VIEWS"]

@@ -1,0 +1,146 @@
+"""Monitoring data: upload a CSV record of loads and lake measurements (checked by
+``planner.monitoring.parse_record``), fit the working scenario's model to it
+(``planner.calibration.fit_record``, without the bootstrap so it stays quick) in a background
+worker with a progress bar, and show the fit over time and the fitted lake's diagram with the
+thresholds' intervals."""
+
+from __future__ import annotations
+
+import base64
+import binascii
+
+from dash import Input, Output, State, dcc, html, no_update
+
+from planner.errors import InputError, Problem
+from planner.figures import fit_figure, fit_hysteresis_figure
+from planner.monitoring import MAX_RECORD_BYTES, Record, parse_record
+from planner.scenario.io import MAX_SCENARIO_BYTES
+from webapp import compute, ids
+from webapp.settings import Settings
+from webapp.views.common import placeholder_figure, working_scenario
+
+SHOWN = {"display": "flex"}
+HIDDEN = {"display": "none"}
+# The app refuses requests above 8 x MAX_SCENARIO_BYTES (create_app); a record's base64 text
+# (4/3 of the file) must fit inside that with room to spare.
+MAX_UPLOAD_BYTES = min(MAX_RECORD_BYTES, 4 * MAX_SCENARIO_BYTES)
+
+
+def layout() -> html.Div:
+    megabytes = MAX_UPLOAD_BYTES / 1e6
+    return html.Div(
+        [
+            html.P(
+                "Fit the scenario's model to a monitoring record (CSV: a year column, the load "
+                "and the measured lake variables, with units in brackets in the header).",
+                className="hint",
+            ),
+            dcc.Upload(
+                id=ids.DATA_UPLOAD,
+                children=html.Div(
+                    [
+                        "Upload a monitoring record: drop it here or ",
+                        html.Span("choose a file", className="link-like"),
+                        f" (CSV, up to {megabytes:g} MB)",
+                    ]
+                ),
+                accept=".csv,text/csv,text/plain",
+                max_size=MAX_UPLOAD_BYTES,
+                multiple=False,
+                className="upload-box",
+            ),
+            html.Div(
+                [
+                    html.Label(
+                        "Fit progress", htmlFor=ids.DATA_PROGRESS, className="progress-label"
+                    ),
+                    html.Progress(id=ids.DATA_PROGRESS, value="0", max="100"),
+                    html.Span(id=ids.DATA_PROGRESS_TEXT, className="progress-text"),
+                ],
+                id=ids.DATA_PROGRESS_BOX,
+                className="progress-box",
+                style=HIDDEN,
+            ),
+            html.Div(id=ids.DATA_MESSAGE, className="message-area", role="alert"),
+            dcc.Graph(
+                id=ids.DATA_FIT_GRAPH,
+                figure=placeholder_figure("Upload a record to see the fit"),
+                config={"displaylogo": False},
+            ),
+            dcc.Graph(
+                id=ids.DATA_DIAGRAM_GRAPH,
+                figure=placeholder_figure("Upload a record to see the fitted thresholds"),
+                config={"displaylogo": False},
+            ),
+            html.Pre(id=ids.DATA_SUMMARY, className="sweep-summary"),
+        ]
+    )
+
+
+def read_record_upload(contents: str, filename: str | None) -> Record:
+    """An uploaded CSV (a base64 data URL), size-capped, checked by the planner."""
+    source = filename or "uploaded record"
+    _, _, payload = str(contents).partition(",")
+    if len(payload) > 4 * (MAX_UPLOAD_BYTES // 3 + 2):
+        raise InputError([Problem(source, "(file)", f"larger than {MAX_UPLOAD_BYTES} bytes")])
+    try:
+        raw = base64.b64decode(payload, validate=True)
+    except (binascii.Error, ValueError):
+        raise InputError(
+            [Problem(source, "(file)", "could not be read (not a file upload)")]
+        ) from None
+    if len(raw) > MAX_UPLOAD_BYTES:
+        raise InputError([Problem(source, "(file)", f"larger than {MAX_UPLOAD_BYTES} bytes")])
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
+    return parse_record(text, source)
+
+
+def problem_lines(error: InputError) -> html.Ul:
+    """One line per problem: file, row and column, reason."""
+    return html.Ul(
+        [html.Li(f"{p.source}: {p.field}: {p.reason}") for p in error.problems],
+        className="problem-list",
+    )
+
+
+def run_fit(set_progress, contents, filename, working):
+    """Background worker -> (fit figure, diagram figure, summary, message)."""
+    if not contents:
+        return no_update, no_update, no_update, ""
+    scenario = working_scenario(working)
+    if scenario is None:
+        return no_update, no_update, no_update, "Choose a scenario first."
+    from planner.calibration import fit_record, fit_text, observations_for
+
+    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
+    try:
+        record = read_record_upload(contents, filename)
+        observations = observations_for(record, scenario)
+        fit = fit_record(scenario, observations, bootstrap=0, progress=report)
+    except InputError as error:
+        blank = placeholder_figure("No fit: see the message above")
+        return blank, blank, "", problem_lines(error)
+    figure = fit_figure(fit)
+    diagram = fit_hysteresis_figure(fit)
+    return figure, diagram, fit_text(fit, caution=False), ""
+
+
+def register(callback, settings: Settings) -> None:
+    callback(
+        Output(ids.DATA_FIT_GRAPH, "figure"),
+        Output(ids.DATA_DIAGRAM_GRAPH, "figure"),
+        Output(ids.DATA_SUMMARY, "children"),
+        Output(ids.DATA_MESSAGE, "children"),
+        Input(ids.DATA_UPLOAD, "contents"),
+        State(ids.DATA_UPLOAD, "filename"),
+        State(ids.WORKING, "data"),
+        background=True,
+        interval=400,
+        progress=[Output(ids.DATA_PROGRESS, "value"), Output(ids.DATA_PROGRESS_TEXT, "children")],
+        progress_default=["0", ""],
+        running=[(Output(ids.DATA_PROGRESS_BOX, "style"), SHOWN, HIDDEN)],
+        prevent_initial_call=True,
+    )(run_fit)

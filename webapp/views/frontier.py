@@ -1,0 +1,211 @@
+"""Recovery frontier and cheapest schedule: the least hold for each overshoot depth
+(``planner.frontier.recovery_frontier``) and the search for the cheapest recovering schedule
+(``planner.search.search``), both run by a background worker with a progress bar; the schedule
+found can be appended to the scenario so the editor and the table show it."""
+
+from __future__ import annotations
+
+from dash import Input, Output, State, dcc, html, no_update
+
+from planner.errors import InputError
+from planner.figures import frontier_figure, pareto_figure
+from webapp import compute, ids
+from webapp.settings import Settings
+from webapp.views.common import money, placeholder_figure, working_scenario
+
+SHOWN = {"display": "flex"}
+HIDDEN = {"display": "none"}
+
+
+def _problems(error: InputError) -> str:
+    return "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
+
+
+def _progress_box(box: str, bar: str, text: str, label: str) -> html.Div:
+    return html.Div(
+        [
+            html.Label(label, htmlFor=bar, className="progress-label"),
+            html.Progress(id=bar, value="0", max="100"),
+            html.Span(id=text, className="progress-text"),
+        ],
+        id=box,
+        className="progress-box",
+        style=HIDDEN,
+    )
+
+
+def _graph(graph_id: str, text: str) -> dcc.Graph:
+    return dcc.Graph(id=graph_id, figure=placeholder_figure(text), config={"displaylogo": False})
+
+
+def layout() -> html.Div:
+    return html.Div(
+        [
+            html.P(
+                "How far below the recovery threshold, and for how long, must the load go for "
+                "the lake to recover once it relaxes again? And which such schedule is cheapest?",
+                className="hint",
+            ),
+            html.Div(
+                [
+                    html.Button(
+                        "Draw the frontier", id=ids.FRONTIER_RUN, className="button primary"
+                    ),
+                    html.Button(
+                        "Find cheapest schedule", id=ids.SEARCH_RUN, className="button primary"
+                    ),
+                ],
+                className="inline-row",
+            ),
+            _progress_box(
+                ids.FRONTIER_PROGRESS_BOX,
+                ids.FRONTIER_PROGRESS,
+                ids.FRONTIER_PROGRESS_TEXT,
+                "Frontier progress",
+            ),
+            html.Div(id=ids.FRONTIER_MESSAGE, className="message-area", role="alert"),
+            _graph(ids.FRONTIER_GRAPH, "Draw the frontier to see the least hold for each depth"),
+            _progress_box(
+                ids.SEARCH_PROGRESS_BOX, ids.SEARCH_PROGRESS, ids.SEARCH_PROGRESS_TEXT, "Search"
+            ),
+            html.Div(id=ids.SEARCH_MESSAGE, className="message-area", role="alert"),
+            _graph(ids.SEARCH_GRAPH, "Find the cheapest schedule to see cost against time"),
+            html.P(id=ids.SEARCH_SUMMARY, className="hint"),
+            html.Div(
+                [
+                    html.Button(
+                        "Add to comparison", id=ids.SEARCH_ADD, className="button", disabled=True
+                    ),
+                    html.Span(id=ids.SEARCH_ADD_MESSAGE, className="export-message", role="status"),
+                ],
+                className="inline-row",
+            ),
+            dcc.Store(id=ids.SEARCH_FOUND),
+        ]
+    )
+
+
+def _reporter(set_progress):
+    return compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
+
+
+def run_frontier(set_progress, _clicks, working, depths=None):
+    """Background worker -> (figure, message). ``depths`` (control units) only for tests."""
+    scenario = working_scenario(working)
+    if scenario is None:
+        return no_update, "Choose a scenario first."
+    from planner.frontier import recovery_frontier
+
+    diagram, _ = compute.diagram_of(scenario)
+    try:
+        frontier = recovery_frontier(
+            scenario, diagram=diagram, depths=depths, progress=_reporter(set_progress)
+        )
+    except InputError as error:
+        return placeholder_figure("No frontier for this scenario"), _problems(error)
+    figure = frontier_figure(scenario, frontier)
+    figure.update_layout(height=520)
+    return figure, ""
+
+
+def found_text(result, candidate, currency: str) -> str:
+    """One line about the cheapest schedule found (every number from the search)."""
+    meets = candidate.meets_target_at
+    when = "does not meet the target" if meets is None else f"meets the target at {meets:.3g} yr"
+    return (
+        f"Cheapest found: {candidate.schedule.name} ({candidate.family}, floor "
+        f"{candidate.floor:.3g} {result.unit}, hold {candidate.hold:.3g} yr): present value "
+        f"{money(candidate.present_value, currency)}, {when}."
+    )
+
+
+def run_search(set_progress, _clicks, working):
+    """Background worker -> (figure, summary, found schedule data, add disabled, message)."""
+    scenario = working_scenario(working)
+    if scenario is None:
+        return no_update, no_update, no_update, no_update, "Choose a scenario first."
+    from planner.search import found_schedule, search
+
+    diagram, _ = compute.diagram_of(scenario)
+    try:
+        result = search(scenario, diagram=diagram, progress=_reporter(set_progress))
+    except InputError as error:
+        return placeholder_figure("No search for this scenario"), "", None, True, _problems(error)
+    figure = pareto_figure(scenario, result)
+    figure.update_layout(height=520)
+    if result.cheapest is None:
+        return figure, "No admissible schedule was found.", None, True, ""
+    schedule = found_schedule(scenario, result.cheapest)
+    summary = found_text(result, result.cheapest, result.currency)
+    return figure, summary, schedule.model_dump(mode="json"), False, ""
+
+
+def add_found(_clicks, working, loaded, found):
+    """Append the found schedule to the working scenario -> (loaded store, message)."""
+    scenario = working_scenario(working)
+    if scenario is None or not found:
+        return no_update, "Find the cheapest schedule first."
+    from planner.search import unique_name, with_schedule
+
+    named = {**found, "name": unique_name(scenario, found["name"])}
+    data = compute.dump(scenario)
+    try:
+        schedule = compute.scenario_of({**data, "schedules": [named]}).schedules[0]
+        new = with_schedule(scenario, schedule, "<editor>")
+    except InputError as error:
+        return no_update, _problems(error)
+    serial = (loaded or {}).get("serial", 0) + 1
+    source = (loaded or {}).get("source", working.get("source", "<editor>"))
+    store = {"source": source, "data": compute.dump(new), "serial": serial}
+    return store, f"Added “{named['name']}” to the comparison (not saved yet)."
+
+
+def register(callback, settings: Settings) -> None:
+    callback(
+        Output(ids.FRONTIER_GRAPH, "figure"),
+        Output(ids.FRONTIER_MESSAGE, "children"),
+        Input(ids.FRONTIER_RUN, "n_clicks"),
+        State(ids.WORKING, "data"),
+        background=True,
+        interval=400,
+        progress=[
+            Output(ids.FRONTIER_PROGRESS, "value"),
+            Output(ids.FRONTIER_PROGRESS_TEXT, "children"),
+        ],
+        progress_default=["0", ""],
+        running=[
+            (Output(ids.FRONTIER_RUN, "disabled"), True, False),
+            (Output(ids.FRONTIER_PROGRESS_BOX, "style"), SHOWN, HIDDEN),
+        ],
+        prevent_initial_call=True,
+    )(run_frontier)
+    callback(
+        Output(ids.SEARCH_GRAPH, "figure"),
+        Output(ids.SEARCH_SUMMARY, "children"),
+        Output(ids.SEARCH_FOUND, "data"),
+        Output(ids.SEARCH_ADD, "disabled"),
+        Output(ids.SEARCH_MESSAGE, "children"),
+        Input(ids.SEARCH_RUN, "n_clicks"),
+        State(ids.WORKING, "data"),
+        background=True,
+        interval=400,
+        progress=[
+            Output(ids.SEARCH_PROGRESS, "value"),
+            Output(ids.SEARCH_PROGRESS_TEXT, "children"),
+        ],
+        progress_default=["0", ""],
+        running=[
+            (Output(ids.SEARCH_RUN, "disabled"), True, False),
+            (Output(ids.SEARCH_PROGRESS_BOX, "style"), SHOWN, HIDDEN),
+        ],
+        prevent_initial_call=True,
+    )(run_search)
+    callback(
+        Output(ids.LOADED, "data", allow_duplicate=True),
+        Output(ids.SEARCH_ADD_MESSAGE, "children"),
+        Input(ids.SEARCH_ADD, "n_clicks"),
+        State(ids.WORKING, "data"),
+        State(ids.LOADED, "data"),
+        State(ids.SEARCH_FOUND, "data"),
+        prevent_initial_call=True,
+    )(add_found)
