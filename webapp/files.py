@@ -90,26 +90,32 @@ def read_choice(folders: list[Folder], value: str) -> tuple[str, Scenario]:
     return path.name, load_scenario(path)
 
 
-def read_upload(contents: str, filename: str | None) -> Scenario:
-    """Validate an uploaded file (a base64 data URL), size-capped, with ``planner check``'s
-    messages (``file: field: reason``)."""
-    source = filename or "uploaded file"
+def upload_text(contents: str, source: str, limit: int, *, encoding: str = "utf-8") -> str:
+    """The text of an uploaded file (a base64 data URL), refused above ``limit`` bytes or when
+    it is not text; problems name the file."""
     _, _, payload = str(contents).partition(",")
-    if len(payload) > 4 * (MAX_SCENARIO_BYTES // 3 + 2):
-        raise InputError([Problem(source, "(file)", f"larger than {MAX_SCENARIO_BYTES} bytes")])
+    too_large = Problem(source, "(file)", f"larger than {limit} bytes")
+    if len(payload) > 4 * (limit // 3 + 2):
+        raise InputError([too_large])
     try:
         raw = base64.b64decode(payload, validate=True)
     except (binascii.Error, ValueError):
         raise InputError(
             [Problem(source, "(file)", "could not be read (not a file upload)")]
         ) from None
-    if len(raw) > MAX_SCENARIO_BYTES:
-        raise InputError([Problem(source, "(file)", f"larger than {MAX_SCENARIO_BYTES} bytes")])
+    if len(raw) > limit:
+        raise InputError([too_large])
     try:
-        text = raw.decode("utf-8")
+        return raw.decode(encoding)
     except UnicodeDecodeError:
         raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
-    return parse_scenario(text, source)
+
+
+def read_upload(contents: str, filename: str | None) -> Scenario:
+    """Validate an uploaded scenario, size-capped, with ``planner check``'s messages
+    (``file: field: reason``)."""
+    source = filename or "uploaded file"
+    return parse_scenario(upload_text(contents, source, MAX_SCENARIO_BYTES), source)
 
 
 def save_name(text: str | None) -> str:

@@ -6,16 +6,14 @@ thresholds' intervals."""
 
 from __future__ import annotations
 
-import base64
-import binascii
-
 from dash import Input, Output, State, dcc, html, no_update
 
-from planner.errors import InputError, Problem
+from planner.errors import InputError
 from planner.figures import fit_figure, fit_hysteresis_figure
 from planner.monitoring import MAX_RECORD_BYTES, Record, parse_record
 from planner.scenario.io import MAX_SCENARIO_BYTES
 from webapp import compute, ids
+from webapp.files import upload_text
 from webapp.settings import Settings
 from webapp.views.common import placeholder_figure, working_scenario
 
@@ -80,21 +78,7 @@ def layout() -> html.Div:
 def read_record_upload(contents: str, filename: str | None) -> Record:
     """An uploaded CSV (a base64 data URL), size-capped, checked by the planner."""
     source = filename or "uploaded record"
-    _, _, payload = str(contents).partition(",")
-    if len(payload) > 4 * (MAX_UPLOAD_BYTES // 3 + 2):
-        raise InputError([Problem(source, "(file)", f"larger than {MAX_UPLOAD_BYTES} bytes")])
-    try:
-        raw = base64.b64decode(payload, validate=True)
-    except (binascii.Error, ValueError):
-        raise InputError(
-            [Problem(source, "(file)", "could not be read (not a file upload)")]
-        ) from None
-    if len(raw) > MAX_UPLOAD_BYTES:
-        raise InputError([Problem(source, "(file)", f"larger than {MAX_UPLOAD_BYTES} bytes")])
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
+    text = upload_text(contents, source, MAX_UPLOAD_BYTES, encoding="utf-8-sig")
     return parse_record(text, source)
 
 
