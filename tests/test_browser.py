@@ -39,7 +39,7 @@ CHROMIUM_ARGS = [
     "--disable-dev-shm-usage",
     "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost, EXCLUDE 127.0.0.1",
 ]
-TIMEOUT_MS = 10_000
+TIMEOUT_MS = 30_000  # generous: CI shares two cores between the server, Chromium and pytest
 
 pytestmark = [
     pytest.mark.browser,
