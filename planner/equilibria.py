@@ -38,12 +38,10 @@ PREDICTOR_ERROR = 5e-4  # target distance between predicted and corrected point
 CORRECTOR_ITERATIONS = 8
 CORRECTOR_TOL = 1e-10
 MAX_POINTS = 20000
-FOLD_TOL = 1e-10
 UPRIGHT_STEP = 0.05
 UPRIGHT_FLOOR = 1e-5
 COVER_DISTANCE = 2e-3
 NEGATIVE_MARGIN = 0.02  # scaled state allowed below zero for non-negative models
-SAME_POINT = 1e-7
 RUN_MATCH = 0.05  # scaled distance within which an equilibrium belongs to a traced run
 FOLD_NUDGE = 1e-3  # how far past a fold (fraction of the range width) the jump is probed
 

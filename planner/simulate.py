@@ -20,7 +20,6 @@ from planner.models import System
 
 RTOL = 1e-8
 METHOD = "LSODA"
-ATOL_FRACTION = 1e-12  # absolute tolerance per variable, times that variable's scale
 SETTLED_RATE = 1e-9  # |dx/dt| / scale (per year) below which the state counts as settled
 SCALE_FLOOR = 1e-6
 
