@@ -5,11 +5,12 @@ The CLI prints these and the web app shows them; neither computes anything itsel
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
+if TYPE_CHECKING:  # `planner check` prints from here and must not load the numerical stack
+    import numpy as np
 
-from planner.equilibria import Branch, Diagram, Standing
+    from planner.equilibria import Branch, Diagram, Standing
 
 CAUTION = (
     "Caution: this is a screening tool. Results are estimates from simplified models of "
@@ -27,6 +28,8 @@ def clipped_runs(
     branch: Branch, low: float, high: float
 ) -> list[tuple[bool, np.ndarray, np.ndarray]]:
     """Runs of equal stability cut to the control range, with interpolated end points."""
+    import numpy as np
+
     pieces = []
     for stable, part in branch.runs():
         controls, states = branch.controls[part], branch.states[part]
@@ -200,7 +203,7 @@ def check_text(scenario, source: str) -> str:
     lines = [
         f"{source}: valid",
         f"  name:      {scenario.name}",
-        f"  model:     {scenario.spec.kind} ({', '.join(scenario.spec.variables)})",
+        f"  model:     {scenario.model_info.kind} ({', '.join(scenario.model_info.variables)})",
         f"  control:   {control.parameter} = {scenario.current_control:g} {control.unit}, "
         f"range [{control.range[0]:g}, {control.range[1]:g}]",
         f"  target:    {scenario.target.regime} {scenario.target.variable}"

@@ -162,3 +162,21 @@ def test_importing_planner_does_not_import_dash():
         [sys.executable, "-c", code], capture_output=True, text=True, timeout=120, check=True
     )
     assert result.stdout.strip() == "False"
+
+
+@pytest.mark.parametrize("path", sorted(SCENARIOS.glob("*.toml")), ids=lambda p: p.stem)
+def test_check_loads_no_numerical_or_plotting_stack(path):
+    """`planner check` only validates: sympy, the scipy solvers, pandas, plotly and dash take
+    most of a second to load and must stay out of it (built-in models carry plain metadata)."""
+    heavy = ("sympy", "scipy.optimize", "scipy.integrate", "pandas", "plotly", "dash")
+    code = (
+        "import sys, planner.cli; "
+        f"status = planner.cli.main(['check', {str(path)!r}]); "
+        f"print(status, [name for name in {heavy!r} if name in sys.modules])"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=120, check=True
+    )
+    lines = result.stdout.strip().splitlines()
+    assert lines[0] == f"{path}: valid"
+    assert lines[-1] == "0 []"

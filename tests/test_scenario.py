@@ -4,15 +4,20 @@ and no malformed scenario gets past validation as anything but an InputError."""
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
+import pickle
 import tomllib
+from collections.abc import Mapping
 from pathlib import Path
 
 import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
+from pydantic import ValidationError
 
 from planner.errors import InputError
+from planner.models import BUILTIN_INFO, ModelInfo
 from planner.scenario import (
     Scenario,
     load_scenario,
@@ -87,6 +92,197 @@ def test_formula_scenario_round_trips():
     scenario = parse_scenario(FORMULA_SCENARIO, "formula.toml")
     assert scenario.spec.variables == ("x",)
     assert parse_scenario(scenario_to_toml(scenario)) == scenario
+
+
+def _metadata(spec) -> ModelInfo:
+    """The plain part of a model spec (what validation uses), without the equations."""
+    return ModelInfo(**{f.name: getattr(spec, f.name) for f in dataclasses.fields(ModelInfo)})
+
+
+@pytest.mark.parametrize("kind", sorted(BUILTIN_INFO))
+def test_builtin_metadata_is_the_compiled_models(kind):
+    """Files are validated against plain metadata; it must describe the equations exactly."""
+    scenario = next(s for s in map(load_scenario, DEMOS) if s.model.kind == kind)
+    spec = scenario.spec
+    assert _metadata(spec) == scenario.model_info == BUILTIN_INFO[kind]
+    assert len(spec.equations) == len(spec.variables)
+    used = {str(symbol) for equation in spec.equations for symbol in equation.free_symbols}
+    assert used == {*spec.variables, *spec.parameter_names}
+
+
+def test_formula_metadata_is_the_parsed_models():
+    scenario = parse_scenario(FORMULA_SCENARIO, "formula.toml")
+    assert _metadata(scenario.spec) == scenario.model_info
+    assert scenario.model_info.parameter_names == ("a", "b")
+
+
+# --------------------------------------------------------------------------------------------
+# scenarios are immutable (the web app shares one object between requests)
+
+
+def _alder() -> Scenario:
+    return load_scenario(SCENARIOS / "alder-mere.toml")
+
+
+def _append_schedule(scenario):
+    scenario.schedules.append(scenario.schedules[0])
+
+
+def _set_parameter(scenario):
+    scenario.model.parameters["L"] = 3.0
+
+
+def _delete_parameter(scenario):
+    del scenario.model.parameters["L"]
+
+
+def _set_range_end(scenario):
+    scenario.control.range[0] = 0.5
+
+
+def _append_point(scenario):
+    scenario.schedules[0].points.append((9.0, 1.0))
+
+
+def _set_point(scenario):
+    scenario.schedules[0].points[0] = (0.0, 1.0)
+
+
+def _set_point_value(scenario):
+    scenario.schedules[0].points[0][1] = 1.0
+
+
+def _set_level(scenario):
+    scenario.schedules[2].levels[0] = 1.0
+
+
+def _append_action(scenario):
+    scenario.schedules[3].actions.append(scenario.schedules[3].actions[0])
+
+
+def _set_state(scenario):
+    scenario.state["P"] = 1.0
+
+
+def _update_state_units(scenario):
+    scenario.state_units.update(P="kg")  # a Mapping has no update
+
+
+def _append_measure(scenario):
+    scenario.costs.measures.append(scenario.costs.measures[0])
+
+
+def _append_prior(scenario):
+    scenario.uncertainty.priors.append(scenario.uncertainty.priors[0])
+
+
+def _set_process_noise(scenario):
+    scenario.uncertainty.process_noise["P"] = 1.0
+
+
+def _replace_the_items_behind_a_mapping(scenario):
+    scenario.model.parameters._items = {"L": 3.0}
+
+
+def _assign_a_field(scenario):
+    scenario.schedules = ()
+
+
+def _assign_a_nested_field(scenario):
+    scenario.schedules[0].points = ((0.0, 1.0),)
+
+
+@pytest.mark.parametrize(
+    ("mutation", "error"),
+    [
+        (_append_schedule, AttributeError),
+        (_set_parameter, TypeError),
+        (_delete_parameter, TypeError),
+        (_set_range_end, TypeError),
+        (_append_point, AttributeError),
+        (_set_point, TypeError),
+        (_set_point_value, TypeError),
+        (_set_level, TypeError),
+        (_append_action, AttributeError),
+        (_set_state, TypeError),
+        (_update_state_units, AttributeError),
+        (_append_measure, AttributeError),
+        (_append_prior, AttributeError),
+        (_set_process_noise, TypeError),
+        (_replace_the_items_behind_a_mapping, AttributeError),
+        (_assign_a_field, ValidationError),
+        (_assign_a_nested_field, ValidationError),
+    ],
+    ids=lambda value: value.__name__.strip("_") if callable(value) else None,
+)
+def test_a_loaded_scenario_cannot_be_changed(mutation, error):
+    scenario = _alder()
+    assert scenario.schedules[0].kind == "path"
+    assert scenario.schedules[2].kind == "staircase"
+    assert scenario.schedules[3].actions
+    assert scenario.costs.measures and scenario.uncertainty.priors
+    with pytest.raises(error):
+        mutation(scenario)
+    assert scenario == _alder()
+
+
+def test_read_only_mappings_compare_equal_to_dicts():
+    scenario = _alder()
+    data = _data("alder-mere.toml")
+    assert isinstance(scenario.model.parameters, Mapping)
+    assert scenario.model.parameters == data["model"]["parameters"]
+    assert data["state"] == scenario.state
+    assert {**scenario.model.parameters, "L": 1.0}["L"] == 1.0
+
+
+@pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
+def test_model_dump_is_plain_data_and_round_trips(path):
+    scenario = load_scenario(path)
+    for mode in ("python", "json"):
+        data = scenario.model_dump(mode=mode)
+        assert Scenario.model_validate(data) == scenario
+        assert type(data["schedules"]) is list
+        assert type(data["state"]) is dict
+        assert type(data["model"]["parameters"]) is dict
+        assert all(type(schedule["actions"]) is list for schedule in data["schedules"])
+        if scenario.costs is not None:
+            assert type(data["costs"]["measures"]) is list
+        if scenario.uncertainty is not None:
+            assert type(data["uncertainty"]["priors"]) is list
+            assert type(data["uncertainty"]["process_noise"]) is dict
+    written = _data(path.name)["schedules"]
+    dumped = scenario.model_dump(mode="json")["schedules"]
+    for as_written, as_dumped in zip(written, dumped, strict=True):
+        if as_written["kind"] == "path":
+            assert as_dumped["points"] == as_written["points"]  # lists of [time, value] lists
+
+
+def test_formula_model_equations_are_read_only_and_dump_as_a_dict():
+    scenario = parse_scenario(FORMULA_SCENARIO, "formula.toml")
+    with pytest.raises(TypeError):
+        scenario.model.equations["x"] = "x"
+    assert scenario.model.model_dump()["equations"] == {"x": "a - b*x + x**2/(1 + x**2)"}
+
+
+def test_model_copy_freezes_what_it_is_given():
+    """model_copy skips validation; lists and dicts handed to it are frozen all the same."""
+    scenario = _alder()
+    model = scenario.model.model_copy(update={"parameters": {**scenario.model.parameters, "s": 1}})
+    schedule = scenario.schedules[0].model_copy(update={"points": [[0.0, 2.0], [3.0, 1.0]]})
+    copied = scenario.model_copy(update={"model": model, "schedules": [schedule]})
+    assert copied.model.parameters["s"] == 1
+    assert copied.schedules[0].points == ((0.0, 2.0), (3.0, 1.0))
+    for mutation in (_set_parameter, _append_schedule, _append_point, _set_point_value):
+        with pytest.raises((TypeError, AttributeError)):
+            mutation(copied)
+
+
+@pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
+def test_scenarios_pickle_and_deep_copy(path):
+    """Ensemble workers receive scenarios pickled; the web app caches objects that hold them."""
+    scenario = load_scenario(path)
+    assert pickle.loads(pickle.dumps(scenario)) == scenario
+    assert copy.deepcopy(scenario) == scenario
 
 
 # --------------------------------------------------------------------------------------------

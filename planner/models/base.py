@@ -1,10 +1,11 @@
 """Model specifications as sympy expressions, compiled once to vectorised numpy functions.
 
-Every model, built-in or written by the user as formulas, is a :class:`ModelSpec`: state
-variables, parameters and one sympy right-hand side per variable. :func:`compile_model` turns a
-spec plus the name of the control parameter into numpy functions for the right-hand side, its
-Jacobian in the state and its derivative in the control; :class:`System` binds parameter values
-and is what every numerical routine (continuation, integration, ensembles) calls.
+Every model, built-in or written by the user as formulas, is a :class:`ModelSpec`: its plain
+metadata (:class:`~planner.models.info.ModelInfo`: state variables, parameters) plus one sympy
+right-hand side per variable. :func:`compile_model` turns a spec plus the name of the control
+parameter into numpy functions for the right-hand side, its Jacobian in the state and its
+derivative in the control; :class:`System` binds parameter values and is what every numerical
+routine (continuation, integration, ensembles) calls.
 """
 
 from __future__ import annotations
@@ -16,54 +17,27 @@ from functools import cache, cached_property
 import numpy as np
 import sympy
 
+from planner.models.info import ModelInfo, ParameterInfo
+
+__all__ = ["CompiledModel", "ModelInfo", "ModelSpec", "ParameterInfo", "System", "compile_model"]
+
 Array = np.ndarray
 ZERO_STATE = 1e-300
 
 
 @dataclass(frozen=True)
-class ParameterInfo:
-    """What a parameter means and which values are physical.
-
-    ``lower`` is the smallest allowed value (None: no bound); ``strict`` makes it exclusive.
-    """
-
-    name: str
-    meaning: str = ""
-    lower: float | None = None
-    strict: bool = False
-
-    def violation(self, value: float) -> str | None:
-        """Return why ``value`` is not physical for this parameter, or None when it is."""
-        if self.lower is None:
-            return None
-        if self.strict and not value > self.lower:
-            return f"must be greater than {self.lower:g} ({self.meaning or self.name})"
-        if not self.strict and not value >= self.lower:
-            return f"must be at least {self.lower:g} ({self.meaning or self.name})"
-        return None
-
-
-@dataclass(frozen=True)
-class ModelSpec:
+class ModelSpec(ModelInfo):
     """A model as symbolic equations: d(variable)/dt = equation, for each variable in order."""
 
-    kind: str
-    variables: tuple[str, ...]
-    parameters: tuple[ParameterInfo, ...]
-    equations: tuple[sympy.Expr, ...]
-    nonnegative_state: bool = False
-    source: str = ""
-    variable_meanings: tuple[str, ...] = field(default=())
+    equations: tuple[sympy.Expr, ...] = field(kw_only=True)
 
-    @property
-    def parameter_names(self) -> tuple[str, ...]:
-        return tuple(p.name for p in self.parameters)
-
-    def parameter_info(self, name: str) -> ParameterInfo:
-        for info in self.parameters:
-            if info.name == name:
-                return info
-        raise KeyError(name)
+    @classmethod
+    def from_info(cls, info: ModelInfo, equations: Sequence[sympy.Expr]) -> ModelSpec:
+        """The spec of a model whose metadata is ``info``, with one equation per variable."""
+        if len(equations) != len(info.variables):
+            raise ValueError(f"{len(info.variables)} variables but {len(equations)} equations")
+        plain = {name: getattr(info, name) for name in ModelInfo.__dataclass_fields__}
+        return cls(**plain, equations=tuple(equations))
 
 
 def _evaluate(function: Callable[..., object], args: list[object], shape: tuple[int, ...]) -> Array:

@@ -8,14 +8,16 @@ from collections.abc import Mapping
 import sympy
 
 from planner.errors import FormulaError
-from planner.models import recycling, recycling_sediment
-from planner.models.base import ModelSpec, ParameterInfo
+from planner.models.base import ModelSpec
 from planner.models.formula import ALLOWED_FUNCTIONS, parse_formula
+from planner.models.info import MAX_FORMULA_VARIABLES, formula_info
+from planner.models.kinds import BUILTIN_INFO, builtin_equations
+
+__all__ = ["BUILTIN_MODELS", "MAX_FORMULA_VARIABLES", "check_name", "formula_spec"]
 
 BUILTIN_MODELS: dict[str, ModelSpec] = {
-    spec.kind: spec for spec in (recycling.SPEC, recycling_sediment.SPEC)
+    kind: ModelSpec.from_info(info, builtin_equations(kind)) for kind, info in BUILTIN_INFO.items()
 }
-MAX_FORMULA_VARIABLES = 4
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,31}$")
 _RESERVED = set(ALLOWED_FUNCTIONS) | {"pi"}
 
@@ -42,10 +44,4 @@ def formula_spec(equations: Mapping[str, str], parameter_names: tuple[str, ...])
             parsed.append(parse_formula(text, symbols))
         except FormulaError as error:
             raise FormulaError(variable, str(error)) from None
-    return ModelSpec(
-        kind="formula",
-        variables=variables,
-        parameters=tuple(ParameterInfo(name) for name in parameter_names),
-        equations=tuple(parsed),
-        source="user formulas",
-    )
+    return ModelSpec.from_info(formula_info(variables, tuple(parameter_names)), parsed)

@@ -5,13 +5,16 @@ Applications 9:751-771): L external load, s loss rate (sedimentation, outflow), 
 recycling rate, m the P level at half the maximum recycling, q the steepness of recycling.
 """
 
-import sympy
+from __future__ import annotations
 
-from planner.models.base import ModelSpec, ParameterInfo
+from typing import TYPE_CHECKING
 
-P, L, s, r, m, q = sympy.symbols("P L s r m q")
+from planner.models.info import ModelInfo, ParameterInfo
 
-SPEC = ModelSpec(
+if TYPE_CHECKING:
+    import sympy
+
+INFO = ModelInfo(
     kind="recycling",
     variables=("P",),
     variable_meanings=("lake phosphorus",),
@@ -22,7 +25,14 @@ SPEC = ModelSpec(
         ParameterInfo("m", "P level at half the maximum recycling", lower=0.0, strict=True),
         ParameterInfo("q", "steepness of recycling", lower=1.0),
     ),
-    equations=(L - s * P + r * P**q / (m**q + P**q),),
     nonnegative_state=True,
     source="Carpenter, Ludwig & Brock 1999, Ecological Applications 9:751-771",
 )
+
+
+def equations() -> tuple[sympy.Expr, ...]:
+    """dP/dt as a sympy expression (sympy is imported here, when a model is compiled)."""
+    import sympy
+
+    P, L, s, r, m, q = sympy.symbols("P L s r m q")
+    return (L - s * P + r * P**q / (m**q + P**q),)

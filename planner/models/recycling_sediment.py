@@ -8,14 +8,16 @@ r recycling from the sediment, m and q the shape of recycling. The sediment pool
 centuries while water P turns over in about a year: a stiff slow-fast system.
 """
 
-import sympy
+from __future__ import annotations
 
-from planner.models.base import ModelSpec, ParameterInfo
+from typing import TYPE_CHECKING
 
-X, M, L, s, h, b, r, m, q = sympy.symbols("X M L s h b r m q")
-recycled = r * M * X**q / (m**q + X**q)
+from planner.models.info import ModelInfo, ParameterInfo
 
-SPEC = ModelSpec(
+if TYPE_CHECKING:
+    import sympy
+
+INFO = ModelInfo(
     kind="recycling-sediment",
     variables=("X", "M"),
     variable_meanings=("water phosphorus", "sediment phosphorus"),
@@ -28,7 +30,15 @@ SPEC = ModelSpec(
         ParameterInfo("m", "water P at half the maximum recycling", lower=0.0, strict=True),
         ParameterInfo("q", "steepness of recycling", lower=1.0),
     ),
-    equations=(L - (s + h) * X + recycled, s * X - b * M - recycled),
     nonnegative_state=True,
     source="Carpenter 2005, PNAS 102:10002-10005",
 )
+
+
+def equations() -> tuple[sympy.Expr, ...]:
+    """dX/dt and dM/dt as sympy expressions (sympy is imported here, when a model is compiled)."""
+    import sympy
+
+    X, M, L, s, h, b, r, m, q = sympy.symbols("X M L s h b r m q")
+    recycled = r * M * X**q / (m**q + X**q)
+    return (L - (s + h) * X + recycled, s * X - b * M - recycled)

@@ -6,7 +6,14 @@ from typing import Literal
 
 from pydantic import Field, model_validator
 
-from planner.scenario._base import Name, NonNegative, Positive, Strict, raise_problems
+from planner.scenario._base import (
+    FrozenList,
+    Name,
+    NonNegative,
+    Positive,
+    Strict,
+    raise_problems,
+)
 
 
 class Control(Strict):
@@ -92,7 +99,7 @@ class Costs(Strict):
     discount_rate: float = Field(default=0.03, ge=0.0, lt=1.0)
     baseline: float | None = None
     damage_per_year: NonNegative = 0.0
-    measures: list[Measure] = []
+    measures: FrozenList[Measure] = ()
 
     @property
     def cheapest_first(self) -> list[Measure]:

@@ -2,23 +2,22 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from functools import cached_property
-from typing import Annotated, Literal
+from typing import TYPE_CHECKING, Annotated, Literal
 
 from pydantic import Field, model_validator
 
 from planner.errors import FormulaError
-from planner.models import (
-    BUILTIN_MODELS,
-    MAX_FORMULA_VARIABLES,
-    ModelSpec,
-    check_name,
-    formula_spec,
-)
-from planner.scenario._base import Loc, Strict, raise_problems
+from planner.models.info import MAX_FORMULA_VARIABLES, ModelInfo, formula_info
+from planner.models.kinds import BUILTIN_INFO
+from planner.scenario._base import FrozenDict, Loc, Strict, raise_problems
+
+if TYPE_CHECKING:
+    from planner.models.base import ModelSpec
 
 
-def _parameter_problems(spec: ModelSpec, parameters: dict[str, float]) -> list[tuple[Loc, str]]:
+def _parameter_problems(spec: ModelInfo, parameters: Mapping[str, float]) -> list[tuple[Loc, str]]:
     problems: list[tuple[Loc, str]] = []
     for info in spec.parameters:
         if info.name not in parameters:
@@ -39,15 +38,23 @@ class BuiltinModel(Strict):
     """A model from the library, chosen by ``kind``; every parameter needs a value."""
 
     kind: Literal["recycling", "recycling-sediment"]
-    parameters: dict[str, float]
+    parameters: FrozenDict[str, float]
 
     @model_validator(mode="after")
     def _check_parameters(self) -> BuiltinModel:
-        raise_problems("model", _parameter_problems(self.spec, self.parameters), self.parameters)
+        raise_problems("model", _parameter_problems(self.info, self.parameters), self.parameters)
         return self
 
     @property
+    def info(self) -> ModelInfo:
+        """Variables and parameters of the model (no sympy needed)."""
+        return BUILTIN_INFO[self.kind]
+
+    @property
     def spec(self) -> ModelSpec:
+        """The model's equations (the first use imports sympy)."""
+        from planner.models.library import BUILTIN_MODELS
+
         return BUILTIN_MODELS[self.kind]
 
 
@@ -55,11 +62,15 @@ class FormulaModel(Strict):
     """The user's own equations: ``d(variable)/dt = expression`` for each key of ``equations``."""
 
     kind: Literal["formula"]
-    equations: dict[str, str] = Field(min_length=1, max_length=MAX_FORMULA_VARIABLES)
-    parameters: dict[str, float] = Field(min_length=1)
+    equations: FrozenDict[str, str] = Field(min_length=1, max_length=MAX_FORMULA_VARIABLES)
+    parameters: FrozenDict[str, float] = Field(min_length=1)
 
     @model_validator(mode="after")
     def _check_formulas(self) -> FormulaModel:
+        # Whether a formula is defined (1/0, sqrt(-1), x/(x - x)) depends on how sympy
+        # simplifies it, so checking formulas needs sympy; only formula models pay for that.
+        from planner.models.library import check_name
+
         problems: list[tuple[Loc, str]] = []
         for block, names in (("equations", self.equations), ("parameters", self.parameters)):
             for name in names:
@@ -76,8 +87,16 @@ class FormulaModel(Strict):
         raise_problems("model", problems, self.equations)
         return self
 
+    @property
+    def info(self) -> ModelInfo:
+        """Variables (the keys of ``equations``) and parameters of the model."""
+        return formula_info(tuple(self.equations), tuple(self.parameters))
+
     @cached_property
     def spec(self) -> ModelSpec:
+        """The parsed equations (sympy)."""
+        from planner.models.library import formula_spec
+
         return formula_spec(self.equations, tuple(self.parameters))
 
 

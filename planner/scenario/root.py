@@ -2,13 +2,19 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
 from pydantic import Field, model_validator
 
-from planner.models import ModelSpec, System, compile_model
-from planner.scenario._base import Loc, Name, Strict, raise_problems
+from planner.models.info import ModelInfo
+from planner.scenario._base import (
+    FrozenDict,
+    FrozenList,
+    Loc,
+    Name,
+    Strict,
+    raise_problems,
+)
 from planner.scenario.blocks import Control, Costs, Simulation, Target
 from planner.scenario.model_block import ModelBlock
 from planner.scenario.schedule_blocks import (
@@ -20,6 +26,11 @@ from planner.scenario.schedule_blocks import (
     StaircaseSchedule,
 )
 from planner.scenario.uncertainty import Uncertainty, prior_problems
+
+if TYPE_CHECKING:
+    import numpy as np
+
+    from planner.models.base import ModelSpec, System
 
 
 def schedule_control_values(schedule: Schedule) -> list[tuple[Loc, float]]:
@@ -40,14 +51,16 @@ class Scenario(Strict):
     description: str = ""
     model: ModelBlock
     control: Control
-    state: dict[str, float] = Field(min_length=1)
+    state: FrozenDict[str, float] = Field(min_length=1)
     target: Target
     simulation: Simulation = Simulation()
-    schedules: list[Schedule] = []
+    schedules: FrozenList[Schedule] = ()
     costs: Costs | None = None
     uncertainty: Uncertainty | None = None
-    state_units: dict[str, str] = Field(
-        default={}, description="Unit of each state variable, for axes and tables."
+    state_units: FrozenDict[str, str] = Field(
+        default={},
+        validate_default=True,
+        description="Unit of each state variable, for axes and tables.",
     )
 
     @model_validator(mode="after")
@@ -56,9 +69,9 @@ class Scenario(Strict):
         return self
 
     def _link_problems(self):
-        spec = self.spec
+        info = self.model_info
         parameters = self.model.parameters
-        variables = spec.variables
+        variables = info.variables
         control = self.control.parameter
         if control not in parameters:
             yield (
@@ -73,13 +86,13 @@ class Scenario(Strict):
                 ("model", "parameters", control),
                 f"current value {current:g} lies outside control.range [{low:g}, {high:g}]",
             )
-        bound = spec.parameter_info(control)
+        bound = info.parameter_info(control)
         if bound.lower is not None and (why := bound.violation(low)) is not None:
             yield (("control", "range"), f"lower end {why}")
         for name in variables:
             if name not in self.state:
                 yield (("state", name), "missing: every model variable needs its current value")
-            elif spec.nonnegative_state and self.state[name] < 0:
+            elif info.nonnegative_state and self.state[name] < 0:
                 yield (("state", name), "must be at least 0 (an amount of phosphorus)")
         for name in self.state:
             if name not in variables:
@@ -113,12 +126,12 @@ class Scenario(Strict):
             )
 
     def _physical_lower(self, name: str) -> tuple[float, bool] | None:
-        info = self.spec.parameter_info(name)
+        info = self.model_info.parameter_info(name)
         return None if info.lower is None else (float(info.lower), info.strict)
 
     def _action_problems(self, where: Loc, action: ScaleState | ParameterPulse):
         if isinstance(action, ScaleState):
-            if action.variable not in self.spec.variables:
+            if action.variable not in self.model_info.variables:
                 yield ((*where, "variable"), f"{action.variable!r} is not a model variable")
             return
         if action.parameter == self.control.parameter:
@@ -128,7 +141,13 @@ class Scenario(Strict):
 
     # Derived views used by the numerical modules.
     @property
+    def model_info(self) -> ModelInfo:
+        """Variables and parameters of the model, without its equations (no sympy)."""
+        return self.model.info
+
+    @property
     def spec(self) -> ModelSpec:
+        """The model's equations (sympy; the first use imports it)."""
         return self.model.spec
 
     @property
@@ -137,7 +156,9 @@ class Scenario(Strict):
 
     @property
     def initial_state(self) -> np.ndarray:
-        return np.array([self.state[name] for name in self.spec.variables], dtype=float)
+        import numpy as np
+
+        return np.array([self.state[name] for name in self.model_info.variables], dtype=float)
 
     def axis_title(self, variable: str) -> str:
         unit = self.state_units.get(variable, "")
@@ -145,9 +166,11 @@ class Scenario(Strict):
 
     @property
     def target_index(self) -> int:
-        return self.spec.variables.index(self.target.variable)
+        return self.model_info.variables.index(self.target.variable)
 
     def system(self, **overrides: Any) -> System:
         """The compiled model with this scenario's parameters bound (control left free)."""
+        from planner.models.base import compile_model
+
         values = {**self.model.parameters, **overrides}
         return compile_model(self.spec, self.control.parameter).bind(values)

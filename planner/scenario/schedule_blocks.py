@@ -6,7 +6,14 @@ from typing import Annotated, Literal
 
 from pydantic import Field, model_validator
 
-from planner.scenario._base import Name, NonNegative, Positive, Strict, raise_problems
+from planner.scenario._base import (
+    FrozenList,
+    Name,
+    NonNegative,
+    Positive,
+    Strict,
+    raise_problems,
+)
 
 
 class ScaleState(Strict):
@@ -42,14 +49,14 @@ Action = Annotated[ScaleState | ParameterPulse, Field(discriminator="kind")]
 
 class _Schedule(Strict):
     name: Name
-    actions: list[Action] = []
+    actions: FrozenList[Action] = ()
 
 
 class PathSchedule(_Schedule):
     """Piecewise-linear (time, control) points; the first value before, the last value after."""
 
     kind: Literal["path"]
-    points: list[tuple[NonNegative, float]] = Field(min_length=1, max_length=500)
+    points: FrozenList[tuple[NonNegative, float]] = Field(min_length=1, max_length=500)
 
     @model_validator(mode="after")
     def _check_times(self) -> PathSchedule:
@@ -70,7 +77,7 @@ class StaircaseSchedule(_Schedule):
 
     kind: Literal["staircase"]
     start: NonNegative = 0.0
-    levels: list[float] = Field(min_length=1, max_length=200)
+    levels: FrozenList[float] = Field(min_length=1, max_length=200)
     step_years: Positive
     ramp_years: NonNegative = 0.0
 

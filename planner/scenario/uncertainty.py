@@ -29,11 +29,20 @@ differential equation.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from typing import Annotated, Literal
 
 from pydantic import Field, model_validator
 
-from planner.scenario._base import Loc, NonNegative, Positive, Strict, raise_problems
+from planner.scenario._base import (
+    FrozenDict,
+    FrozenList,
+    Loc,
+    NonNegative,
+    Positive,
+    Strict,
+    raise_problems,
+)
 
 MIN_TRUNCATED_MASS = 1e-6
 """Least prior probability the truncation interval must keep (below it the draw is all tail)."""
@@ -244,10 +253,11 @@ class Uncertainty(Strict):
 
     members: int = Field(default=1000, ge=1, le=MAX_MEMBERS)
     seed: int = Field(default=0, ge=0, lt=2**63)
-    priors: list[Prior] = Field(default=[], max_length=200)
+    priors: FrozenList[Prior] = Field(default=(), max_length=200)
     load_variability: LoadVariability | None = None
-    process_noise: dict[str, NonNegative] = Field(
+    process_noise: FrozenDict[str, NonNegative] = Field(
         default={},
+        validate_default=True,
         description="Additive noise sigma dW on each named state variable "
         "(state units per square-root year).",
     )
@@ -262,7 +272,7 @@ class Uncertainty(Strict):
 def prior_problems(
     uncertainty: Uncertainty,
     *,
-    parameters: dict[str, float],
+    parameters: Mapping[str, float],
     control: str,
     variables: tuple[str, ...],
     physical_lower,
