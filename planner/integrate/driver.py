@@ -1,0 +1,432 @@
+"""The one driver: every integration in the planner runs through :func:`integrate`.
+
+It cuts [0, horizon] at every kink of the control path, every action and (with load factors or
+process noise) every calendar year, so no step straddles a discontinuity; applies state
+rescalings between pieces; lets the chosen stepper take the steps of each piece; and after every
+step checks divergence (non-finite, beyond the state limit, below zero for amounts), detects
+crossings of a watched target (within a step by root finding on the step's interpolant, or at a
+rescaling), keeps the samples asked for and, when settling, stops members whose state has
+stopped moving. A single run is a batch of one.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+import numpy as np
+
+from planner.integrate.options import SCALE_FLOOR, Limits, Save, Settling, Tolerance, Watch
+from planner.integrate.problem import Pieces, Problem, held
+from planner.integrate.solution import CODE, Solution, Status, WatchRecord
+from planner.integrate.solvers import SOLVERS, Step, StepError, Stepper
+from planner.integrate.solvers.euler_maruyama import EulerMaruyama
+from planner.models import System
+
+ROOT_ITERATIONS = 40  # Illinois iterations locating a crossing inside a step
+COMPACT_SHARE = 0.5  # settling: step only the members still moving once they are this few
+SETTLE_TOLERANCE = Tolerance(rtol=1e-9, atol=1e-12)
+SETTLE_CAP = 20000.0  # years
+NOTHING_SAVED = Save()
+DEFAULT_TOLERANCE = Tolerance()
+SETTLED = Settling()
+
+
+def choose_solver(problem: Problem, *, settling: bool = False) -> str:
+    """The registry's default: LSODA for single runs, Euler-Maruyama under process noise,
+    Rosenbrock for batches that settle (stiff over centuries), Dormand-Prince otherwise."""
+    if problem.noise is not None and not settling:
+        return "euler-maruyama"
+    scalar = all(np.ndim(v) == 0 for v in problem.system.parameter_values)
+    if problem.members == 1 and scalar and np.ndim(problem.initial_state) == 1:
+        return "lsoda"
+    return "rosenbrock23" if settling else "dopri5"
+
+
+def _stepper(name: str, problem: Problem) -> Stepper:
+    if name not in SOLVERS:
+        raise ValueError(f"unknown solver {name!r}; known: {', '.join(SOLVERS)}")
+    if name == "euler-maruyama":
+        if problem.noise is None:
+            raise ValueError("euler-maruyama needs process noise in the problem")
+        return EulerMaruyama(problem.noise, problem.system.model.spec.nonnegative_state)
+    stepper = SOLVERS[name]()
+    if not stepper.batched and problem.members != 1:
+        raise ValueError(f"{name} integrates single runs only")
+    return stepper
+
+
+class _Tracker:
+    """The watched target: per member whether it is met, and every crossing (time, member,
+    direction); the yearly time not meeting it is assembled from the crossings at the end."""
+
+    def __init__(self, watch: Watch, x0: np.ndarray):
+        self.watch = watch
+        self.sign = watch.sign
+        self.inside = self._inside(x0)
+        self.met_at_start = self.inside.copy()
+        self.events: list[np.ndarray] = []  # rows (time, member, +1 lost / -1 entered)
+        self.absorbed: list[tuple[np.ndarray, np.ndarray]] = []  # (members, times) to stop
+
+    def _inside(self, x: np.ndarray) -> np.ndarray:
+        return self.sign * (x[self.watch.variable] - self.watch.level) <= 0.0
+
+    def _switch(self, members: np.ndarray, times: np.ndarray, now_inside: np.ndarray) -> None:
+        self.inside[members] = now_inside
+        self.events.append(
+            np.stack([times, members.astype(float), np.where(now_inside, -1.0, 1.0)], axis=1)
+        )
+        if self.watch.absorbing:
+            self.absorbed.append((members[now_inside], times[now_inside]))
+
+    def jump(self, t: float, live: np.ndarray, x: np.ndarray) -> None:
+        """A rescaling at time t moved the live members' states to x (n, len(live))."""
+        now = self._inside(x)
+        changed = now != self.inside[live]
+        if changed.any():
+            self._switch(live[changed], np.full(int(changed.sum()), t), now[changed])
+
+    def step(self, step: Step, members: np.ndarray, columns: np.ndarray | None) -> None:
+        """One accepted step of ``members`` (the step's columns ``columns``; None: all)."""
+        k = self.watch.variable
+        if step.x1.shape[1] == 1:  # a single run: plain floats
+            now = self.sign * (float(step.x1[k, 0]) - self.watch.level) <= 0.0
+            if now != bool(self.inside[members[0]]):
+                time = self._locate(step, np.zeros(1, dtype=int))
+                self._switch(members[:1], time, np.array([now]))
+            return
+        x1 = step.x1 if columns is None else step.x1[:, columns]
+        now = self._inside(x1)
+        changed = now != self.inside[members]
+        if changed.any():
+            where = np.nonzero(changed)[0]
+            times = self._locate(step, where if columns is None else columns[where])
+            self._switch(members[where], times, now[where])
+
+    def _locate(self, step: Step, columns: np.ndarray) -> np.ndarray:
+        """Crossing times of the members in ``columns`` by the Illinois method on the
+        interpolant's gap; each member stops iterating once its bracket is tight, so its time
+        does not depend on the other members."""
+        k, level, sign = self.watch.variable, self.watch.level, self.sign
+        m = step.x0.shape[1]
+        a = np.array(np.broadcast_to(step.t0, (m,))[columns], dtype=float)
+        b = np.array(np.broadcast_to(step.t1, (m,))[columns], dtype=float)
+        ga = sign * (step.x0[k, columns] - level)
+        gb = sign * (step.x1[k, columns] - level)
+        tight = 1e-13 * np.maximum(1.0, np.abs(b))
+        done = (np.abs(b - a) <= tight) | (gb == 0)
+        for _ in range(ROOT_ITERATIONS):
+            if done.all():
+                break
+            with np.errstate(all="ignore"):
+                c = b - gb * (b - a) / (gb - ga)
+            low, high = np.minimum(a, b), np.maximum(a, b)
+            c = np.where(np.isfinite(c) & (c >= low) & (c <= high), c, 0.5 * (a + b))
+            state = step.at(c[0] if m == 1 else _spread(c, columns, m))
+            gc = sign * (state[k, columns] - level)
+            opposite = np.sign(gc) != np.sign(gb)
+            new_a = np.where(opposite, b, a)
+            new_ga = np.where(opposite, gb, 0.5 * ga)
+            a, ga = np.where(done, a, new_a), np.where(done, ga, new_ga)
+            b, gb = np.where(done, b, c), np.where(done, gb, gc)
+            done |= (np.abs(b - a) <= tight) | (gc == 0)
+        return b
+
+    def record(self, x_end: np.ndarray, t_end: np.ndarray, horizon: float) -> WatchRecord:
+        """Per member: entry time, relapse and yearly time not meeting, from the crossings."""
+        m = x_end.shape[1]
+        met_end = self._inside(x_end)
+        events = np.concatenate([np.zeros((0, 3)), *self.events])
+        times, members, directions = events[:, 0], events[:, 1].astype(int), events[:, 2]
+        order = np.lexsort((times, members))
+        times, members, directions = times[order], members[order], directions[order]
+        entries = directions < 0
+        entered = np.where(self.met_at_start, 0.0, np.nan)
+        entered[members[entries]] = times[entries]  # sorted by time: the last entry wins
+        relapsed = np.zeros(m, dtype=bool)
+        ever = self.met_at_start.copy()
+        # A loss after the member had met the target (at the start or by an earlier entry).
+        first_entry = np.full(m, np.inf)
+        np.minimum.at(first_entry, members[entries], times[entries])
+        first_entry = np.where(ever, -np.inf, first_entry)
+        losses = ~entries
+        relapsed[members[losses & (times >= first_entry[members])]] = True
+        # Outside intervals: from a loss (or t = 0) to the next entry (or the end).
+        starts_t = np.concatenate([times[losses], np.zeros(int((~self.met_at_start).sum()))])
+        starts_m = np.concatenate([members[losses], np.nonzero(~self.met_at_start)[0]])
+        ends_t = np.concatenate([times[entries], t_end[~met_end]])
+        ends_m = np.concatenate([members[entries], np.nonzero(~met_end)[0]])
+        start_order = np.lexsort((starts_t, starts_m))
+        end_order = np.lexsort((ends_t, ends_m))
+        years = max(1, math.ceil(horizon)) if self.watch.by_year else 0
+        missing = np.zeros((years, m))
+        if years and start_order.size == end_order.size:
+            _add_intervals(missing, starts_m[start_order], starts_t[start_order], ends_t[end_order])
+        return WatchRecord(
+            met_at_start=self.met_at_start,
+            met_at_end=met_end,
+            entered_at=np.where(met_end, entered, np.nan),
+            relapsed=relapsed,
+            not_met_by_year=missing,
+            crossings=tuple(
+                (t, int(j), int(d)) for t, j, d in zip(times, members, directions, strict=True)
+            ),
+        )
+
+
+def _add_intervals(missing: np.ndarray, members: np.ndarray, p: np.ndarray, q: np.ndarray):
+    """Add the intervals (p, q] (years, one per entry of ``members``) to ``missing`` by
+    calendar year k (t in (k, k + 1])."""
+    keep = q > p
+    members, p, q = members[keep], p[keep], q[keep]
+    if members.size == 0:
+        return
+    years = missing.shape[0]
+    first = np.clip(np.floor(p).astype(int), 0, years - 1)
+    last = np.clip(np.ceil(q).astype(int) - 1, 0, years - 1)
+    for offset in range(int(np.max(last - first)) + 1):
+        k = first + offset
+        valid = k <= last
+        overlap = np.minimum(q, k + 1.0) - np.maximum(p, k)
+        np.add.at(missing, (k[valid], members[valid]), np.maximum(overlap[valid], 0.0))
+
+
+def _spread(values: np.ndarray, columns: np.ndarray, m: int) -> np.ndarray:
+    """Per-member times for an interpolant: the given columns' values, others their own end."""
+    out = np.full(m, np.nan)
+    out[columns] = values
+    return out
+
+
+def integrate(
+    problem: Problem,
+    *,
+    save: Save = NOTHING_SAVED,
+    watch: Watch | None = None,
+    limits: Limits | None = None,
+    tolerance: Tolerance = DEFAULT_TOLERANCE,
+    settling: Settling | None = None,
+    solver: str | None = None,
+    progress: Callable[[float, str], None] | None = None,
+) -> Solution:
+    """Integrate ``problem`` over [0, horizon]; with ``settling``, stop each member once its
+    state has stopped moving (status SETTLED; NOT_SETTLED at the horizon)."""
+    if limits is None:
+        limits = Limits(nonnegative=problem.system.model.spec.nonnegative_state)
+    name = solver or choose_solver(problem, settling=settling is not None)
+    stepper = _stepper(name, problem)
+    m = problem.members
+    x = problem.start()
+    n = x.shape[0]
+    horizon = float(problem.horizon)
+    codes = np.full(m, CODE[Status.NOT_SETTLED if settling else Status.FINISHED], dtype=np.int8)
+    t_end = np.full(m, horizon)
+    alive = np.ones(m, dtype=bool)
+    scale_tol = np.maximum(np.abs(x), 1.0)
+    scale_tol = np.max(scale_tol, axis=1, keepdims=True) if stepper.batched else scale_tol
+    settle_scale = np.maximum(np.abs(x), SCALE_FLOOR)
+    tracker = None if watch is None else _Tracker(watch, x)
+    sample_times = _sample_times(save, horizon)
+    samples = None if sample_times is None else np.full((sample_times.size, n, m), np.nan)
+    next_sample = 0
+    if samples is not None and sample_times[0] == 0.0:
+        next_sample = 1  # filled after the rescalings at t = 0
+    step_times: list[float] = [0.0] if save.steps else []
+    step_states: list[np.ndarray] = []
+    dense: list = []
+    factors = problem.load_factors
+    calendar = factors is not None or problem.noise is not None
+    pieces = Pieces(problem)
+    # Batched steppers move each member with its own step size, so their samples are taken at
+    # cut points (where every member stands at the same time); single runs interpolate.
+    grid = tuple(sample_times) if stepper.batched and sample_times is not None else save.at
+    cuts = problem.cuts(calendar, grid)
+    h: float | None = None  # the single-run stepper's step size
+    h_member = np.full(m, np.nan)  # the batched steppers' step sizes
+    t_member = np.zeros(m)  # where each member stands within the current piece
+    steps = 0
+    message = ""
+    lower = limits.lower
+
+    for number, (a, b) in enumerate(zip(cuts[:-1], cuts[1:], strict=True)):
+        live = np.nonzero(alive)[0]
+        if live.size == 0:
+            break
+        events = problem.state_events_at(a)
+        for index, factor in events:
+            x[index, live] *= factor
+        if events and tracker is not None:
+            tracker.jump(a, live, x[:, live])
+        if a == 0.0:
+            if samples is not None and sample_times[0] == 0.0:
+                samples[0] = x
+            if save.steps:
+                step_states.append(x[:, 0].copy())
+        factor = 1.0
+        if factors is not None:
+            factor = factors[min(int(math.floor(0.5 * (a + b))), factors.shape[0] - 1)]
+        whole = pieces.piece(a, b, factor)
+        t_member[live] = a
+        while live.size and np.min(t_member[live]) < b:
+            # ``batch``: the members this stepper run advances; ``mask`` (shared with the
+            # stepper, updated in place): which of them still count. Members that stop are
+            # carried along until half of the batch has stopped, then the batch is rebuilt.
+            batch = live
+            mask = np.ones(batch.size, dtype=bool)
+            piece = whole if batch.size == m else whole.subset(batch)
+            adaptive_batch = stepper.batched and stepper.adaptive
+            generator = stepper.steps(
+                piece,
+                t_member[batch] if adaptive_batch else a,
+                b,
+                x[:, batch],
+                h_member[batch] if adaptive_batch else h,
+                tolerance=tolerance,
+                scale=scale_tol if stepper.batched else scale_tol[:, batch],
+                alive=mask,
+                max_steps=limits.max_steps,
+                members=batch,
+                piece_number=number,
+                dense=save.dense,
+            )
+            rebuild = False
+            all_counted = True
+            try:
+                for step in generator:
+                    steps += 1
+                    columns = None if all_counted else np.nonzero(mask)[0]
+                    members = batch if columns is None else batch[columns]
+                    x1 = step.x1 if columns is None else step.x1[:, columns]
+                    t1 = np.broadcast_to(step.t1, (step.x1.shape[1],))
+                    t1 = t1 if columns is None else t1[columns]
+                    t_member[members] = t1
+                    if adaptive_batch:
+                        h_member[batch] = step.h_next
+                    elif step.h_next > 0:
+                        h = step.h_next
+                    if tracker is not None:
+                        tracker.step(step, members, columns)
+                        if tracker.absorbed:
+                            for gone, when in tracker.absorbed:
+                                t_end[gone] = when
+                                alive[gone] = False
+                            tracker.absorbed.clear()
+                    if samples is not None and not stepper.batched:
+                        while next_sample < sample_times.size and (
+                            sample_times[next_sample] <= step.t1 + 1e-12
+                        ):
+                            when = sample_times[next_sample]
+                            value = x1 if when >= step.t1 else step.at(when)
+                            if columns is not None and when < step.t1:
+                                value = value[:, columns]
+                            samples[next_sample][:, members] = value
+                            next_sample += 1
+                    if save.steps:
+                        step_times.append(float(np.atleast_1d(step.t1)[0]))
+                        step_states.append(step.x1[:, 0].copy())
+                    if save.dense:
+                        first = (float(np.atleast_1d(step.t0)[0]), float(np.atleast_1d(step.t1)[0]))
+                        dense.append((*first, step))
+                    x[:, members] = x1
+                    with np.errstate(invalid="ignore"):
+                        fine = np.max(np.abs(x1)) <= limits.state_limit and (
+                            lower is None or np.min(x1) >= lower
+                        )
+                    if fine:
+                        stopped = np.zeros(members.size, dtype=bool)
+                    else:
+                        with np.errstate(invalid="ignore"):
+                            bad = ~(np.abs(x1) <= limits.state_limit)
+                            if lower is not None:
+                                bad |= x1 < lower
+                        stopped = bad.any(axis=0)
+                    if not fine:
+                        codes[members[stopped]] = CODE[Status.DIVERGED]
+                        t_end[members[stopped]] = t1[stopped]
+                    if settling is not None:
+                        f1 = step.f1 if step.f1 is not None else piece.rhs(step.t1, step.x1)
+                        f1 = f1 if columns is None else f1[:, columns]
+                        with np.errstate(invalid="ignore"):
+                            rate = np.max(
+                                np.abs(f1) / np.maximum(settle_scale[:, members], np.abs(x1)),
+                                axis=0,
+                            )
+                        done = (rate < settling.rate) & ~stopped
+                        if done.any():
+                            codes[members[done]] = CODE[Status.SETTLED]
+                            t_end[members[done]] = t1[done]
+                            stopped |= done
+                            fine = False
+                    absorbed = ~alive[members]
+                    if absorbed.any():
+                        stopped = stopped | absorbed
+                        fine = False
+                    if not fine:
+                        alive[members[stopped]] = False
+                        mask[np.nonzero(mask)[0][stopped]] = False
+                        all_counted = bool(mask.all())
+                        if not mask.any():
+                            break
+                        if mask.sum() <= COMPACT_SHARE * mask.size and stepper.adaptive:
+                            rebuild = True
+                            break
+            except StepError as failure:
+                message = str(failure)
+                failed = batch[mask]
+                codes[failed] = CODE[Status.FAILED]
+                t_end[failed] = t_member[failed]
+                alive[failed] = False
+            generator.close()
+            live = np.nonzero(alive)[0]
+            if not rebuild:
+                break
+        if samples is not None and stepper.batched:
+            while next_sample < sample_times.size and sample_times[next_sample] <= b + 1e-12:
+                samples[next_sample][:, live] = x[:, live]
+                next_sample += 1
+        if progress is not None:
+            progress(b / horizon, "integrating")
+
+    if samples is not None and next_sample < sample_times.size:
+        samples[next_sample:] = x[None]
+    return Solution(
+        codes=codes,
+        t_end=t_end,
+        final_state=x,
+        solver=name,
+        steps=steps,
+        sample_times=sample_times,
+        samples=samples,
+        times=np.array(step_times) if save.steps else None,
+        states=np.array(step_states).T if save.steps else None,
+        watch=None if tracker is None else tracker.record(x, t_end, horizon),
+        message=message,
+        dense=tuple(dense),
+    )
+
+
+def _sample_times(save: Save, horizon: float) -> np.ndarray | None:
+    if save.every is None and not save.at:
+        return None
+    times = np.array(save.at, dtype=float)
+    if save.every is not None:
+        grid = np.arange(0.0, horizon + 1e-9 * horizon, save.every)
+        times = np.concatenate([times, grid, [horizon]])
+    return np.unique(times[times <= horizon])
+
+
+def settle(
+    system: System,
+    x0: np.ndarray,
+    u: float,
+    *,
+    cap: float = SETTLE_CAP,
+    limits: Limits | None = None,
+    tolerance: Tolerance = SETTLE_TOLERANCE,
+    settling: Settling = SETTLED,
+    solver: str | None = None,
+) -> Solution:
+    """Hold the control at ``u`` and integrate from ``x0`` ((n,) or (n, members)) until each
+    member's state stops moving, or ``cap`` years."""
+    problem = Problem(system, np.asarray(x0, dtype=float), held(u), float(cap))
+    return integrate(problem, limits=limits, tolerance=tolerance, settling=settling, solver=solver)

@@ -1,0 +1,213 @@
+"""What to integrate: a compiled system under a control path, with actions, load factors and
+process noise, for one member or many (the members are the last axis of every array)."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from planner.integrate.codegen import Specialised, specialise
+from planner.models import System
+from planner.schedules import ActionTimeline, ControlPath
+
+SAME_TIME = 1e-12  # years: cut points closer than this are one
+
+
+@dataclass(frozen=True)
+class ProcessNoise:
+    """Additive noise dx = f dt + sigma dW on the variables with sigma > 0.
+
+    ``draw(piece, steps, members)`` returns standard normal numbers (steps, noisy variables,
+    len(members)) for piece number ``piece`` and the given member indices; it must depend only
+    on its arguments so results do not depend on chunking. ``steps_per_year`` fixes the step.
+    """
+
+    sigma: np.ndarray
+    draw: Callable[[int, int, np.ndarray], np.ndarray]
+    steps_per_year: float
+
+    @property
+    def noisy(self) -> np.ndarray:
+        return np.nonzero(np.asarray(self.sigma) > 0)[0]
+
+
+@dataclass(frozen=True)
+class Problem:
+    """The state from ``initial_state`` ((n,) or (n, members)) under ``control`` over
+    [0, horizon] years, with the actions of ``actions``; ``load_factors`` (years, members), when
+    given, multiply the control in each calendar year k (t in [k, k + 1)). Parameters of
+    ``system`` may be arrays over members."""
+
+    system: System
+    initial_state: np.ndarray
+    control: ControlPath
+    horizon: float
+    actions: ActionTimeline | None = None
+    load_factors: np.ndarray | None = None
+    noise: ProcessNoise | None = None
+
+    def __post_init__(self) -> None:
+        if not (math.isfinite(self.horizon) and self.horizon > 0):
+            raise ValueError(f"the horizon must be a positive number of years, not {self.horizon}")
+
+    @property
+    def members(self) -> int:
+        sizes = {1}
+        x0 = np.asarray(self.initial_state)
+        if x0.ndim == 2:
+            sizes.add(x0.shape[1])
+        for value in self.system.parameter_values:
+            if value is not None and np.ndim(value) > 0:
+                sizes.add(int(np.shape(value)[0]))
+        if self.load_factors is not None:
+            sizes.add(self.load_factors.shape[1])
+        sizes.discard(1)
+        if len(sizes) > 1:
+            raise ValueError(f"inconsistent member counts {sorted(sizes)}")
+        return sizes.pop() if sizes else 1
+
+    def start(self) -> np.ndarray:
+        """The initial state as (n, members)."""
+        x0 = np.asarray(self.initial_state, dtype=float)
+        if x0.ndim == 1:
+            return np.repeat(x0[:, None], self.members, axis=1)
+        return x0.copy()
+
+    def cuts(self, calendar_years: bool, extra: tuple[float, ...] = ()) -> np.ndarray:
+        """Sorted times where the right-hand side may be non-smooth: kinks of the control path,
+        action times, (when asked) calendar years, and ``extra`` times."""
+        horizon = float(self.horizon)
+        cuts = [0.0, horizon, *self.control.kinks(horizon), *extra]
+        if self.actions is not None:
+            cuts += list(self.actions.kinks(horizon))
+        if calendar_years:
+            cuts += list(np.arange(1.0, math.ceil(horizon)))
+        cuts = np.unique(np.clip(np.array(cuts, dtype=float), 0.0, horizon))
+        keep = np.append(True, np.diff(cuts) > SAME_TIME)
+        return cuts[keep]
+
+    def state_events_at(self, a: float) -> list[tuple[int, float]]:
+        """(variable index, factor) of the state rescalings at time ``a``."""
+        if self.actions is None:
+            return []
+        names = self.system.variables
+        return [
+            (names.index(variable), factor)
+            for when, variable, factor in self.actions.state_events
+            if abs(when - a) <= SAME_TIME or (a == 0.0 and when < SAME_TIME)
+        ]
+
+
+class Piece:
+    """The problem on one smooth stretch [a, b]: the control linear in t (times a load factor),
+    parameters fixed or decaying after a pulse. Batched calls take x (n, m) and t scalar or one
+    time per member; scalar calls take y (n,)."""
+
+    def __init__(
+        self,
+        functions: Specialised,
+        values_at: Callable[[float | np.ndarray, np.ndarray | None], tuple],
+        u_a: float,
+        slope: float,
+        a: float,
+        factor: float | np.ndarray,
+        index: np.ndarray | None = None,
+    ):
+        self.functions = functions
+        self.values_at = values_at
+        self.u_a, self.slope, self.a, self.factor = u_a, slope, a, factor
+        self.index = index
+        self.n = functions.n
+
+    def control(self, t):
+        return (self.u_a + self.slope * (t - self.a)) * self.factor
+
+    def _values(self, t) -> tuple:
+        return self.values_at(t, self.index)
+
+    def _stacked(self, function, t, x: np.ndarray, rows: int) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            values = function(*x, self.control(t), *self._values(t))
+        out = np.empty((rows, *x.shape[1:]))
+        for i, value in enumerate(values):
+            out[i] = value
+        return out
+
+    def rhs(self, t, x: np.ndarray) -> np.ndarray:
+        return self._stacked(self.functions.batched_rhs, t, x, self.n)
+
+    def jac(self, t, x: np.ndarray) -> np.ndarray:
+        n = self.n
+        return self._stacked(self.functions.batched_jac, t, x, n * n).reshape(n, n, *x.shape[1:])
+
+    def dfdt(self, t, x: np.ndarray) -> np.ndarray:
+        """Time derivative through the control (ramps); zero on held stretches."""
+        if self.slope == 0.0:
+            return np.zeros(x.shape)
+        return self._stacked(self.functions.batched_dfdu, t, x, self.n) * (self.slope * self.factor)
+
+    def scalar_rhs(self, t: float, y: np.ndarray) -> np.ndarray:
+        try:
+            return np.array(self.functions.scalar_rhs(*y, self.control(t), *self._values(t)))
+        except (OverflowError, ZeroDivisionError, ValueError):
+            return np.full(self.n, np.nan)
+
+    def scalar_jac(self, t: float, y: np.ndarray) -> np.ndarray:
+        try:
+            values = self.functions.scalar_jac(*y, self.control(t), *self._values(t))
+        except (OverflowError, ZeroDivisionError, ValueError):
+            return np.full((self.n, self.n), np.nan)
+        return np.array(values, dtype=float).reshape(self.n, self.n)
+
+    def subset(self, index: np.ndarray) -> Piece:
+        """The piece for some members only (per-member parameters and factors indexed)."""
+        factor = self.factor if np.ndim(self.factor) == 0 else self.factor[index]
+        composed = index if self.index is None else self.index[index]
+        return Piece(self.functions, self.values_at, self.u_a, self.slope, self.a, factor, composed)
+
+
+class Pieces:
+    """Builds the :class:`Piece` of each stretch of a problem (one specialisation per run)."""
+
+    def __init__(self, problem: Problem):
+        self.problem = problem
+        actions = problem.actions
+        self.pulses = () if actions is None else actions.pulses
+        pulsed = tuple(sorted({pulse.parameter for pulse in self.pulses}))
+        self.functions, base = specialise(problem.system, pulsed)
+        self.base = dict(zip(self.functions.free, base, strict=True))
+
+    def _values_at(self, t, index: np.ndarray | None = None) -> tuple:
+        multipliers = self.problem.actions.multipliers(t) if self.pulses else {}
+        return tuple(
+            _pick(self.base[name], index) * multipliers.get(name, 1.0)
+            for name in self.functions.free
+        )
+
+    def piece(self, a: float, b: float, factor: float | np.ndarray = 1.0) -> Piece:
+        control = self.problem.control
+        decaying = any(
+            p.decay_years > 0 and a >= p.start + p.duration - SAME_TIME for p in self.pulses
+        )
+        if decaying:
+            values_at = self._values_at
+        else:
+            fixed = self._values_at(0.5 * (a + b))
+
+            def values_at(t, index=None, fixed=fixed):
+                return fixed if index is None else tuple(_pick(v, index) for v in fixed)
+
+        u_a, slope = float(control(a)), float(control.slope(a))
+        return Piece(self.functions, values_at, u_a, slope, a, factor)
+
+
+def _pick(value, index: np.ndarray | None):
+    return value if index is None or np.ndim(value) == 0 else value[index]
+
+
+def held(value: float) -> ControlPath:
+    """A control path held at ``value`` from t = 0."""
+    return ControlPath(np.array([0.0]), np.array([float(value)]))
