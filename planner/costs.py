@@ -184,11 +184,10 @@ def _capacity_breach(
     )
 
 
-def _damage_by_year(
-    intervals: Sequence[tuple[float, float]], damage_per_year: float, horizon: float, years: int
-) -> np.ndarray:
-    """Damage of each year: ``damage_per_year`` times the years of that year spent in the
+def years_by_calendar_year(intervals: Sequence[tuple[float, float]], horizon: float) -> np.ndarray:
+    """Years of each calendar year k = 1 .. ceil(horizon) (t in (k-1, k]) spent inside the
     (merged, so never double-counted) intervals, cut to [0, horizon]."""
+    years = _year_count(horizon)
     merged: list[list[float]] = []
     for start, end in sorted((max(s, 0.0), min(e, horizon)) for s, e in intervals):
         if end <= start:
@@ -201,7 +200,18 @@ def _damage_by_year(
     inside = np.zeros(years)
     for start, end in merged:
         inside += np.clip(np.minimum(end, k) - np.maximum(start, k - 1), 0.0, None)
-    return damage_per_year * inside
+    return inside
+
+
+def damage_present_value(costs: Costs, not_met_by_year: np.ndarray) -> np.ndarray:
+    """Present value of the damages: ``costs.damage_per_year`` for each year not meeting the
+    target, year k (row k - 1 of ``not_met_by_year``, (years,) or (years, members)) discounted
+    by (1 + i)^-k (end-of-year convention)."""
+    years = not_met_by_year.shape[0]
+    discount = (1.0 + costs.discount_rate) ** -np.arange(1.0, years + 1.0)
+    weighted = discount.reshape(-1, *([1] * (not_met_by_year.ndim - 1))) * not_met_by_year
+    # A plain sum down the years (no BLAS): each member's value is independent of the others.
+    return costs.damage_per_year * weighted.sum(axis=0)
 
 
 def schedule_costs(
@@ -211,7 +221,7 @@ def schedule_costs(
     baseline: float,
     horizon: float,
     one_off: Sequence[tuple[float, float]] = (),
-    not_meeting_target: Sequence[tuple[float, float]] = (),
+    not_met_by_year: np.ndarray | None = None,
     unit: str = "",
 ) -> CostBreakdown:
     """Abatement, damage and action costs of a control path over [0, horizon] (years).
@@ -220,8 +230,8 @@ def schedule_costs(
       max(0, baseline - u(t)) (control units). A reduction beyond the summed capacity of the
       measures sets ``infeasible`` (first time, amounts) and the excess is costed at the dearest
       measure's unit cost so the numbers stay finite (at 0 when there are no measures).
-    - damage: ``costs.damage_per_year`` for each year spent inside the ``not_meeting_target``
-      intervals (start, end), in years; overlapping intervals count once.
+    - damage: ``costs.damage_per_year`` for each year not meeting the target, by calendar year
+      (``not_met_by_year``, years; see :func:`years_by_calendar_year`).
     - actions: the one-off (time, cost) items at times in [0, horizon]; later ones fall outside.
 
     Discounting follows the module's end-of-year convention with ``costs.discount_rate``.
@@ -229,7 +239,9 @@ def schedule_costs(
     years = _year_count(horizon)
     measures = list(costs.measures)
     abatement = _abatement_by_year(path, measures, baseline, horizon, years)
-    damage = _damage_by_year(not_meeting_target, costs.damage_per_year, horizon, years)
+    damage = np.zeros(years)
+    if not_met_by_year is not None:
+        damage = costs.damage_per_year * np.asarray(not_met_by_year, dtype=float)[:years]
     yearly = abatement + damage
     actions = [(float(t), float(c)) for t, c in one_off if 0.0 <= t <= horizon]
     growth = 1.0 + costs.discount_rate
@@ -254,7 +266,7 @@ def schedule_costs(
 
 
 def scenario_costs(
-    scenario, path: ControlPath, timeline, not_meeting_target: Sequence[tuple[float, float]] = ()
+    scenario, path: ControlPath, timeline, not_met_by_year: np.ndarray | None = None
 ) -> CostBreakdown:
     """Costs of a control path and its actions under a scenario's cost block (zeros when it has
     none); reductions are measured from ``costs.baseline`` or else the current control."""
@@ -268,6 +280,6 @@ def scenario_costs(
         baseline=scenario.current_control if costs.baseline is None else costs.baseline,
         horizon=horizon,
         one_off=timeline.one_off_costs,
-        not_meeting_target=not_meeting_target,
+        not_met_by_year=not_met_by_year,
         unit=scenario.control.unit,
     )

@@ -96,7 +96,7 @@ def ensemble_json(ensemble: Ensemble) -> dict[str, Any]:
         },
         "method": {
             "integration": ensemble.scheme,
-            "steps_per_year": ensemble.steps_per_year,
+            "steps_per_year": _number(ensemble.steps_per_year),
             "verdict": SCHEME_SETTLE,
             "interval": INTERVAL_METHOD,
             "confidence": CONFIDENCE,
@@ -151,13 +151,18 @@ def ensemble_rows(ensemble: Ensemble) -> tuple[tuple[str, ...], list[list[object
     return ENSEMBLE_HEADER, rows
 
 
+def _steps(ensemble: Ensemble) -> str:
+    per_year = ensemble.steps_per_year
+    return "" if per_year is None or np.isnan(per_year) else f", {per_year:g} steps a year"
+
+
 def ensemble_text(ensemble: Ensemble, *, caution: bool = True) -> str:
     """A terminal summary: members, method, the table and any infeasibility."""
     scenario = ensemble.scenario
     lines = [
         scenario.name,
-        f"{ensemble.members} members, seed {ensemble.seed}; {ensemble.scheme}, "
-        f"{ensemble.steps_per_year:g} steps a year; verdict after settling "
+        f"{ensemble.members} members, seed {ensemble.seed}; {ensemble.scheme}"
+        f"{_steps(ensemble)}; verdict after settling "
         f"({SCHEME_SETTLE}); {INTERVAL_METHOD.title()} {CONFIDENCE:.0%} interval.",
         "",
         text_table(*ensemble_rows(ensemble)),

@@ -13,6 +13,7 @@ of the Jacobian's eigenvalues.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -21,8 +22,8 @@ from typing import Literal
 import numpy as np
 from scipy.optimize import brentq
 
+from planner.integrate import Limits, Status, Tolerance, settle
 from planner.models import System
-from planner.simulate import Status, settle
 
 # Tuning constants (scaled units: state by its magnitude, control by the range width).
 EXTEND = 0.5  # continue this fraction of the range width beyond each end, to find folds just out
@@ -242,13 +243,6 @@ class Diagram:
             return None
         sign = 1.0 if self.regime == "lowest" else -1.0
         return min(stable, key=lambda e: sign * e.state[self.target_index])
-
-    def is_desired(self, x: np.ndarray, u: float, tolerance: float = 1e-3) -> bool:
-        """Whether state ``x`` sits on the desired attractor at ``u`` (scaled distance)."""
-        best = self.desired_attractor(u)
-        if best is None:
-            return False
-        return bool(np.max(np.abs(x - best.state) / self.scale[:-1]) < tolerance)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -586,9 +580,9 @@ def compute_diagram(
         controls = np.linspace(u_bounds[0], u_bounds[1], SEED_CONTROLS_ND)
         seeds = _seeds_nd(system, controls, reference, nonnegative)
         if current_control is not None:  # the attractor the lake is in now is a seed too
-            run = settle(system, reference, float(current_control), cap=1e5, limit=limit, rtol=1e-7)
+            run = _settle(system, reference, float(current_control), limit)
             if run.status is Status.SETTLED:
-                seeds.insert(0, (run.state, float(current_control)))
+                seeds.insert(0, (run.final_state[:, 0], float(current_control)))
 
     magnitude = np.max(np.abs([x for x, _ in seeds]), axis=0) if seeds else np.abs(reference)
     scale = np.concatenate([np.maximum(np.maximum(magnitude, np.abs(reference)), 1e-3), [width]])
@@ -692,7 +686,13 @@ def compute_diagram(
         classification = "reversible"
     report(1.0, "done")
     fields = {"folds": folds, "windows": windows, "window": window}
-    return Diagram(**{**diagram.__dict__, **fields, "classification": classification})
+    return dataclasses.replace(diagram, **fields, classification=classification)
+
+
+def _settle(system: System, x: np.ndarray, u: float, limit: float):
+    """Integrate at a frozen control until the state settles (cap 1e5 years)."""
+    limits = Limits(limit, system.model.spec.nonnegative_state)
+    return settle(system, x, u, cap=1e5, limits=limits, tolerance=Tolerance(rtol=1e-7, atol=1e-10))
 
 
 def _jump(diagram: Diagram, x_f: np.ndarray, u_beyond: float, limit: float) -> float:
@@ -710,10 +710,10 @@ def _jump(diagram: Diagram, x_f: np.ndarray, u_beyond: float, limit: float) -> f
     if system.n == 1:
         direction = np.sign(system.rhs(x_f, u_beyond)[0])
         return float(direction)
-    run = settle(system, x_f, u_beyond, cap=1e5, limit=limit, rtol=1e-7)
+    run = _settle(system, x_f, u_beyond, limit)
     if run.status not in (Status.SETTLED, Status.DIVERGED):
         return 0.0
-    change = run.state[k] - x_f[k]
+    change = run.final_state[k, 0] - x_f[k]
     if not np.isfinite(change) or abs(change) < 1e-6 * max(abs(x_f[k]), 1e-9):
         return 0.0
     return float(np.sign(change))
@@ -812,9 +812,14 @@ def locate(diagram: Diagram, state: np.ndarray, control: float, *, limit: float 
         if diagram.system.n == 1
         else []
     )
-    run = settle(diagram.system, np.asarray(state, dtype=float), control, cap=1e5, limit=limit)
-    attractor = run.state if run.status is Status.SETTLED else None
-    desired = None if attractor is None else diagram.is_desired(attractor, control)
+    from planner.verdict import attractors, on_desired
+
+    run = _settle(diagram.system, np.asarray(state, dtype=float), control, limit)
+    attractor = run.final_state[:, 0] if run.status is Status.SETTLED else None
+    desired = None
+    if attractor is not None:
+        where = attractors(diagram, control)
+        desired = bool(on_desired(where, diagram.system, attractor[:, None])[0])
     recovery, collapse = diagram.recovery_threshold, diagram.collapse_threshold
     return Standing(
         control=float(control),

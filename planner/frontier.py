@@ -13,10 +13,8 @@ verdict.
 
 Speed: for one floor all holds share the path down to the floor, so that part is integrated
 once with dense output; each verdict then only integrates the relaxation from the stored state
-at the moment the control leaves the floor. One integrator (``planner.simulate``) does all of it.
-For one-variable models the settled verdict is read off without settling: the state is in the
-desired basin exactly when no unstable equilibrium at relax_to lies between it and the desired
-attractor (the basins of a 1-D flow are the intervals between unstable equilibria).
+at the moment the control leaves the floor. The one engine (``planner.integrate``) does all of
+it, and the one verdict (``planner.verdict``) decides.
 
 Near the recovery fold the least hold follows the bottleneck law D ~ pi / sqrt(a b depth), with a
 = |df/du| and b = |d2f/dx2| / 2 at the fold (Strogatz 2015, Nonlinear Dynamics and Chaos, section
@@ -34,11 +32,13 @@ import numpy as np
 
 from planner.equilibria import Diagram, diagram_for
 from planner.errors import InputError, Problem
-from planner.outcomes import evaluate
+from planner.integrate import STATUSES, Save, Solution, Status, integrate
+from planner.integrate import Problem as Run
+from planner.outcomes import evaluate, limits_for
 from planner.progress import Progress, scaled, silent
 from planner.scenario import OvershootSchedule, Scenario, Schedule, StaircaseSchedule
 from planner.schedules import ControlPath
-from planner.simulate import Status, Trajectory, integrate_path, settle
+from planner.verdict import Verdict, attractors, decide
 
 HOLD_TOLERANCE = 0.01  # years: the least hold is bracketed this tightly (found value: upper end)
 DEPTH_TOLERANCE = 1e-4  # converse: depth bracket width, as a fraction of the control range width
@@ -195,68 +195,58 @@ class Verdicts:
         self.diagram = diagram
         self.family = family
         self.system = scenario.system()
+        self.limits = limits_for(scenario)
         self.count = 0
-        self._descents: dict[float, Trajectory] = {}
-        self._basin = self._basin_1d()
-
-    def _basin_1d(self) -> tuple[float, tuple[float, ...]] | None:
-        """For a one-variable model: the desired attractor at relax_to and the unstable
-        equilibria there (the basin boundaries). A state then lies in the desired basin exactly
-        when no unstable equilibrium lies between it and the attractor, which decides the verdict
-        without waiting for the state to settle. None for n-D models (they settle)."""
-        if self.system.n != 1:
-            return None
-        u = self.family.relax_to
-        desired = self.diagram.desired_attractor(u)
-        if desired is None:
-            return None
-        unstable = tuple(float(e.state[0]) for e in self.diagram.equilibria_at(u) if not e.stable)
-        return float(desired.state[0]), unstable
+        self._descents: dict[float, Solution] = {}
+        self._attractors = attractors(diagram, family.relax_to)
 
     def _recovers_from(self, x: np.ndarray) -> bool:
         """The verdict for a state at the moment the control reaches relax_to (held after)."""
         simulation = self.scenario.simulation
-        u = self.family.relax_to
-        if self._basin is not None:
-            desired, boundaries = self._basin
-            value = float(x[0])
-            if not np.isfinite(value) or abs(value) > simulation.state_limit:
-                return False
-            return not any((b - value) * (b - desired) <= 0 for b in boundaries)
-        end = settle(self.system, x, u, cap=simulation.settle_cap, limit=simulation.state_limit)
-        return end.status is Status.SETTLED and self.diagram.is_desired(end.state, u)
+        finished = np.array([STATUSES.index(Status.FINISHED)])
+        verdicts = decide(
+            self._attractors,
+            self.system,
+            np.asarray(x, dtype=float)[:, None],
+            finished,
+            np.array([self.family.horizon]),
+            horizon=self.family.horizon,
+            cap=simulation.settle_cap,
+            limit=simulation.state_limit,
+        )
+        return verdicts.first is Verdict.RECOVERED
 
-    def _descent(self, floor: float) -> Trajectory:
+    def _descent(self, floor: float) -> Solution:
         if floor not in self._descents:
             if len(self._descents) >= DESCENTS_KEPT:
                 self._descents.clear()
-            self._descents[floor] = integrate_path(
+            problem = Run(
                 self.system,
                 self.scenario.initial_state,
                 self.family.descent(floor),
                 self.family.horizon,
-                limit=self.scenario.simulation.state_limit,
             )
+            self._descents[floor] = integrate(problem, save=Save(dense=True), limits=self.limits)
         return self._descents[floor]
 
     def __call__(self, floor: float, hold: float) -> bool:
         """Whether the family's schedule (floor, hold) recovers (a hold that does not fit within
         the horizon never counts as recovering)."""
-        family, simulation = self.family, self.scenario.simulation
+        family = self.family
         if hold > family.max_hold(floor) + 1e-9 * family.horizon:
             return False
         self.count += 1
         descent = self._descent(floor)
         leave = min(family.leave_time(floor, hold), family.horizon)
-        if descent.status is not Status.FINISHED and descent.t_end < leave:
+        if descent.status is not Status.FINISHED and descent.t_end[0] < leave:
             return False
         x = np.asarray(descent.state_at(leave), dtype=float)
         path, years = family.relaxation(floor)
         if years > 0:
-            run = integrate_path(self.system, x, path, years, limit=simulation.state_limit)
+            run = integrate(Run(self.system, x, path, years), limits=self.limits)
             if run.status is not Status.FINISHED:
                 return False
-            x = run.final_state
+            x = run.final_state[:, 0]
         return self._recovers_from(x)
 
 

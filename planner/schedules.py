@@ -9,7 +9,6 @@ an infeasible schedule is reported with the first time it breaks a limit, and no
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -320,15 +319,18 @@ def check_limits(
 # actions
 
 
-def _pulse_multiplier(pulse: ParameterPulse, t: float) -> float:
+def _pulse_multiplier(pulse: ParameterPulse, t: float | np.ndarray) -> float | np.ndarray:
+    """The pulse's multiplier at time(s) t (years); vectorised over t."""
     end = pulse.start + pulse.duration
-    if t < pulse.start:
-        return 1.0
-    if t < end:
-        return float(pulse.factor)
+    t = np.asarray(t, dtype=float)
+    after = np.ones_like(t)
     if pulse.decay_years > 0:
-        return 1.0 + (pulse.factor - 1.0) * math.exp(-(t - end) / pulse.decay_years)
-    return 1.0
+        with np.errstate(over="ignore"):
+            after = 1.0 + (pulse.factor - 1.0) * np.exp(
+                -np.maximum(t - end, 0.0) / pulse.decay_years
+            )
+    value = np.where(t < pulse.start, 1.0, np.where(t < end, float(pulse.factor), after))
+    return float(value) if value.ndim == 0 else value
 
 
 @dataclass(frozen=True)
@@ -345,13 +347,13 @@ class ActionTimeline:
     pulses: tuple[ParameterPulse, ...]
     one_off_costs: tuple[tuple[float, float], ...]
 
-    def multipliers(self, t: float) -> dict[str, float]:
+    def multipliers(self, t: float | np.ndarray) -> dict[str, float | np.ndarray]:
         """Per pulsed parameter, the product of all its pulses' multipliers at time t (years).
 
         A pulse multiplies by 1 before its start, by ``factor`` on [start, start + duration), and
         after that by 1 + (factor - 1) exp(-(t - end) / decay_years) if decay_years > 0, else 1.
         """
-        out: dict[str, float] = {}
+        out: dict[str, float | np.ndarray] = {}
         for pulse in self.pulses:
             out[pulse.parameter] = out.get(pulse.parameter, 1.0) * _pulse_multiplier(pulse, t)
         return out

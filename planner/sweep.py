@@ -9,9 +9,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from planner.equilibria import follow_branch
+from planner.integrate import Limits, Status, settle
 from planner.models import System
 from planner.progress import Progress, silent
-from planner.simulate import Status, settle
 
 DEFAULT_STEPS = 200
 JUMP_TOLERANCE = 1e-3  # scaled distance between the settled state and the followed equilibrium
@@ -48,16 +48,18 @@ def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
         followed = None
         if previous_u is not None:
             followed = follow_branch(system, x, float(previous_u), float(u), width, magnitude)
-        run = settle(system, x, float(u), cap=cap, limit=limit)
+        limits = Limits(limit, system.model.spec.nonnegative_state)
+        run = settle(system, x, float(u), cap=cap, limits=limits)
         if run.status is Status.DIVERGED:
             break
         unsettled += run.status is not Status.SETTLED
-        scale = np.maximum(np.maximum(np.abs(x), np.abs(run.state)), 1e-9)
+        end = run.final_state[:, 0]
+        scale = np.maximum(np.maximum(np.abs(x), np.abs(end)), 1e-9)
         if previous_u is not None and (
-            followed is None or np.max(np.abs(run.state - followed) / scale) > JUMP_TOLERANCE
+            followed is None or np.max(np.abs(end - followed) / scale) > JUMP_TOLERANCE
         ):
-            jumps.append(Jump(direction, float(previous_u), float(u), x.copy(), run.state.copy()))
-        x = run.state
+            jumps.append(Jump(direction, float(previous_u), float(u), x.copy(), end.copy()))
+        x = end
         magnitude = np.maximum(magnitude, np.abs(x))
         states.append(x)
         previous_u = u

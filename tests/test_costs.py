@@ -15,6 +15,7 @@ from planner.costs import (
     abatement_cost_rate,
     no_costs,
     schedule_costs,
+    years_by_calendar_year,
 )
 from planner.scenario import Costs, Measure, PathSchedule
 from planner.schedules import ControlPath, control_path
@@ -69,7 +70,7 @@ def test_zero_discount_rate_present_value_is_the_total() -> None:
         baseline=10.0,
         horizon=12.5,
         one_off=[(3.0, 100.0)],
-        not_meeting_target=[(0.0, 6.0)],
+        not_met_by_year=years_by_calendar_year([(0.0, 6.0)], 12.5),
     )
     assert breakdown.yearly.size == 13
     assert breakdown.present_value == pytest.approx(breakdown.total, rel=1e-12)
@@ -234,7 +235,7 @@ def test_damage_counts_years_inside_the_intervals_once() -> None:
         _costs(0.05, damage=100.0),
         baseline=10.0,
         horizon=4,
-        not_meeting_target=[(2.0, 3.0), (0.5, 2.25), (3.5, 9.0)],
+        not_met_by_year=years_by_calendar_year([(2.0, 3.0), (0.5, 2.25), (3.5, 9.0)], 4),
     )
     assert breakdown.yearly == pytest.approx([50.0, 100.0, 100.0, 50.0], rel=1e-12)
     assert breakdown.damage_total == pytest.approx(300.0, rel=1e-12)

@@ -180,7 +180,7 @@ def test_meets_target_time_is_the_last_crossing():
     """meets_target_at is the first time after which P stays at or below the threshold: the
     planner's value is checked on its own trajectory by dense sampling (numpy)."""
     scenario = load_scenario(DEMO)
-    comparison = compare(scenario)
+    comparison = compare(scenario, dense=True)
     threshold = scenario.target.threshold
     for outcome in comparison.outcomes:
         run = outcome.trajectory

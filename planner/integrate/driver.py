@@ -373,7 +373,11 @@ def integrate(
             except StepError as failure:
                 message = str(failure)
                 failed = batch[mask]
-                codes[failed] = CODE[Status.FAILED]
+                # A step size that collapses while the state runs away is a blow-up in finite
+                # time (x' = x^2 and the like): divergence, not a failure of the method.
+                with np.errstate(invalid="ignore"):
+                    runaway = ~(np.max(np.abs(x[:, failed]), axis=0) < np.sqrt(limits.state_limit))
+                codes[failed] = np.where(runaway, CODE[Status.DIVERGED], CODE[Status.FAILED])
                 t_end[failed] = t_member[failed]
                 alive[failed] = False
             generator.close()

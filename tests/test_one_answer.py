@@ -1,0 +1,93 @@
+"""One question, one answer: compare, ensemble (no uncertainty) and the frontier's verdicts run
+the same schedules through the one engine and the one verdict, and must agree, including
+schedules whose in-lake action jumps the state across the target."""
+
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from planner.ensemble import run_ensemble
+from planner.equilibria import diagram_for
+from planner.frontier import Verdicts, family_for
+from planner.outcomes import compare
+from planner.scenario import scenario_from_data
+from planner.verdict import VERDICTS, Verdict
+
+DEMO = Path(__file__).resolve().parent.parent / "scenarios" / "alder-mere.toml"
+
+
+def _scenario(schedules: list[dict]) -> object:
+    data = tomllib.loads(DEMO.read_text(encoding="utf-8"))
+    data.pop("uncertainty", None)
+    data["schedules"] = schedules
+    return scenario_from_data(data)
+
+
+def _overshoot(name, floor, hold, actions=()):
+    return {
+        "name": name,
+        "kind": "overshoot",
+        "start": 0.0,
+        "floor": floor,
+        "down_years": 2.0,
+        "hold_years": hold,
+        "relax_to": 1.5,
+        "up_years": 1.0,
+        "actions": list(actions),
+    }
+
+
+# A drastic P inactivation at year 5 takes P below the target at once: the target is met from
+# that moment (a crossing caused by a jump, not by the flow).
+JUMP = {
+    "kind": "scale-state",
+    "name": "Inactivation",
+    "time": 5.0,
+    "variable": "P",
+    "factor": 0.2,
+    "cost": 400000.0,
+}
+SCHEDULES = [
+    _overshoot("Short hold with inactivation", 1.0, 1.0, [JUMP]),
+    _overshoot("Long deep hold with inactivation", 0.6, 8.0, [JUMP]),
+    _overshoot("Short shallow hold", 1.2, 1.0),
+    _overshoot("Long deep hold", 0.6, 8.0),
+]
+
+
+def test_compare_and_ensemble_give_one_answer():
+    """Every member of a no-uncertainty ensemble gets compare's verdict, target time (to the
+    interpolation of a crossing, 1e-5 years) and present value (the damages follow the target
+    record; 1e-6 relative); the jump across the target counts as meeting it at year 5 in both."""
+    scenario = _scenario(SCHEDULES)
+    comparison = compare(scenario)
+    ensemble = run_ensemble(scenario, members=3, diagram=comparison.diagram)
+    outcomes = {o.name: o for o in comparison.outcomes}
+    assert outcomes["Long deep hold with inactivation"].meets_target_at == pytest.approx(5.0)
+    verdicts = set()
+    for summary in ensemble.schedules:
+        outcome = outcomes[summary.name]
+        verdicts.add(outcome.verdict)
+        assert {VERDICTS[c] for c in summary.verdicts} == {outcome.verdict}, summary.name
+        if outcome.meets_target_at is None:
+            assert np.isnan(summary.meets_target_at).all(), summary.name
+        else:
+            np.testing.assert_allclose(summary.meets_target_at, outcome.meets_target_at, atol=1e-5)
+        np.testing.assert_allclose(summary.present_value, outcome.cost.present_value, rtol=1e-6)
+    assert verdicts == {Verdict.RECOVERED, Verdict.NOT_RECOVERED}
+
+
+@pytest.mark.parametrize(("floor", "hold"), [(1.0, 1.0), (0.6, 8.0), (0.8, 3.0), (1.2, 1.0)])
+def test_frontier_verdict_is_compares(floor, hold):
+    """The frontier's fast verdict for (floor, hold) equals compare's verdict for the same
+    schedule written out by the family (same engine, same settle, same attractor test)."""
+    scenario = _scenario([_overshoot("probe", 1.0, 1.0)])
+    diagram = diagram_for(scenario)
+    family = family_for(scenario, "overshoot", 1.5)
+    schedule = family.schedule(floor, hold)
+    outcome = compare(scenario, diagram=diagram, schedules=[schedule]).outcomes[0]
+    assert Verdicts(scenario, diagram, family)(floor, hold) == outcome.recovered
