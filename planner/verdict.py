@@ -85,7 +85,10 @@ def follow_equilibria(system: System, u: float, starts: np.ndarray, m: int):
         with np.errstate(all="ignore"):
             for _ in range(NEWTON_ITERATIONS):
                 step = batched_solve(system.jac(x, u).reshape(n, n, m), -system.rhs(x, u))
-                x = np.where(np.isfinite(step).all(axis=0), x + step, x)
+                moving = np.isfinite(step).all(axis=0)
+                x = np.where(moving, x + step, x)
+                if not np.any(moving & (np.abs(step) > 1e-14 * (1.0 + np.abs(x))).any(axis=0)):
+                    break
             residual = np.max(np.abs(system.rhs(x, u)), axis=0)
             converged = residual <= NEWTON_RESIDUAL * (1.0 + np.max(np.abs(x), axis=0))
             stable = _stable(system.jac(x, u).reshape(n, n, m))

@@ -312,15 +312,16 @@ def integrate(
                                 alive[gone] = False
                             tracker.absorbed.clear()
                     if samples is not None and not stepper.batched:
-                        while next_sample < sample_times.size and (
-                            sample_times[next_sample] <= step.t1 + 1e-12
-                        ):
-                            when = sample_times[next_sample]
-                            value = x1 if when >= step.t1 else step.at(when)
-                            if columns is not None and when < step.t1:
-                                value = value[:, columns]
-                            samples[next_sample][:, members] = value
-                            next_sample += 1
+                        # One run (m = 1): every sample inside the step from one interpolant call.
+                        stop = int(np.searchsorted(sample_times, step.t1 + 1e-12, side="right"))
+                        if stop > next_sample:
+                            when = sample_times[next_sample:stop]
+                            inside = when < step.t1
+                            values = np.repeat(x1, when.size, axis=1)
+                            if inside.any():
+                                values[:, inside] = step.interpolant.many(when[inside])
+                            samples[next_sample:stop, :, 0] = values.T
+                            next_sample = stop
                     if save.steps:
                         step_times.append(float(np.atleast_1d(step.t1)[0]))
                         step_states.append(step.x1[:, 0].copy())

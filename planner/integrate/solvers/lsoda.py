@@ -49,6 +49,13 @@ def _columns(dense):
     def at(t):
         return np.asarray(dense(np.asarray(t, dtype=float).reshape(-1)[0]), dtype=float)[:, None]
 
+    def many(times):
+        """States at several times at once, (n, len(times))."""
+        return np.asarray(dense(np.asarray(times, dtype=float)), dtype=float).reshape(
+            -1, len(times)
+        )
+
+    at.many = many
     return at
 
 
@@ -60,6 +67,12 @@ class _Lazy:
         self.built = None
 
     def __call__(self, t):
+        return self._built()(t)
+
+    def many(self, times):
+        return self._built().many(times)
+
+    def _built(self):
         if self.built is None:
             self.built = _columns(self.solver.dense_output())
-        return self.built(t)
+        return self.built
