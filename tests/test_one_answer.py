@@ -91,3 +91,33 @@ def test_frontier_verdict_is_compares(floor, hold):
     schedule = family.schedule(floor, hold)
     outcome = compare(scenario, diagram=diagram, schedules=[schedule]).outcomes[0]
     assert Verdicts(scenario, diagram, family)(floor, hold) == outcome.recovered
+
+
+def test_a_relapse_after_a_jump_reads_the_same_in_compare_and_ensemble():
+    """Water and sediment P (the Brellow demo): an inactivation at year 5 takes water P below
+    the target at once; at a load of 0.7 the lake stays clear, at 1.2 the sediment brings it
+    back (a relapse). compare and a no-uncertainty ensemble agree on both, member by member."""
+    data = tomllib.loads((DEMO.parent / "brellow-reservoir.toml").read_text(encoding="utf-8"))
+    data.pop("uncertainty", None)
+    jump = {**JUMP, "variable": "X"}
+    data["schedules"] = [
+        {
+            "name": f"Hold {load} with inactivation",
+            "kind": "path",
+            "actions": [jump],
+            "points": [[0.0, 0.8], [3.0, load]],
+        }
+        for load in (0.7, 1.2)
+    ]
+    scenario = scenario_from_data(data)
+    comparison = compare(scenario)
+    clear, relapse = comparison.outcomes
+    assert clear.recovered and clear.meets_target_at == pytest.approx(5.0) and not clear.relapsed
+    assert not relapse.recovered and relapse.meets_target_at is None and relapse.relapsed
+    assert 5.0 < relapse.years_meeting_target < scenario.simulation.horizon - 5.0
+    ensemble = run_ensemble(scenario, members=2, diagram=comparison.diagram)
+    for outcome, summary in zip(comparison.outcomes, ensemble.schedules, strict=True):
+        assert {VERDICTS[c] for c in summary.verdicts} == {outcome.verdict}
+        expected = np.nan if outcome.meets_target_at is None else outcome.meets_target_at
+        np.testing.assert_allclose(summary.meets_target_at, expected, atol=1e-5)
+        np.testing.assert_allclose(summary.present_value, outcome.cost.present_value, rtol=1e-6)
