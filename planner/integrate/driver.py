@@ -38,7 +38,7 @@ def choose_solver(problem: Problem, *, settling: bool = False) -> str:
     if problem.noise is not None and not settling:
         return "euler-maruyama"
     scalar = all(np.ndim(v) == 0 for v in problem.system.parameter_values)
-    if problem.members == 1 and scalar and np.ndim(problem.initial_state) == 1:
+    if problem.members == 1 and scalar:
         return "lsoda"
     return "rosenbrock23" if settling else "dopri5"
 
@@ -294,6 +294,38 @@ def integrate(
             try:
                 for step in generator:
                     steps += 1
+                    if not stepper.batched:
+                        # One run: the checks below on plain floats (numpy's per-call cost on a
+                        # one-element array would dominate the step).
+                        if step.h_next > 0:
+                            h = step.h_next
+                        member = int(batch[0])
+                        y = step.x1[:, 0]
+                        t_member[member] = step.t1
+                        if tracker is not None:
+                            tracker.step(step, batch, None)
+                        _record_single(step, y, save, sample_times, samples, next_sample)
+                        if samples is not None:
+                            next_sample = int(
+                                np.searchsorted(sample_times, step.t1 + 1e-12, side="right")
+                            )
+                        if save.steps:
+                            step_times.append(float(step.t1))
+                            step_states.append(y.copy())
+                        if save.dense:
+                            dense.append((float(step.t0), float(step.t1), step))
+                        x[:, member] = y
+                        end = _single_end(
+                            piece, step.t1, y, limits, settling, settle_scale[:, member]
+                        )
+                        if end is None and not alive[member]:
+                            break  # absorbed by the watch
+                        if end is not None:
+                            codes[member] = CODE[end]
+                            t_end[member] = step.t1
+                            alive[member] = False
+                            break
+                        continue
                     columns = None if all_counted else np.nonzero(mask)[0]
                     members = batch if columns is None else batch[columns]
                     x1 = step.x1 if columns is None else step.x1[:, columns]
@@ -311,17 +343,6 @@ def integrate(
                                 t_end[gone] = when
                                 alive[gone] = False
                             tracker.absorbed.clear()
-                    if samples is not None and not stepper.batched:
-                        # One run (m = 1): every sample inside the step from one interpolant call.
-                        stop = int(np.searchsorted(sample_times, step.t1 + 1e-12, side="right"))
-                        if stop > next_sample:
-                            when = sample_times[next_sample:stop]
-                            inside = when < step.t1
-                            values = np.repeat(x1, when.size, axis=1)
-                            if inside.any():
-                                values[:, inside] = step.interpolant.many(when[inside])
-                            samples[next_sample:stop, :, 0] = values.T
-                            next_sample = stop
                     if save.steps:
                         step_times.append(float(np.atleast_1d(step.t1)[0]))
                         step_states.append(step.x1[:, 0].copy())
@@ -408,6 +429,35 @@ def integrate(
         message=message,
         dense=tuple(dense),
     )
+
+
+def _record_single(step: Step, y, save, sample_times, samples, next_sample) -> None:
+    """A single run's samples inside the step, from one interpolant call."""
+    if samples is None:
+        return
+    stop = int(np.searchsorted(sample_times, step.t1 + 1e-12, side="right"))
+    if stop > next_sample:
+        when = sample_times[next_sample:stop]
+        inside = when < step.t1
+        values = np.repeat(y[:, None], when.size, axis=1)
+        if inside.any():
+            values[:, inside] = step.interpolant.many(when[inside])
+        samples[next_sample:stop, :, 0] = values.T
+
+
+def _single_end(piece, t: float, y: np.ndarray, limits: Limits, settling, scale) -> Status | None:
+    """Whether a single run stops after this step: diverged, settled, or neither (None)."""
+    values = y.tolist()
+    limit, lower = limits.state_limit, limits.lower
+    if not all(abs(v) <= limit for v in values) or (lower is not None and min(values) < lower):
+        return Status.DIVERGED
+    if settling is None:
+        return None
+    slopes = piece.scalar_rhs(t, y).tolist()
+    rate = max(
+        abs(f) / max(s, abs(v)) for f, s, v in zip(slopes, scale.tolist(), values, strict=True)
+    )
+    return Status.SETTLED if rate < settling.rate else None
 
 
 def _sample_times(save: Save, horizon: float) -> np.ndarray | None:
