@@ -122,8 +122,9 @@ class _Tracker:
                 c = b - gb * (b - a) / (gb - ga)
             low, high = np.minimum(a, b), np.maximum(a, b)
             c = np.where(np.isfinite(c) & (c >= low) & (c <= high), c, 0.5 * (a + b))
-            state = step.at(c[0] if m == 1 else _spread(c, columns, m))
-            gc = sign * (state[k, columns] - level)
+            state = step.at(c[0]) if m == 1 else step.at(c, columns)
+            value = state[k, columns] if m == 1 else state[k]
+            gc = sign * (value - level)
             opposite = np.sign(gc) != np.sign(gb)
             new_a = np.where(opposite, b, a)
             new_ga = np.where(opposite, gb, 0.5 * ga)
@@ -189,13 +190,6 @@ def _add_intervals(missing: np.ndarray, members: np.ndarray, p: np.ndarray, q: n
         valid = k <= last
         overlap = np.minimum(q, k + 1.0) - np.maximum(p, k)
         np.add.at(missing, (k[valid], members[valid]), np.maximum(overlap[valid], 0.0))
-
-
-def _spread(values: np.ndarray, columns: np.ndarray, m: int) -> np.ndarray:
-    """Per-member times for an interpolant: the given columns' values, others their own end."""
-    out = np.full(m, np.nan)
-    out[columns] = values
-    return out
 
 
 def integrate(

@@ -40,24 +40,33 @@ class Step:
     h_next: float | np.ndarray
     interpolant: Callable[[float | np.ndarray], np.ndarray] | None = None
 
-    def at(self, t: float | np.ndarray) -> np.ndarray:
-        """State at time(s) t within the step: t scalar or one time per member; (n, m)."""
+    def at(self, t: float | np.ndarray, columns: np.ndarray | None = None) -> np.ndarray:
+        """State at time(s) t within the step: t scalar or one time per member (per column of
+        ``columns`` when given: only those members are interpolated); (n, m) or (n, columns)."""
         if self.interpolant is not None:
             return self.interpolant(t)
-        h = np.asarray(self.t1 - self.t0, dtype=float)
+        x0, x1, f0, f1 = self.x0, self.x1, self.f0, self.f1
+        t0, t1 = np.asarray(self.t0, dtype=float), np.asarray(self.t1, dtype=float)
+        if columns is not None:
+            x0, x1 = x0[:, columns], x1[:, columns]
+            f0 = None if f0 is None else f0[:, columns]
+            f1 = None if f1 is None else f1[:, columns]
+            t0 = t0 if t0.ndim == 0 else t0[columns]
+            t1 = t1 if t1.ndim == 0 else t1[columns]
+        h = t1 - t0
         if np.all(h <= 0):
-            return self.x1.copy()
+            return x1.copy()
         with np.errstate(all="ignore"):
-            s = np.where(h > 0, (np.asarray(t, dtype=float) - self.t0) / np.where(h > 0, h, 1), 1.0)
-        if self.f0 is None or self.f1 is None:
-            return self.x0 + s * (self.x1 - self.x0)
+            s = np.where(h > 0, (np.asarray(t, dtype=float) - t0) / np.where(h > 0, h, 1), 1.0)
+        if f0 is None or f1 is None:
+            return x0 + s * (x1 - x0)
         # Cubic Hermite interpolation from both ends' states and slopes (fourth-order local).
         s2, s3 = s * s, s * s * s
         return (
-            (2 * s3 - 3 * s2 + 1) * self.x0
-            + (s3 - 2 * s2 + s) * h * self.f0
-            + (-2 * s3 + 3 * s2) * self.x1
-            + (s3 - s2) * h * self.f1
+            (2 * s3 - 3 * s2 + 1) * x0
+            + (s3 - 2 * s2 + s) * h * f0
+            + (-2 * s3 + 3 * s2) * x1
+            + (s3 - s2) * h * f1
         )
 
 
