@@ -5,9 +5,10 @@ Regression Analysis and Its Applications, ch. 2):
 
 - The recorded yearly loads become a piecewise-linear control path (linear interpolation between
   the rows that have a load, held before the first and after the last); the model is integrated
-  under it by :func:`planner.simulate.integrate_path` (the one integrator) from a fitted initial
-  state at the first time of the record. Each observed value is compared with the model state
-  at its time (an annual value is compared with the state at its time stamp).
+  under it by the one engine (:func:`planner.integrate.integrate`, sampled exactly at the
+  record's times) from a fitted initial state at the first time of the record. Each observed
+  value is compared with the model state at its time (an annual value is compared with the
+  state at its time stamp).
 - Fitted quantities: the chosen parameters and the initial state. Parameters with a
   non-negative physical lower bound (rates, half-saturation levels, steepness) are fitted as
   logarithms, which keeps them positive and makes their intervals multiplicative; the initial
@@ -28,9 +29,15 @@ Regression Analysis and Its Applications, ch. 2):
   Jacobian at the fold (implicit function theorem on f(x, u, theta) = 0 along the fold curve).
 - Residual bootstrap (Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 9):
   centred residuals of each variable, inflated by sqrt(n / (n - p)), are resampled with
-  replacement and added to the fitted values; each replicate is refitted from the estimate and
-  its diagram recomputed; percentile intervals. Replicates without a recovery threshold (no
-  hysteresis window on their equilibrium curve) are counted and reported, never dropped silently.
+  replacement and added to the fitted values; percentile intervals. All replicates are refitted
+  together, as the members of one batch: Levenberg-Marquardt where each iteration integrates the
+  sensitivity system of every replicate still running in one batched run of the engine and
+  solves each replicate's small damped normal equations (same fitting scale, bounds, residuals
+  and tolerance as the fit). Each replicate's thresholds follow the fitted model's folds by
+  Newton on the fold conditions, all replicates at once, instead of a diagram per replicate
+  (a full diagram per replicate only where the fitted diagram is not one bistable window).
+  Replicates without a recovery threshold (no hysteresis window on their equilibrium curve) are
+  counted and reported, never dropped silently.
 
 Residuals are treated as independent; yearly records with serially correlated errors give
 intervals that are too narrow.
@@ -38,6 +45,7 @@ intervals that are too narrow.
 
 from __future__ import annotations
 
+import contextlib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cache
@@ -45,28 +53,42 @@ from typing import Any
 
 import numpy as np
 import sympy
-from scipy import stats
 from scipy.optimize import least_squares
+from scipy.special import stdtrit
 
-from planner.equilibria import Diagram, diagram_for
+from planner.equilibria import EXTEND, NEGATIVE_MARGIN, Diagram, Fold, diagram_for
 from planner.errors import InputError, Problem
-from planner.models import ModelSpec, compile_model
+from planner.integrate import Limits, Save, Status, Tolerance, Trajectory, integrate, trajectory
+from planner.integrate import Problem as IntegrationProblem
+from planner.models import ModelSpec, System, compile_model
 from planner.monitoring import Record, same_unit
 from planner.progress import Progress, scaled, silent
 from planner.report import CAUTION
 from planner.scenario import Scenario, scenario_from_data
 from planner.schedules import ControlPath
-from planner.simulate import Status, Trajectory, integrate_path
 
 CONFIDENCE = 0.95
 DEFAULT_BOOTSTRAP = 200
 MIN_RESIDUAL_DOF = 3  # observations beyond the fitted quantities (common practice, no source)
 FIT_RTOL = 1e-7  # integration tolerance inside the fit (well below any measurement error)
+FIT_ATOL_SHARE = 1e-2  # absolute tolerance: this share of FIT_RTOL times each variable's scale
+STIFF_RATIO = 300.0  # fastest rate x record spacing above which refits take the stiff stepper
+TRAJECTORY_SAMPLES_PER_YEAR = 10  # samples of the fitted trajectory between solver steps (plots)
 PARAMETER_SPAN = 1e3  # a fitted positive parameter stays within base / 1e3 .. base * 1e3
 STATE_FLOOR = 1e-6  # smallest starting guess for a log-fitted initial state
 MAX_EVALUATIONS = 200
 FIT_TOLERANCE = 1e-8  # least_squares ftol, xtol and gtol of the fit
 BOOTSTRAP_TOLERANCE = 1e-5  # ... of each bootstrap refit (its spread dwarfs this)
+DAMPING_START = 1e-3  # Levenberg-Marquardt damping of the first trial step of each refit
+DAMPING_FACTOR = 10.0  # damping divided by this after an accepted step, multiplied after a rejected
+DAMPING_MAX = 1e12  # a refit whose step is rejected even this damped has stalled
+TRIAL_STEP = 1.0  # largest change of a fitted quantity per trial step (a factor e for logarithms)
+FOLD_ITERATIONS = 30  # Newton iterations tracking a fold of the fitted model to a replicate
+FOLD_RESIDUAL = 1e-10  # largest |f| (relative to 1 + |x|) at a tracked fold
+FOLD_STEP = 1e-12  # relative Newton step below which a tracked fold has converged
+FOLD_STAGES = 8  # stages from the fitted parameters to a replicate's when the direct Newton fails
+EQUILIBRIUM_SEEDS = 48  # Newton starts along the fitted curves when counting stable equilibria
+EQUILIBRIUM_ITERATIONS = 40  # Newton iterations of that count (damped, from afar)
 FAILED_RESIDUAL = 1e6  # residual returned where the model cannot be simulated (step rejected)
 SINGULAR = 1e-10  # smallest / largest singular value of J below which J^T J is singular
 FLAT_DIRECTION = 1e-4  # ... below which a direction counts as flat (cond(J^T J) > 1e8)
@@ -301,7 +323,10 @@ def sensitivity_spec(spec: ModelSpec, fitted: tuple[str, ...]) -> ModelSpec:
 
 @dataclass(frozen=True)
 class _Layout:
-    """How the fitted vector z maps to parameters and initial state, with bounds."""
+    """How the fitted vector z maps to parameters and initial state, with bounds.
+
+    z is (p,) for one fit or (p, members) for a batch of refits (one column per member).
+    """
 
     names: tuple[str, ...]  # fitted parameters
     variables: tuple[str, ...]
@@ -319,15 +344,19 @@ class _Layout:
         return (*self.names, *(f"initial {v}" for v in self.variables))
 
     def natural(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Parameters (k,) and initial state (n,) from z."""
-        theta = np.where(self.log_parameter, np.exp(z[: self.k]), z[: self.k])
-        x0 = np.exp(z[self.k :]) if self.log_state else z[self.k :].copy()
+        """Parameters (k, ...) and initial state (n, ...) from z (p, ...)."""
+        k = self.k
+        logs = self.log_parameter.reshape((k,) + (1,) * (z.ndim - 1))
+        with np.errstate(over="ignore"):  # exp of a parameter fitted as is, then discarded
+            theta = np.where(logs, np.exp(z[:k]), z[:k])
+        x0 = np.exp(z[k:]) if self.log_state else z[k:].copy()
         return theta, x0
 
     def chain(self, z: np.ndarray) -> np.ndarray:
-        """d(natural)/dz for each component (the log-scale factor, or 1)."""
+        """d(natural)/dz for each component (the log-scale factor, or 1); shaped like z."""
         theta, x0 = self.natural(z)
-        factor_theta = np.where(self.log_parameter, theta, 1.0)
+        logs = self.log_parameter.reshape((self.k,) + (1,) * (z.ndim - 1))
+        factor_theta = np.where(logs, theta, 1.0)
         factor_x0 = x0 if self.log_state else np.ones_like(x0)
         return np.concatenate([factor_theta, factor_x0])
 
@@ -336,7 +365,14 @@ class _Layout:
 
 
 class _Simulator:
-    """Predictions of the observed values and their derivatives in z, one run per z (cached)."""
+    """Predictions of the observed values and their derivatives in z: one run of the engine
+    (:func:`planner.integrate.integrate`) of the model with its sensitivities, sampled exactly at
+    the record's times, for one z or for a batch of them (one member per column).
+
+    Fitted parameters are passed to the engine as arrays over members even for a single fit: the
+    engine then compiles the sensitivity system once for every z (a scalar parameter would be
+    folded into freshly generated code at each new value).
+    """
 
     def __init__(self, scenario: Scenario, observations: Observations, layout: _Layout):
         self.scenario = scenario
@@ -345,12 +381,19 @@ class _Simulator:
         spec = scenario.spec
         self.n = len(spec.variables)
         self.model = compile_model(sensitivity_spec(spec, layout.names), scenario.control.parameter)
-        self.unique_times = observations.times
+        self.sample_times = tuple(float(t) for t in observations.times)
+        self.tolerance = Tolerance(rtol=FIT_RTOL, atol=FIT_RTOL * FIT_ATOL_SHARE)
+        # Sensitivities take either sign: only the magnitude limit of the scenario applies.
+        self.limits = Limits(scenario.simulation.state_limit)
+        self.solver = _solver_for(scenario, observations)
         self._last: tuple[bytes, Any] | None = None
 
-    def parameters(self, theta: np.ndarray) -> dict[str, float]:
-        values = dict(self.scenario.model.parameters)
-        values.update({name: float(v) for name, v in zip(self.layout.names, theta, strict=True)})
+    def parameters(self, theta: np.ndarray) -> dict[str, Any]:
+        """Every model parameter: the scenario's, with the fitted ones from theta ((k,) numbers
+        or (k, members) arrays)."""
+        values: dict[str, Any] = dict(self.scenario.model.parameters)
+        for name, value in zip(self.layout.names, theta, strict=True):
+            values[name] = value if np.ndim(value) else float(value)
         return values
 
     def run(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
@@ -358,35 +401,55 @@ class _Simulator:
         key = np.asarray(z, dtype=float).tobytes()
         if self._last is not None and self._last[0] == key:
             return self._last[1]
-        result = self._run(np.asarray(z, dtype=float))
+        predicted, derivative, ok = self.run_batch(np.asarray(z, dtype=float)[:, None])
+        result = (predicted[:, 0], derivative[:, :, 0]) if ok[0] else None
         self._last = (key, result)
         return result
 
-    def _run(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    def run_batch(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """For z (p, members): predicted values (m, members), their derivatives in z
+        (m, p, members) and which members ran to the end of the record with finite values."""
         layout, obs, n = self.layout, self.observations, self.n
+        members = z.shape[1]
         theta, x0 = layout.natural(z)
         p = layout.k + n
-        start = np.concatenate([x0, np.zeros(n * p)])
+        start = np.zeros((n + n * p, members))
+        start[:n] = x0
         for i in range(n):
             start[n + i * p + layout.k + i] = 1.0
         system = self.model.bind(self.parameters(theta))
-        run = integrate_path(
-            system,
-            start,
-            obs.path,
-            obs.horizon,
-            rtol=FIT_RTOL,
-            limit=self.scenario.simulation.state_limit,
+        solution = integrate(
+            IntegrationProblem(system, start, obs.path, obs.horizon),
+            save=Save(at=self.sample_times),
+            limits=self.limits,
+            tolerance=self.tolerance,
+            solver=self.solver,
         )
-        if run.status is not Status.FINISHED:
-            return None
-        at = run.state_at(self.unique_times)
-        if not np.all(np.isfinite(at)):
-            return None
-        predicted = at[obs.variable_index, obs.time_index]
-        sens = at[n:].reshape(n, p, -1)
-        derivative = sens[obs.variable_index, :, obs.time_index] * layout.chain(z)
-        return predicted, derivative
+        at = solution.samples  # (times, n + n p, members)
+        predicted = at[obs.time_index, obs.variable_index]
+        sens = at[:, n:].reshape(at.shape[0], n, p, members)
+        derivative = sens[obs.time_index, obs.variable_index] * layout.chain(z)[None]
+        with np.errstate(invalid="ignore"):
+            ok = solution.has(Status.FINISHED) & np.all(np.isfinite(at), axis=(0, 1))
+        return predicted, derivative, ok
+
+
+def _solver_for(scenario: Scenario, observations: Observations) -> str:
+    """The engine's batched stepper for the record: Dormand-Prince, or Rosenbrock when the model
+    is stiff on the record's time scale (its fastest rate, at the observed states under the
+    recorded loads, times the shortest spacing of the record's times exceeds STIFF_RATIO)."""
+    system = scenario.system()
+    times = observations.times[observations.time_index]
+    states = np.repeat(_start_state(scenario, observations)[:, None], times.size, axis=1)
+    states[observations.variable_index, np.arange(times.size)] = observations.values
+    jacobians = np.moveaxis(system.jac(states, observations.path(times)), -1, 0)
+    finite = np.isfinite(jacobians).all(axis=(1, 2))
+    if not finite.any():
+        return "dopri5"
+    fastest = float(np.max(np.abs(np.linalg.eigvals(jacobians[finite]))))
+    spacing = np.diff(np.unique(observations.times))
+    shortest = float(np.min(spacing)) if spacing.size else observations.horizon
+    return "rosenbrock23" if fastest * shortest > STIFF_RATIO else "dopri5"
 
 
 # ---------------------------------------------------------------------------------------------
@@ -579,6 +642,21 @@ def _start_state(scenario: Scenario, observations: Observations) -> np.ndarray:
     return guess
 
 
+def _on_fitting_scale(
+    predicted: np.ndarray, derivative: np.ndarray, weights: np.ndarray, log: bool
+) -> tuple[np.ndarray, np.ndarray, Any]:
+    """Predicted values (m, ...) and their derivatives in z (m, p, ...) on the fitting scale:
+    logarithms, or divided by each observation's weight; with whether each member (column) is
+    usable (logarithms need positive values). One fit or a batch of members alike."""
+    if log:
+        ok = np.all(predicted > 0, axis=0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.log(predicted), derivative / predicted[:, None], ok
+    shape = (-1,) + (1,) * (predicted.ndim - 1)
+    ok = np.ones(predicted.shape[1:], dtype=bool)
+    return predicted / weights.reshape(shape), derivative / weights.reshape(shape)[:, None], ok
+
+
 class _Objective:
     """Residuals and their Jacobian for one set of observed values (on the fitting scale)."""
 
@@ -589,11 +667,8 @@ class _Objective:
         self.target = np.log(observed) if log else observed / weights
 
     def _transform(self, predicted: np.ndarray, derivative: np.ndarray):
-        if self.log:
-            if np.any(predicted <= 0):
-                return None
-            return np.log(predicted), derivative / predicted[:, None]
-        return predicted / self.weights, derivative / self.weights[:, None]
+        values, derivative, ok = _on_fitting_scale(predicted, derivative, self.weights, self.log)
+        return (values, derivative) if ok else None
 
     def residuals(self, z: np.ndarray) -> np.ndarray:
         result = self.simulator.run(z)
@@ -700,14 +775,13 @@ def fit_record(
     sigma = float(np.sqrt(np.sum(residuals**2) / dof))
     singular = np.linalg.svd(jacobian, compute_uv=False)
     covariance = _covariance(jacobian, sigma)
-    t_value = float(stats.t.ppf(0.5 + CONFIDENCE / 2, dof))
+    t_value = float(stdtrit(dof, 0.5 + CONFIDENCE / 2))  # Student's t quantile
     report(0.15, "equilibria of the fitted model")
 
     theta, x0 = layout.natural(z)
     parameters = simulator.parameters(theta)
-    nominal = scenario.system(**{n: parameters[n] for n in names})
-    trajectory = integrate_path(nominal, x0, observations.path, observations.horizon, rtol=FIT_RTOL)
-    end_state = trajectory.state_at(observations.horizon)
+    run = _fitted_trajectory(scenario, observations, {n: parameters[n] for n in names}, x0)
+    end_state = run.final_state
     end_control = float(observations.path(observations.horizon))
     warnings: list[str] = []
     fitted_scenario = _fitted_scenario(
@@ -727,6 +801,7 @@ def fit_record(
             layout,
             z,
             residuals,
+            diagram,
             fitted_scenario,
             bootstrap,
             seed,
@@ -795,7 +870,7 @@ def fit_record(
         dof=dof,
         covariance=covariance,
         singular_values=singular,
-        trajectory=trajectory,
+        trajectory=run,
         bootstrap=boot,
         warnings=tuple(warnings),
         identifiable=identifiable,
@@ -970,75 +1045,515 @@ def _with_parameters(scenario: Scenario, parameters: Mapping[str, float]) -> Sce
     return scenario.model_copy(update={"model": model})
 
 
+def _fitted_trajectory(
+    scenario: Scenario, observations: Observations, fitted: Mapping[str, float], x0: np.ndarray
+) -> Trajectory:
+    """The fitted model's state over the record, from the fitted initial state: solver steps
+    plus TRAJECTORY_SAMPLES_PER_YEAR samples a year (plots); its end is the fitted scenario's
+    present."""
+    solution = integrate(
+        IntegrationProblem(scenario.system(**fitted), x0, observations.path, observations.horizon),
+        save=Save(every=1.0 / TRAJECTORY_SAMPLES_PER_YEAR, steps=True),
+        limits=Limits(scenario.simulation.state_limit, scenario.spec.nonnegative_state),
+        tolerance=Tolerance(rtol=FIT_RTOL, atol=FIT_RTOL * FIT_ATOL_SHARE),
+    )
+    return trajectory(solution, observations.path)
+
+
+def _resampled(
+    residuals: np.ndarray,
+    fitted_values: np.ndarray,
+    variable_index: np.ndarray,
+    p: int,
+    replicates: int,
+    seed: int,
+) -> np.ndarray:
+    """Residual bootstrap data on the fitting scale, (m, replicates): the fitted values plus each
+    variable's centred residuals, inflated by sqrt(m / (m - p)), drawn with replacement."""
+    m = residuals.size
+    inflate = np.sqrt(m / (m - p))
+    groups = [np.nonzero(variable_index == i)[0] for i in np.unique(variable_index)]
+    centred = residuals.copy()
+    for group in groups:
+        centred[group] -= centred[group].mean()
+    rng = np.random.default_rng(seed)
+    noise = np.empty((m, replicates))
+    for b in range(replicates):
+        for group in groups:
+            noise[group, b] = rng.choice(centred[group], size=group.size, replace=True) * inflate
+    return fitted_values[:, None] + noise
+
+
+@dataclass(frozen=True)
+class _Refits:
+    """Batched refits: z (p, members) and which members converged."""
+
+    z: np.ndarray
+    converged: np.ndarray
+    evaluations: int  # batched integrations used
+
+
+def _refit_batch(
+    simulator: _Simulator,
+    targets: np.ndarray,
+    weights: np.ndarray,
+    log: bool,
+    starts: np.ndarray,
+    estimate: np.ndarray,
+    tolerance: float,
+    report: Progress,
+) -> _Refits:
+    """Least squares for many data sets at once (one member per column of ``targets``, on the
+    fitting scale): Levenberg-Marquardt with Marquardt's scaling (Marquardt 1963, J. SIAM
+    11:431-441; Nocedal & Wright 2006, Numerical Optimization, section 10.3).
+
+    Each iteration integrates the model and its sensitivities for every member still running in
+    one batched run of the engine, solves each member's damped normal equations
+    (J^T J + lambda diag(J^T J)) dz = -J^T r, keeps the bounds by clipping, and accepts the step
+    of a member whose sum of squares falls (damping / DAMPING_FACTOR) or rejects it (damping x
+    DAMPING_FACTOR). A member has converged, as in scipy's least_squares, when an accepted step
+    lowers the sum of squares by less than ``tolerance`` of it or moves z by less than
+    ``tolerance`` (tolerance + |z|); it fails when its damping passes DAMPING_MAX or it is
+    still running after MAX_EVALUATIONS integrations. A start that cannot be simulated is
+    replaced by ``estimate``.
+    """
+    layout = simulator.layout
+    lower, upper = layout.lower[:, None], layout.upper[:, None]
+    members = starts.shape[1]
+    reach = TRIAL_STEP * np.where(layout.log_scale(), 1.0, np.maximum(np.abs(estimate), 1.0))
+
+    def evaluate(z: np.ndarray, index: np.ndarray):
+        """Residuals, Jacobian and usability of the members ``index`` at z (p, len(index))."""
+        predicted, derivative, ran = simulator.run_batch(z)
+        values, jacobian, usable = _on_fitting_scale(predicted, derivative, weights, log)
+        residuals = values - targets[:, index]
+        with np.errstate(invalid="ignore"):
+            ok = ran & usable & np.isfinite(residuals).all(axis=0)
+            ok &= np.isfinite(jacobian).all(axis=(0, 1))
+        return residuals, jacobian, ok
+
+    z = starts.copy()
+    residuals, jacobian, ok = evaluate(z, np.arange(members))
+    evaluations = 1
+    if not ok.all():
+        index = np.nonzero(~ok)[0]
+        z[:, index] = estimate[:, None]
+        again = evaluate(z[:, index], index)
+        residuals[:, index], jacobian[:, :, index], ok[index] = again
+        evaluations += 1
+    cost = 0.5 * np.sum(residuals**2, axis=0)
+    damping = np.full(members, DAMPING_START)
+    running = ok.copy()
+    converged = np.zeros(members, dtype=bool)
+    while running.any() and evaluations < MAX_EVALUATIONS:
+        report(
+            float(np.mean(~running)), f"bootstrap refits: {int(converged.sum())} of {members} done"
+        )
+        index = np.nonzero(running)[0]
+        step = _damped_steps(jacobian[:, :, index], residuals[:, index], damping[index], reach)
+        here = z[:, index]
+        trial = np.clip(here + step, lower, upper)
+        moved = np.linalg.norm(trial - here, axis=0)
+        new_residuals, new_jacobian, ok = evaluate(trial, index)
+        evaluations += 1
+        new_cost = 0.5 * np.sum(new_residuals**2, axis=0)
+        with np.errstate(invalid="ignore"):
+            better = ok & (new_cost < cost[index])
+        small_step = moved <= tolerance * (tolerance + np.linalg.norm(here, axis=0))
+        small_gain = cost[index] - new_cost <= tolerance * cost[index]
+        accepted = index[better]
+        z[:, accepted] = trial[:, better]
+        residuals[:, accepted] = new_residuals[:, better]
+        jacobian[:, :, accepted] = new_jacobian[:, :, better]
+        cost[accepted] = new_cost[better]
+        damping[accepted] /= DAMPING_FACTOR
+        damping[index[~better]] *= DAMPING_FACTOR
+        # A rejected step too small to matter: the member sits at its minimum to within what the
+        # integration resolves.
+        done = (better & (small_step | small_gain)) | (~better & ok & small_step)
+        converged[index[done]] = True
+        running[index[done]] = False
+        running[damping > DAMPING_MAX] = False
+    report(1.0, f"bootstrap refits: {int(converged.sum())} of {members} done")
+    return _Refits(z=z, converged=converged, evaluations=evaluations)
+
+
+def _damped_steps(
+    jacobian: np.ndarray, residuals: np.ndarray, damping: np.ndarray, reach: np.ndarray
+) -> np.ndarray:
+    """Levenberg-Marquardt steps (p, members) from J (m, p, members), r (m, members) and each
+    member's damping, each shortened so that no component moves more than ``reach`` (p,)."""
+    normal = np.einsum("aib,ajb->bij", jacobian, jacobian)
+    gradient = np.einsum("aib,ab->bi", jacobian, residuals)
+    diagonal = np.diagonal(normal, axis1=1, axis2=2)
+    floor = 1e-12 * np.max(diagonal, axis=1, keepdims=True) + 1e-300
+    scaling = np.maximum(diagonal, floor) * damping[:, None]
+    matrix = normal + scaling[:, :, None] * np.eye(normal.shape[1])
+    try:
+        step = -np.linalg.solve(matrix, gradient[..., None])[..., 0]
+    except np.linalg.LinAlgError:  # an exactly singular member: least-norm steps for all
+        step = -np.einsum("bij,bj->bi", np.linalg.pinv(matrix), gradient)
+    longest = np.max(np.abs(step) / reach, axis=1, keepdims=True)
+    step = step / np.maximum(longest, 1.0)
+    return np.where(np.isfinite(step), step, 0.0).T
+
+
+# ---------------------------------------------------------------------------------------------
+# Thresholds of the bootstrap replicates
+
+
+@dataclass(frozen=True)
+class ReplicateThresholds:
+    """Recovery and collapse thresholds of other parameter sets (one per member; NaN where a
+    member has no such threshold) and each member's classification."""
+
+    recovery: np.ndarray
+    collapse: np.ndarray
+    classifications: tuple[str, ...]
+
+
+def replicate_thresholds(
+    diagram: Diagram, parameters: Mapping[str, np.ndarray]
+) -> ReplicateThresholds | None:
+    """The thresholds and classification of ``diagram``'s model with ``parameters`` changed
+    (arrays, one entry per member), all members at once, without tracing a diagram per member.
+
+    Thresholds: each fold of the diagram's bistable window is followed by Newton's method on
+    f(x, u) = 0, J(x, u) v = 0, c . v = 1 (c the fold's null vector; in one variable simply
+    f = 0, df/dx = 0), started from the diagram's fold. A member has no such threshold when
+    Newton does not converge, when the fold it reaches is degenerate or turned the other way
+    (past a cusp the two folds merge and vanish), when it lies outside the span a diagram
+    searches (the control range widened by EXTEND of its width on each side) or at negative
+    amounts, or when the recovery fold no longer lies below the collapse fold.
+
+    Classification as :func:`planner.equilibria.compute_diagram` makes it: irreversible when
+    two stable equilibria coexist at the lowest achievable control (found by Newton at that
+    control from points along the diagram's curves), else hysteretic when the window overlaps
+    the control range, else reversible.
+
+    Returns None when the diagram has not exactly one window with both folds, or when the same
+    steps applied to the diagram's own parameters do not reproduce its thresholds and
+    classification: then only a full diagram per member can tell.
+    """
+    folds = _window_folds(diagram)
+    if folds is None:
+        return None
+    # The diagram's own parameters ride along as member 0, a check that the shortcut holds.
+    values = {
+        name: np.concatenate([[float(diagram.system.parameter(name))], np.ravel(value)])
+        for name, value in parameters.items()
+    }
+    system = diagram.system.with_parameters(**values)
+    members = max((v.size for v in values.values()), default=1)
+    low, high = diagram.control_range
+    width = high - low
+    span = (low - EXTEND * width, high + EXTEND * width)
+    controls = {kind: _track_fold(diagram, values, fold, span) for kind, fold in folds.items()}
+    recovery, collapse = controls["recovery"], controls["collapse"]
+    crossed = recovery >= collapse  # False where either is NaN
+    recovery = np.where(crossed, np.nan, recovery)
+    collapse = np.where(crossed, np.nan, collapse)
+    irreversible = _stable_counts(diagram, system, members, diagram.least) >= 2
+    window = ~(np.isnan(recovery) & np.isnan(collapse))
+    bottom = np.maximum(np.where(np.isnan(recovery), -np.inf, recovery), low)
+    top = np.minimum(np.where(np.isnan(collapse), np.inf, collapse), high)
+    hysteretic = window & (top - bottom > 0)
+    classifications = [
+        "irreversible" if stuck else "hysteretic" if bistable else "reversible"
+        for stuck, bistable in zip(irreversible, hysteretic, strict=True)
+    ]
+    own = (diagram.window.recovery, diagram.window.collapse)
+    if classifications[0] != diagram.classification or not np.allclose(
+        (recovery[0], collapse[0]), own, rtol=1e-6, atol=1e-9 * width
+    ):
+        return None
+    return ReplicateThresholds(
+        recovery=recovery[1:], collapse=collapse[1:], classifications=tuple(classifications[1:])
+    )
+
+
+def _window_folds(diagram: Diagram) -> dict[str, Fold] | None:
+    """The recovery and collapse folds of the diagram's only window, or None."""
+    window = diagram.window
+    if window is None or window.recovery is None or window.collapse is None:
+        return None
+    if len(diagram.windows) != 1:
+        return None
+    folds = {}
+    for kind in ("recovery", "collapse"):
+        value = getattr(window, kind)
+        matching = [f for f in diagram.folds if f.control == value and f.kind == kind]
+        if not matching:
+            return None
+        folds[kind] = matching[0]
+    return folds
+
+
+def _solve_each(matrix: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve matrix[j] y[j] = rhs[j] for every member j, (members, k, k) and (members, k);
+    NaN for members whose matrix is not finite or singular."""
+    usable = np.isfinite(matrix).all(axis=(1, 2)) & np.isfinite(rhs).all(axis=1)
+    if matrix.shape[1] == 1:  # one variable: a division
+        usable &= matrix[:, 0, 0] != 0
+        with np.errstate(all="ignore"):
+            return np.where(usable[:, None], rhs / matrix[:, 0], np.nan)
+    safe = np.where(usable[:, None, None], matrix, np.eye(matrix.shape[1]))
+    safe_rhs = np.where(usable[:, None], rhs, 0.0)
+    try:
+        out = np.linalg.solve(safe, safe_rhs[..., None])[..., 0]
+    except np.linalg.LinAlgError:  # an exactly singular member: one at a time
+        out = np.full(rhs.shape, np.nan)
+        for j in np.nonzero(usable)[0]:
+            with contextlib.suppress(np.linalg.LinAlgError):
+                out[j] = np.linalg.solve(safe[j], safe_rhs[j])
+    return np.where(usable[:, None], out, np.nan)
+
+
+def _fold_orientation(system: System, x: np.ndarray, u: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """sign of (w . f_xx[v, v]) (w . f_u), w the left null vector of J: on which side of the
+    fold its two equilibria lie (0: degenerate). x, v (n, members), u (members,)."""
+    if system.n == 1:
+        w = np.ones((1, x.shape[1]))
+    else:
+        left, _, _ = np.linalg.svd(np.moveaxis(system.jac(x, u), -1, 0))
+        w = left[:, :, -1].T
+    curvature = np.einsum("ib,ijkb,jb,kb->b", w, system.hessians(x, u), v, v)
+    return np.sign(curvature * np.einsum("ib,ib->b", w, system.dfdu(x, u)))
+
+
+def _track_fold(
+    diagram: Diagram,
+    parameters: Mapping[str, np.ndarray],
+    fold: Fold,
+    span: tuple[float, float],
+) -> np.ndarray:
+    """Control value (members,) of ``fold`` followed to ``parameters`` (arrays over members)
+    by Newton on the augmented system; NaN where it is lost (see
+    :func:`replicate_thresholds`). Members for which Newton from the fold itself fails, or
+    lands on another fold, try again along the straight path from the diagram's parameters to
+    theirs in FOLD_STAGES stages (natural-parameter continuation), each from the last."""
+    members = max(v.size for v in parameters.values())
+    _, _, vt = np.linalg.svd(diagram.system.jac(fold.state, fold.control))
+    c = vt[-1] / np.linalg.norm(vt[-1])
+    start = (
+        np.repeat(fold.state[:, None], members, axis=1).astype(float),
+        np.full(members, float(fold.control)),
+        np.repeat(c[:, None], members, axis=1),
+    )
+    orientation = _fold_orientation(diagram.system, *(part[..., :1] for part in start))[0]
+    system = diagram.system.with_parameters(**parameters)
+    x, u, v, converged = _fold_newton(system, *start, c)
+    ok = _fold_found(diagram, system, (x, u, v), converged, start, span, orientation)
+    retry = np.nonzero(~ok)[0]
+    if retry.size:
+        base = {name: float(diagram.system.parameter(name)) for name in parameters}
+        path = [part[..., retry] for part in start]
+        reached = np.ones(retry.size, dtype=bool)
+        for stage in range(1, FOLD_STAGES + 1):
+            share = stage / FOLD_STAGES
+            between = {
+                name: base[name] + share * (value[retry] - base[name])
+                for name, value in parameters.items()
+            }
+            *path, done = _fold_newton(diagram.system.with_parameters(**between), *path, c)
+            reached &= done
+        x[:, retry], u[retry], v[:, retry] = path
+        converged[retry] = reached
+        ok = _fold_found(diagram, system, (x, u, v), converged, start, span, orientation)
+    return np.where(ok, u, np.nan)
+
+
+def _fold_found(
+    diagram: Diagram,
+    system: System,
+    found: tuple[np.ndarray, np.ndarray, np.ndarray],
+    converged: np.ndarray,
+    start: tuple[np.ndarray, np.ndarray, np.ndarray],
+    span: tuple[float, float],
+    orientation: float,
+) -> np.ndarray:
+    """Which members' Newton results (x, u, v) are the tracked fold: converged, finite, |f|
+    small, inside the searched span, not at negative amounts, turned the same way."""
+    x, u, v = found
+    with np.errstate(invalid="ignore", over="ignore"):
+        f = system.rhs(x, u)
+        ok = converged & np.all(np.isfinite(x), axis=0) & np.isfinite(u)
+        ok &= np.max(np.abs(f), axis=0) <= FOLD_RESIDUAL * (1.0 + np.max(np.abs(x), axis=0))
+        ok &= (span[0] <= u) & (u <= span[1])
+        if system.model.spec.nonnegative_state:
+            ok &= np.all(x >= -NEGATIVE_MARGIN * diagram.scale[:-1, None], axis=0)
+        # Orientation where usable (the others are lost anyway: evaluated at the start).
+        usable = [np.where(ok, part, begin) for part, begin in zip(found, start, strict=True)]
+        return ok & (_fold_orientation(system, *usable) == orientation)
+
+
+def _fold_newton(
+    system: System, x: np.ndarray, u: np.ndarray, v: np.ndarray, c: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Newton on f(x, u) = 0, J v = 0, c . v = 1 for every member at once, from x, v (n,
+    members) and u (members,). Returns the new x, u, v and which members converged (relative
+    step below FOLD_STEP within FOLD_ITERATIONS)."""
+    n, members = x.shape
+    x, u, v = x.copy(), u.copy(), v.copy()
+    live = np.all(np.isfinite(x), axis=0) & np.isfinite(u) & np.all(np.isfinite(v), axis=0)
+    converged = np.zeros(members, dtype=bool)
+    size = 2 * n + 1
+    for _ in range(FOLD_ITERATIONS):
+        if not live.any():
+            break
+        f, jac, dfdu = system.linearised(x, u)
+        residual = np.concatenate([f, np.einsum("ijb,jb->ib", jac, v), [c @ v - 1.0]])
+        matrix = np.zeros((members, size, size))
+        matrix[:, :n, :n] = np.moveaxis(jac, -1, 0)
+        matrix[:, :n, n] = dfdu.T
+        matrix[:, n : 2 * n, :n] = np.einsum("ijkb,jb->bik", system.hessians(x, u), v)
+        matrix[:, n : 2 * n, n] = np.einsum("ijb,jb->bi", system.jac_u(x, u), v)
+        matrix[:, n : 2 * n, n + 1 :] = np.moveaxis(jac, -1, 0)
+        matrix[:, 2 * n, n + 1 :] = c
+        step = _solve_each(matrix, -residual.T).T
+        live &= np.all(np.isfinite(step), axis=0)
+        step = np.where(live, step, 0.0)
+        x, u, v = x + step[:n], u + step[n], v + step[n + 1 :]
+        magnitude = 1.0 + np.maximum(np.max(np.abs(x), axis=0), np.abs(u))
+        small = live & (np.max(np.abs(step), axis=0) <= FOLD_STEP * magnitude)
+        converged |= small
+        live &= ~small
+    return x, u, v, converged
+
+
+def _stable_counts(diagram: Diagram, system: System, members: int, u: float) -> np.ndarray:
+    """Number of distinct stable equilibria of each member at control ``u``: Newton at ``u``
+    from EQUILIBRIUM_SEEDS points along the diagram's curves (the members' curves lie close to
+    them), all members and starts at once; stability from the Jacobian's eigenvalues."""
+    points = [branch.states for branch in diagram.branches if len(branch.states)]
+    if not points:
+        return np.zeros(members, dtype=int)
+    states = np.concatenate(points)
+    pick = np.unique(np.linspace(0, len(states) - 1, EQUILIBRIUM_SEEDS).round().astype(int))
+    seeds = np.concatenate([states[pick], [f.state for f in diagram.folds]]).T  # (n, S)
+    scale = diagram.scale[:-1, None, None]
+    nonnegative = system.model.spec.nonnegative_state
+    x = np.repeat(seeds[:, :, None], members, axis=2)  # (n, S, members)
+    n, starts = seeds.shape
+    for _ in range(EQUILIBRIUM_ITERATIONS):
+        f, jac, _ = system.linearised(x, u)
+        matrix = np.moveaxis(jac, (0, 1), (-2, -1)).reshape(-1, n, n)
+        step = -_solve_each(matrix, np.moveaxis(f, 0, -1).reshape(-1, n)).T.reshape(x.shape)
+        # Damped as in the diagram's own seeding: at most a few times the magnitude per step,
+        # and amounts that would turn negative shrink instead.
+        limit = 2.0 * np.maximum(np.abs(x), 1e-3 * scale)
+        new = x + np.clip(step, -limit, limit)
+        if nonnegative:
+            new = np.where(new < 0, x / 4, new)
+        with np.errstate(invalid="ignore"):
+            settled = not np.any(np.abs(new - x) > FOLD_STEP * (np.abs(x) + scale))
+        x = new
+        if settled:  # every start has converged or left the finite numbers
+            break
+    with np.errstate(invalid="ignore", over="ignore"):
+        f, jac, _ = system.linearised(x, u)
+        found = np.all(np.isfinite(x), axis=0) & np.all(np.abs(f) <= 1e-9 * (1 + np.abs(x)), axis=0)
+        if nonnegative:
+            found &= np.all(x >= -NEGATIVE_MARGIN * scale, axis=0)
+        matrix = np.moveaxis(jac, (0, 1), (-2, -1))
+        matrix = np.where(found[..., None, None], matrix, -np.eye(n))
+        stable = found & (np.max(np.linalg.eigvals(matrix).real, axis=-1) < 0)
+        # A root counts once: drop it when an earlier start found the same one (distance in
+        # the diagram's scaled coordinates).
+        distance = np.max(np.abs(x[:, :, None] - x[:, None, :]) / scale[..., None], axis=0)
+    earlier = np.tril(np.ones((starts, starts), dtype=bool), k=-1)[:, :, None]
+    repeated = np.any(earlier & (distance < 1e-6) & found[None, :, :], axis=1)
+    return np.sum(stable & ~repeated, axis=0)
+
+
+# ---------------------------------------------------------------------------------------------
+# The residual bootstrap
+
+
 def _bootstrap(
     objective: _Objective,
     simulator: _Simulator,
     layout: _Layout,
     z: np.ndarray,
     residuals: np.ndarray,
+    diagram: Diagram,
     fitted_scenario: Scenario,
     replicates: int,
     seed: int,
     report: Progress,
 ):
+    """Refit ``replicates`` resampled data sets together (see :func:`_refit_batch`) and find
+    each refitted model's thresholds (:func:`replicate_thresholds`, or a full diagram per
+    replicate when the fitted diagram's shape calls for it)."""
     observations = simulator.observations
-    m, p = residuals.size, z.size
+    p = z.size
     fitted_values = residuals + objective.target  # model on the fitting scale
-    inflate = np.sqrt(m / (m - p))
-    groups = [
-        np.nonzero(observations.variable_index == i)[0]
-        for i in np.unique(observations.variable_index)
-    ]
-    centred = residuals.copy()
-    for group in groups:
-        centred[group] -= centred[group].mean()
+    synthetic = _resampled(
+        residuals, fitted_values, observations.variable_index, p, replicates, seed
+    )
+    # Start from the linearised solution (one Gauss-Newton step from the estimate): the refit
+    # then needs two or three integrations instead of four or five.
     step = np.linalg.pinv(objective.jacobian(z))  # z shift per unit change of the data
-    rng = np.random.default_rng(seed)
-    samples, classes = [], {"reversible": 0, "hysteretic": 0, "irreversible": 0}
-    found: dict[str, list[float]] = {"recovery": [], "collapse": []}
-    without = {"recovery": 0, "collapse": 0}
-    failed = 0
-    for b in range(replicates):
-        report(b / replicates, f"bootstrap replicate {b + 1} of {replicates}")
-        noise = np.empty(m)
-        for group in groups:
-            noise[group] = rng.choice(centred[group], size=group.size, replace=True) * inflate
-        synthetic = fitted_values + noise
-        observed = np.exp(synthetic) if objective.log else synthetic * objective.weights
-        replica = _Objective(simulator, observed, objective.weights, objective.log)
-        # Start from the linearised solution (one Gauss-Newton step from the estimate): the
-        # refit then needs two or three integrations instead of four or five.
-        start = np.clip(z + step @ (synthetic - fitted_values), layout.lower, layout.upper)
-        inside = (start > layout.lower) & (start < layout.upper)
-        start = np.where(inside, start, z)
-        try:
-            solution = replica.solve(start, layout, BOOTSTRAP_TOLERANCE)
-        except (ValueError, np.linalg.LinAlgError):
-            failed += 1
-            continue
-        if solution.status <= 0 or np.any(replica.residuals(solution.x) >= FAILED_RESIDUAL):
-            failed += 1
-            continue
-        theta, x0 = layout.natural(solution.x)
-        values = dict(zip(layout.names, map(float, theta), strict=True))
-        diagram = diagram_for(_with_parameters(fitted_scenario, values))
-        samples.append(np.concatenate([theta, x0]))
-        classes[diagram.classification] += 1
-        for kind in found:
-            value = getattr(diagram, f"{kind}_threshold")
-            if value is None:
-                without[kind] += 1
-            else:
-                found[kind].append(value)
+    lower, upper = layout.lower[:, None], layout.upper[:, None]
+    starts = np.clip(z[:, None] + step @ (synthetic - fitted_values[:, None]), lower, upper)
+    starts = np.where((starts > lower) & (starts < upper), starts, z[:, None])
+    refits = _refit_batch(
+        simulator,
+        synthetic,
+        objective.weights,
+        objective.log,
+        starts,
+        z,
+        BOOTSTRAP_TOLERANCE,
+        scaled(report, 0.0, 0.9),
+    )
+    good = refits.converged
+    theta, x0 = layout.natural(refits.z[:, good])
+    report(0.9, "thresholds of the bootstrap replicates")
+    values = dict(zip(layout.names, theta, strict=True))
+    tracked = replicate_thresholds(diagram, values)
+    if tracked is None:
+        tracked = _replicate_diagrams(fitted_scenario, values, scaled(report, 0.9, 1.0))
+    classes = {"reversible": 0, "hysteretic": 0, "irreversible": 0}
+    for classification in tracked.classifications:
+        classes[classification] += 1
+    found, without = {}, {}
+    for kind in ("recovery", "collapse"):
+        value = getattr(tracked, kind)
+        found[kind] = value[np.isfinite(value)]
+        without[kind] = int(np.count_nonzero(~np.isfinite(value)))
     report(1.0, "bootstrap done")
     summary = BootstrapSummary(
         replicates=replicates,
-        succeeded=len(samples),
-        failed=failed,
+        succeeded=int(good.sum()),
+        failed=int((~good).sum()),
         classifications=classes,
-        samples=np.array(samples).reshape(len(samples), p),
+        samples=np.concatenate([theta, x0]).T.reshape(int(good.sum()), p),
     )
-    return summary, {k: np.array(v) for k, v in found.items()}, without
+    return summary, found, without
+
+
+def _replicate_diagrams(
+    scenario: Scenario, parameters: Mapping[str, np.ndarray], report: Progress
+) -> ReplicateThresholds:
+    """Thresholds and classification of each member from its own full diagram."""
+    members = max((np.size(v) for v in parameters.values()), default=0)
+    found = {"recovery": np.full(members, np.nan), "collapse": np.full(members, np.nan)}
+    classifications = []
+    for b in range(members):
+        report(b / max(members, 1), f"diagram of bootstrap replicate {b + 1} of {members}")
+        values = {name: float(value[b]) for name, value in parameters.items()}
+        diagram = diagram_for(_with_parameters(scenario, values))
+        classifications.append(diagram.classification)
+        for kind, values_of_kind in found.items():
+            threshold = getattr(diagram, f"{kind}_threshold")
+            if threshold is not None:
+                values_of_kind[b] = threshold
+    return ReplicateThresholds(
+        recovery=found["recovery"],
+        collapse=found["collapse"],
+        classifications=tuple(classifications),
+    )
 
 
 def _fitted_scenario(

@@ -1,6 +1,8 @@
 """Fitting the model to monitoring records: coverage of the 95% intervals on synthetic records,
-agreement with a plain scipy fit, the delta method against the envelope theorem, the bootstrap,
-identifiability warnings, the fitted scenario, the demo record and the `planner fit` command."""
+agreement with a plain scipy fit, the delta method against the envelope theorem, the bootstrap
+(batched refits against serial scipy refits, replicate thresholds by Newton against full
+diagrams), identifiability warnings, the fitted scenario, the demo record and the `planner fit`
+command."""
 
 from __future__ import annotations
 
@@ -17,13 +19,19 @@ from scipy import stats
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq, least_squares
 
-from planner.calibration import default_fitted, fit_record, observations_for
+from planner.calibration import (
+    default_fitted,
+    fit_record,
+    observations_for,
+    replicate_thresholds,
+)
 from planner.cli import main
+from planner.equilibria import diagram_for
 from planner.errors import InputError
+from planner.integrate import Problem, Save, integrate
 from planner.monitoring import parse_record, read_record
 from planner.scenario import load_scenario, parse_scenario
 from planner.schedules import ControlPath
-from planner.simulate import integrate_path
 
 ROOT = Path(__file__).resolve().parent.parent
 ALDER = ROOT / "scenarios" / "alder-mere.toml"
@@ -52,20 +60,26 @@ def _csv(years, loads, values, *, load_years=None, column="P") -> str:
     return "\n".join(lines) + "\n"
 
 
+def _states_at(system, x0, path: ControlPath, years: np.ndarray) -> np.ndarray:
+    """The model state (n, len(years)) at the given years under ``path``, by the engine."""
+    problem = Problem(system, np.asarray(x0, dtype=float), path, float(years[-1]))
+    return integrate(problem, save=Save(at=tuple(years))).samples[:, :, 0].T
+
+
 def _synthetic(rng, *, noise=0.05, load_spread=0.05, parameters=TRUE):
     """A record from the recycling model with known parameters: loads at the knots (plus a small
-    random change), lake P from integrate_path times log-normal measurement error."""
+    random change), lake P from the engine times log-normal measurement error."""
     loads = LOAD_PLAN + load_spread * rng.standard_normal(LOAD_PLAN.size)
     system = _alder().system(**parameters)
-    run = integrate_path(system, np.array([INITIAL_P]), ControlPath(KNOTS, loads), float(YEARS[-1]))
-    observed = run.state_at(YEARS)[0] * np.exp(noise * rng.standard_normal(YEARS.size))
+    modelled = _states_at(system, [INITIAL_P], ControlPath(KNOTS, loads), YEARS)[0]
+    observed = modelled * np.exp(noise * rng.standard_normal(YEARS.size))
     return parse_record(_csv(YEARS, loads, observed, load_years=KNOTS), "<synthetic>")
 
 
-def _reference_recovery(s: float, r: float, m: float = 4.0, q: float = 8.0) -> tuple[float, float]:
-    """(load, P) of the recovery fold of dP/dt = L - s P + r P^q/(m^q + P^q): where
-    L(P) = s P - r P^q/(m^q + P^q) has dL/dP = 0 (Carpenter, Ludwig & Brock 1999), the lower
-    of the two fold loads; scipy brentq on sign changes of the closed-form derivative."""
+def _reference_folds(s: float, r: float, m: float = 4.0, q: float = 8.0) -> list[tuple]:
+    """(load, P) of every fold of dP/dt = L - s P + r P^q/(m^q + P^q), by load: where
+    L(P) = s P - r P^q/(m^q + P^q) has dL/dP = 0 (Carpenter, Ludwig & Brock 1999); scipy brentq
+    on sign changes of the closed-form derivative."""
 
     def slope(P):
         return s - r * q * m**q * P ** (q - 1) / (m**q + P**q) ** 2
@@ -76,7 +90,12 @@ def _reference_recovery(s: float, r: float, m: float = 4.0, q: float = 8.0) -> t
     for i in np.nonzero(np.sign(values[:-1]) != np.sign(values[1:]))[0]:
         P = brentq(slope, grid[i], grid[i + 1], xtol=1e-15, rtol=1e-15)
         folds.append((s * P - r * P**q / (m**q + P**q), P))
-    return min(folds)
+    return sorted(folds)
+
+
+def _reference_recovery(s: float, r: float, m: float = 4.0, q: float = 8.0) -> tuple[float, float]:
+    """(load, P) of the recovery fold: the lower of the two fold loads (see _reference_folds)."""
+    return _reference_folds(s, r, m, q)[0]
 
 
 @pytest.mark.slow
@@ -197,6 +216,195 @@ def test_residual_bootstrap_counts_and_agrees_with_the_covariance_intervals():
         assert b_low < c_high and c_low < b_high
 
 
+def _scipy_refit(record, target, start, m=4.0, q=8.0):
+    """One replicate refitted with scipy alone: least_squares (trust region reflective) on
+    (log s, log r, log P0) around solve_ivp (LSODA, rtol 1e-10) of the recycling model and its
+    forward sensitivities written out by hand, integrated knot to knot of the load path."""
+    loads = record.column("load")
+    known = np.isfinite(loads)
+    knots, knot_loads, years = record.times[known], loads[known], record.times
+    edges = np.unique(np.concatenate([knots, [years[-1]]]))
+
+    def rate(t, y, a, b, load_a, load_b, s, r):
+        P = y[0]
+        load = load_a + (load_b - load_a) * (t - a) / (b - a)
+        g = P**q / (m**q + P**q)
+        slope = -s + r * q * m**q * P ** (q - 1) / (m**q + P**q) ** 2
+        return [load - s * P + r * g, slope * y[1] - P, slope * y[2] + g, slope * y[3]]
+
+    @cache
+    def run(key):
+        s, r, p0 = np.exp(np.frombuffer(key))
+        y, values = np.array([p0, 0.0, 0.0, 1.0]), []
+        for a, b in zip(edges[:-1], edges[1:], strict=True):
+            inside = years[(years >= a) & (years < b)]
+            ends = np.interp([a, b], knots, knot_loads)
+            solution = solve_ivp(
+                rate,
+                (a, b),
+                y,
+                method="LSODA",
+                t_eval=np.append(inside, b),
+                rtol=1e-10,
+                atol=1e-12,
+                args=(a, b, *ends, s, r),
+            )
+            values.append(solution.y[:, :-1])
+            y = solution.y[:, -1]
+        values = np.concatenate([*values, y[:, None]], axis=1)  # at every year
+        return values, np.array([s, r, 1.0])
+
+    def residual(z):
+        values, _ = run(z.tobytes())
+        return np.log(values[0]) - target
+
+    def jacobian(z):
+        values, factor = run(z.tobytes())
+        chain = np.array([factor[0], factor[1], np.exp(z[2])])
+        return values[1:].T * chain / values[0][:, None]
+
+    ours = dict(method="trf", x_scale="jac", ftol=1e-10, xtol=1e-10, gtol=1e-10)
+    return least_squares(residual, start, jac=jacobian, **ours)
+
+
+def test_batched_bootstrap_gives_the_intervals_of_serial_scipy_refits():
+    """The bootstrap refits all replicates together (batched Levenberg-Marquardt through the
+    engine) and follows each replicate's folds by Newton; its percentile intervals of s, r,
+    initial P and both thresholds, and its counts, equal those of the plain way to 3
+    significant digits: the same 20 resampled data sets (centred residuals inflated by
+    sqrt(n / (n - p)), drawn with replacement: Efron & Tibshirani 1993, An Introduction to the
+    Bootstrap, ch. 9) refitted one at a time with scipy.optimize.least_squares around
+    scipy.integrate.solve_ivp, each replicate's folds from the closed-form fold condition
+    (Carpenter, Ludwig & Brock 1999) by scipy.optimize.brentq, percentiles by numpy."""
+    scenario = _alder()
+    record = _synthetic(np.random.default_rng(3))
+    replicates, seed = 20, 9
+    fit = fit_record(
+        scenario,
+        observations_for(record, scenario),
+        fit=["s", "r"],
+        log=True,
+        bootstrap=replicates,
+        seed=seed,
+    )
+    residuals = fit.residuals
+    fitted_values = np.log(fit.predictions)
+    m, p = residuals.size, 3
+    centred = residuals - residuals.mean()
+    rng = np.random.default_rng(seed)
+    estimate = np.log([fit.parameter("s").value, fit.parameter("r").value])
+    start = np.append(estimate, np.log(fit.initial_state[0].value))
+    samples, folds = [], []
+    for _ in range(replicates):
+        target = fitted_values + rng.choice(centred, size=m, replace=True) * np.sqrt(m / (m - p))
+        solution = _scipy_refit(record, target, start)
+        assert solution.success, solution.message
+        s, r, p0 = np.exp(solution.x)
+        samples.append((s, r, p0))
+        folds.append([load for load, _ in _reference_folds(s, r)])
+    samples, folds = np.array(samples), np.array(folds)
+    assert folds.shape == (replicates, 2)  # every replicate keeps both folds
+
+    boot = fit.bootstrap
+    assert boot.succeeded == replicates and boot.failed == 0
+    least, (low, high) = scenario.control.least, scenario.control.range
+    stuck = int(np.sum((folds[:, 0] < least) & (least < folds[:, 1])))
+    bistable = int(np.sum((folds[:, 1] > low) & (folds[:, 0] < high))) - stuck
+    expected = {"reversible": replicates - stuck - bistable, "hysteretic": bistable}
+    assert boot.classifications == {**expected, "irreversible": stuck}
+    ours = {
+        "s": fit.parameter("s").bootstrap_interval,
+        "r": fit.parameter("r").bootstrap_interval,
+        "initial P": fit.initial_state[0].bootstrap_interval,
+        "recovery": fit.thresholds["recovery"].bootstrap_interval,
+        "collapse": fit.thresholds["collapse"].bootstrap_interval,
+    }
+    columns = {"s": samples[:, 0], "r": samples[:, 1], "initial P": samples[:, 2]}
+    columns |= {"recovery": folds[:, 0], "collapse": folds[:, 1]}
+    for name, values in columns.items():
+        reference = np.percentile(values, [2.5, 97.5])
+        assert ours[name] == pytest.approx(reference, rel=5e-4), name
+    for kind in ("recovery", "collapse"):
+        assert fit.thresholds[kind].bootstrap_without == 0
+
+
+def _replace_parameters(scenario, values):
+    model = scenario.model.model_copy(
+        update={"parameters": {**scenario.model.parameters, **values}}
+    )
+    return scenario.model_copy(update={"model": model})
+
+
+@pytest.mark.parametrize(
+    "base, changes",
+    [
+        # Replicates of a fit of Alder Mere, then a lake past the cusp (no fold at all), one
+        # whose recovery fold lies below the searched loads, and a strongly hysteretic one.
+        ("fit", {"s": [4.0, 0.3, 1.5], "r": [6.0, 6.0, 6.2]}),
+        # Water and sediment: a Hopf point on the turbid branch; larger changes of r need the
+        # staged Newton; b changes the slow sediment pool.
+        (
+            "brellow-reservoir.toml",
+            {"r": [0.029, 0.031, 1.0, 0.05], "b": [0.002, 0.0021, 0.002, 0.0002]},
+        ),
+    ],
+)
+def test_replicate_folds_by_newton_equal_those_of_full_diagrams(base, changes):
+    """Thresholds and classification of other parameter sets by Newton from the fitted folds
+    equal those of a full diagram (continuation, planner.equilibria.diagram_for) of each set
+    to 1e-6, including sets that lose one threshold or both."""
+    if base == "fit":
+        scenario = _alder()
+        record = _synthetic(np.random.default_rng(3))
+        fit = fit_record(
+            scenario, observations_for(record, scenario), fit=["s", "r"], log=True, bootstrap=4
+        )
+        scenario, diagram = fit.fitted_scenario, fit.diagram
+        replicates = fit.bootstrap.samples[:, :2].T
+        values = {n: np.append(replicates[i], changes[n]) for i, n in enumerate(("s", "r"))}
+    else:
+        scenario = load_scenario(ROOT / "scenarios" / base)
+        diagram = diagram_for(scenario)
+        values = {name: np.array(value) for name, value in changes.items()}
+    tracked = replicate_thresholds(diagram, values)
+    assert tracked is not None
+    members = len(next(iter(values.values())))
+    lost = 0
+    for b in range(members):
+        full = diagram_for(
+            _replace_parameters(scenario, {n: float(v[b]) for n, v in values.items()})
+        )
+        for kind in ("recovery", "collapse"):
+            mine, theirs = getattr(tracked, kind)[b], getattr(full, f"{kind}_threshold")
+            if theirs is None:
+                assert np.isnan(mine), (b, kind, mine)
+                lost += 1
+            else:
+                assert mine == pytest.approx(theirs, abs=1e-6), (b, kind)
+        assert tracked.classifications[b] == full.classification, b
+    assert lost >= (3 if base == "fit" else 0)
+
+
+def test_replicate_thresholds_defer_to_full_diagrams_without_a_window():
+    """A lake past the cusp has no fold to follow: the shortcut declines (the bootstrap then
+    traces a diagram per replicate), and such a fit's bootstrap counts every replicate as
+    reversible and without thresholds."""
+    scenario = _replace_parameters(_alder(), {"s": 4.0})
+    diagram = diagram_for(scenario)
+    assert diagram.window is None
+    assert replicate_thresholds(diagram, {"s": np.array([3.9, 4.1])}) is None
+
+    record = _synthetic(np.random.default_rng(4), parameters={"s": 4.0, "r": 6.0})
+    fit = fit_record(
+        scenario, observations_for(record, scenario), fit=["s", "r"], log=True, bootstrap=3
+    )
+    boot = fit.bootstrap
+    assert fit.classification == "reversible"
+    assert boot.classifications["reversible"] == boot.succeeded > 0
+    for threshold in fit.thresholds.values():
+        assert threshold.bootstrap_without == boot.succeeded
+
+
 def test_warns_when_the_record_cannot_tell_the_parameters_apart():
     """A lake held at one load on its clear branch shows P = L / s with almost no recycling:
     r is not identifiable and the fit must say so (the informative record must not)."""
@@ -230,8 +438,10 @@ def test_two_variable_model_with_unobserved_sediment_is_fitted_and_flagged():
     rng = np.random.default_rng(2)
     years, knots = np.arange(40.0), np.arange(0.0, 40.0, 5.0)
     loads = np.array([0.8, 0.6, 0.9, 0.5, 0.7, 0.4, 0.6, 0.5])
-    run = integrate_path(scenario.system(), scenario.initial_state, ControlPath(knots, loads), 39)
-    water = run.state_at(years)[0] * np.exp(0.05 * rng.standard_normal(years.size))
+    modelled = _states_at(
+        scenario.system(), scenario.initial_state, ControlPath(knots, loads), years
+    )
+    water = modelled[0] * np.exp(0.05 * rng.standard_normal(years.size))
     record = parse_record(_csv(years, loads, water, load_years=knots, column="X"), "<two>")
     fit = fit_record(scenario, observations_for(record, scenario), fit=["r"], log=True, bootstrap=0)
     low, high = fit.parameter("r").interval

@@ -21,9 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
+from planner.integrate import Problem, Save, integrate
 from planner.scenario import load_scenario
 from planner.schedules import ControlPath
-from planner.simulate import integrate_path
 
 HERE = Path(__file__).resolve().parent
 SCENARIO = HERE.parent / "alder-mere.toml"
@@ -51,8 +51,8 @@ def build_record() -> str:
     loads = load_history(years) * np.exp(WEATHER_SPREAD * rng.standard_normal(years.size))
     t = years - years[0]
     system = scenario.system(**TRUE_PARAMETERS)
-    run = integrate_path(system, np.array([INITIAL_P]), ControlPath(t, loads), float(t[-1]))
-    truth = run.state_at(t)[0]
+    problem = Problem(system, np.array([INITIAL_P]), ControlPath(t, loads), float(t[-1]))
+    truth = integrate(problem, save=Save(at=tuple(t))).samples[:, 0, 0]
     measured = truth * np.exp(MEASUREMENT_SPREAD * rng.standard_normal(years.size))
     lines = [
         "# Alder Mere (an invented lake): SYNTHETIC monitoring record, not real data.",
