@@ -67,11 +67,14 @@ def _integer_exponents(expression):
 class Specialised:
     """The right-hand side, Jacobian and d/du of one model with some parameters fixed.
 
-    Argument order of every function: the state variables, the control, then ``free``.
+    Argument order of every function: the state variables, the control, then ``free``, then
+    the hoisted values: ``hoist(*free)`` computes the sub-expressions that depend on the free
+    parameters only (``m**q`` with a per-member ``m``), once per stretch instead of per call.
     """
 
     n: int
     free: tuple[str, ...]
+    hoist: Callable[..., list]
     batched_rhs: Callable[..., list]
     batched_jac: Callable[..., list]
     batched_dfdu: Callable[..., list]
@@ -79,16 +82,36 @@ class Specialised:
     scalar_jac: Callable[..., list]
 
 
+def _hoist(expression, parameters: set, found: dict):
+    """Replace the largest sub-expressions of ``expression`` that depend on ``parameters`` only
+    (no state, no control) by symbols; ``found`` maps each such sub-expression to its symbol."""
+    import sympy
+
+    if expression.is_Atom:
+        return expression
+    symbols = expression.free_symbols
+    if symbols and symbols <= parameters:
+        if expression not in found:
+            found[expression] = sympy.Symbol(f"_hoisted{len(found)}")
+        return found[expression]
+    return expression.func(*(_hoist(arg, parameters, found) for arg in expression.args))
+
+
 @lru_cache(maxsize=CACHE_SIZE)
 def _specialise(spec, control: str, fixed: tuple[tuple[str, float], ...], free: tuple[str, ...]):
     import sympy
 
     states = [sympy.Symbol(v) for v in spec.variables]
-    arguments = [*states, sympy.Symbol(control), *(sympy.Symbol(p) for p in free)]
+    free_symbols = [sympy.Symbol(p) for p in free]
     substitutions = {sympy.Symbol(name): sympy.Float(value) for name, value in fixed}
     rhs = [_integer_exponents(sympy.sympify(e).xreplace(substitutions)) for e in spec.equations]
     jac = [sympy.diff(f, x) for f in rhs for x in states]
     dfdu = [sympy.diff(f, sympy.Symbol(control)) for f in rhs]
+    hoisted: dict = {}
+    rhs, jac, dfdu = (
+        [_hoist(e, set(free_symbols), hoisted) for e in group] for group in (rhs, jac, dfdu)
+    )
+    arguments = [*states, sympy.Symbol(control), *free_symbols, *hoisted.values()]
 
     def compile_(expressions, module):
         if module == "numpy":
@@ -101,9 +124,16 @@ def _specialise(spec, control: str, fixed: tuple[tuple[str, float], ...], free: 
             )
         return sympy.lambdify(arguments, expressions, modules="math", cse=True)
 
+    hoist = sympy.lambdify(
+        free_symbols,
+        list(hoisted.keys()),
+        modules=[{"integer_power": integer_power}, "numpy"],
+        printer=_numpy_printer(),
+    )
     return Specialised(
         n=len(states),
         free=free,
+        hoist=hoist,
         batched_rhs=compile_(rhs, "numpy"),
         batched_jac=compile_(jac, "numpy"),
         batched_dfdu=compile_(dfdu, "numpy"),

@@ -181,11 +181,14 @@ class Pieces:
         self.base = dict(zip(self.functions.free, base, strict=True))
 
     def _values_at(self, t, index: np.ndarray | None = None) -> tuple:
+        """The free parameters at time t, then the values hoisted from them."""
         multipliers = self.problem.actions.multipliers(t) if self.pulses else {}
-        return tuple(
+        free = tuple(
             _pick(self.base[name], index) * multipliers.get(name, 1.0)
             for name in self.functions.free
         )
+        with np.errstate(all="ignore"):
+            return (*free, *self.functions.hoist(*free))
 
     def piece(self, a: float, b: float, factor: float | np.ndarray = 1.0) -> Piece:
         control = self.problem.control
