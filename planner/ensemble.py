@@ -25,9 +25,12 @@ variance and the given lag-1 autocorrelation, so each factor has mean one.
 
 Reproducibility: member i's random numbers depend only on (seed, i): they come from blocks of
 ``RNG_BLOCK`` members, each with its own generator seeded by (seed, stream, block), generated
-whole and sliced, so chunking and scheduler change nothing. Members share parameter draws and
-load factors across schedules (common random numbers); process noise is drawn per schedule,
-keyed by its name.
+whole and sliced, so chunking and scheduler change no draw. With process noise (fixed steps) and
+in the verdict (a step size per member) results are bit-identical whatever the chunking; without
+noise the members of a chunk share the Dormand-Prince step size, so a member's last digits (at
+the integration tolerance) depend on the chunk it is in. Members share parameter draws and load
+factors across schedules (common random numbers); process noise is drawn per schedule, keyed by
+its name.
 
 Costs: the abatement and action costs of a schedule are those of its planned path (the
 measures the manager pays for; weather moves the load, not the bill) and equal for all members;
@@ -491,8 +494,9 @@ def run_ensemble(
     ``members`` and ``seed`` override ``[uncertainty]`` (a scenario without that block runs
     identical members: the deterministic case). ``scheduler``: "local" (this process, no Dask),
     "processes" (a dask.distributed LocalCluster of 2 worker processes on 127.0.0.1) or the
-    address of a running Dask scheduler ("tcp://host:port"). Results are bit-identical whatever
-    the scheduler and ``chunk_size``. Yearly states of every member are kept only with
+    address of a running Dask scheduler ("tcp://host:port"). Draws never depend on the scheduler
+    or ``chunk_size``; results are bit-identical with process noise and agree to the integration
+    tolerance without (see the module notes). Yearly states of every member are kept only with
     ``keep_trajectories``.
     """
     uncertainty = _options(scenario, members, seed, chunk_size)
