@@ -9,6 +9,7 @@ an infeasible schedule is reported with the first time it breaks a limit, and no
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -322,6 +323,15 @@ def check_limits(
 def _pulse_multiplier(pulse: ParameterPulse, t: float | np.ndarray) -> float | np.ndarray:
     """The pulse's multiplier at time(s) t (years); vectorised over t."""
     end = pulse.start + pulse.duration
+    if np.ndim(t) == 0:  # one time: plain floats (the integrator asks at every step)
+        t = float(t)
+        if t < pulse.start:
+            return 1.0
+        if t < end:
+            return float(pulse.factor)
+        if pulse.decay_years > 0:
+            return 1.0 + (pulse.factor - 1.0) * math.exp(-(t - end) / pulse.decay_years)
+        return 1.0
     t = np.asarray(t, dtype=float)
     after = np.ones_like(t)
     if pulse.decay_years > 0:
@@ -329,8 +339,7 @@ def _pulse_multiplier(pulse: ParameterPulse, t: float | np.ndarray) -> float | n
             after = 1.0 + (pulse.factor - 1.0) * np.exp(
                 -np.maximum(t - end, 0.0) / pulse.decay_years
             )
-    value = np.where(t < pulse.start, 1.0, np.where(t < end, float(pulse.factor), after))
-    return float(value) if value.ndim == 0 else value
+    return np.where(t < pulse.start, 1.0, np.where(t < end, float(pulse.factor), after))
 
 
 @dataclass(frozen=True)

@@ -285,6 +285,8 @@ def integrate(
             )
             rebuild = False
             all_counted = True
+            single_slope = None if stepper.batched else piece.scalar_functions()[0]
+            whole_batch = batch.size == m  # a slice then selects it (no fancy indexing)
             try:
                 for step in generator:
                     steps += 1
@@ -310,7 +312,7 @@ def integrate(
                             dense.append((float(step.t0), float(step.t1), step))
                         x[:, member] = y
                         end = _single_end(
-                            piece, step.t1, y, limits, settling, settle_scale[:, member]
+                            single_slope, step.t1, y, limits, settling, settle_scale[:, member]
                         )
                         if end is None and not alive[member]:
                             break  # absorbed by the watch
@@ -322,12 +324,13 @@ def integrate(
                         continue
                     columns = None if all_counted else np.nonzero(mask)[0]
                     members = batch if columns is None else batch[columns]
+                    chosen = slice(None) if whole_batch and columns is None else members
                     x1 = step.x1 if columns is None else step.x1[:, columns]
                     t1 = np.broadcast_to(step.t1, (step.x1.shape[1],))
                     t1 = t1 if columns is None else t1[columns]
-                    t_member[members] = t1
+                    t_member[chosen] = t1
                     if adaptive_batch:
-                        h_member[batch] = step.h_next
+                        h_member[slice(None) if whole_batch else batch] = step.h_next
                     elif step.h_next > 0:
                         h = step.h_next
                     if tracker is not None:
@@ -343,7 +346,7 @@ def integrate(
                     if save.dense:
                         first = (float(np.atleast_1d(step.t0)[0]), float(np.atleast_1d(step.t1)[0]))
                         dense.append((*first, step))
-                    x[:, members] = x1
+                    x[:, chosen] = x1
                     with np.errstate(invalid="ignore"):
                         fine = np.max(np.abs(x1)) <= limits.state_limit and (
                             lower is None or np.min(x1) >= lower
@@ -373,8 +376,8 @@ def integrate(
                             t_end[members[done]] = t1[done]
                             stopped |= done
                             fine = False
-                    absorbed = ~alive[members]
-                    if absorbed.any():
+                    absorbed = ~alive[chosen] if tracker is not None and watch.absorbing else None
+                    if absorbed is not None and absorbed.any():
                         stopped = stopped | absorbed
                         fine = False
                     if not fine:
@@ -439,15 +442,18 @@ def _record_single(step: Step, y, save, sample_times, samples, next_sample) -> N
         samples[next_sample:stop, :, 0] = values.T
 
 
-def _single_end(piece, t: float, y: np.ndarray, limits: Limits, settling, scale) -> Status | None:
-    """Whether a single run stops after this step: diverged, settled, or neither (None)."""
+def _single_end(slope, t: float, y: np.ndarray, limits: Limits, settling, scale) -> Status | None:
+    """Whether a single run stops after this step: diverged, settled, or neither (None).
+    ``slope(t, y)`` is the piece's plain-float right-hand side."""
     values = y.tolist()
-    limit, lower = limits.state_limit, limits.lower
-    if not all(abs(v) <= limit for v in values) or (lower is not None and min(values) < lower):
+    lower = limits.lower
+    if not max(map(abs, values)) <= limits.state_limit or (
+        lower is not None and min(values) < lower
+    ):
         return Status.DIVERGED
     if settling is None:
         return None
-    slopes = piece.scalar_rhs(t, y).tolist()
+    slopes = slope(t, y)
     rate = max(
         abs(f) / max(s, abs(v)) for f, s, v in zip(slopes, scale.tolist(), values, strict=True)
     )

@@ -149,18 +149,34 @@ class Piece:
             return np.zeros(x.shape)
         return self._stacked(self.functions.batched_dfdu, t, x, self.n) * (self.slope * self.factor)
 
-    def scalar_rhs(self, t: float, y: np.ndarray) -> np.ndarray:
-        try:
-            return np.array(self.functions.scalar_rhs(*y, self.control(t), *self._values(t)))
-        except (OverflowError, ZeroDivisionError, ValueError):
-            return np.full(self.n, np.nan)
+    def scalar_functions(self):
+        """(rhs, jac) of a single run on plain floats, for scipy's LSODA: the control and the
+        parameters bound once for the piece, the state turned into floats once per call (numpy
+        scalars are several times slower in plain arithmetic)."""
+        rhs, jac = self.functions.scalar_rhs, self.functions.scalar_jac
+        u_a, slope, a, factor, n = self.u_a, self.slope, self.a, float(self.factor), self.n
+        values_at = self._values
+        constant = values_at(a) if values_at(a) is values_at(a + 1.0) else None
 
-    def scalar_jac(self, t: float, y: np.ndarray) -> np.ndarray:
-        try:
-            values = self.functions.scalar_jac(*y, self.control(t), *self._values(t))
-        except (OverflowError, ZeroDivisionError, ValueError):
-            return np.full((self.n, self.n), np.nan)
-        return np.array(values, dtype=float).reshape(self.n, self.n)
+        def scalar_rhs(t, y):
+            values = constant if constant is not None else values_at(t)
+            try:
+                return rhs(*y.tolist(), (u_a + slope * (t - a)) * factor, *values)
+            except (OverflowError, ZeroDivisionError, ValueError):
+                return [math.nan] * n
+
+        def scalar_jac(t, y):
+            values = constant if constant is not None else values_at(t)
+            try:
+                entries = jac(*y.tolist(), (u_a + slope * (t - a)) * factor, *values)
+            except (OverflowError, ZeroDivisionError, ValueError):
+                entries = [math.nan] * (n * n)
+            return np.array(entries, dtype=float).reshape(n, n)
+
+        return scalar_rhs, scalar_jac
+
+    def scalar_rhs(self, t: float, y: np.ndarray) -> np.ndarray:
+        return np.asarray(self.scalar_functions()[0](t, y), dtype=float)
 
     def subset(self, index: np.ndarray) -> Piece:
         """The piece for some members only (per-member parameters and factors indexed)."""

@@ -19,14 +19,15 @@ class Lsoda(Stepper):
         from scipy.integrate import LSODA
 
         y0 = x[:, 0]
+        rhs, jac = piece.scalar_functions()
         solver = LSODA(
-            piece.scalar_rhs,
+            rhs,
             a,
             y0,
             b,
             rtol=tolerance.rtol,
             atol=tolerance.atol * scale[:, 0],
-            jac=piece.scalar_jac,
+            jac=jac,
             first_step=None if h is None else min(h, b - a),
         )
         count = 0
