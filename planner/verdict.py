@@ -2,7 +2,9 @@
 
 After the horizon the control is held at the schedule's final value, every temporary action has
 ended (no load factor, no noise), and the state is integrated by :func:`planner.integrate.settle`
-until it stops moving (or the scenario's cap). The settled state is then matched to the stable
+until it stops moving (or the scenario's cap); for one state variable the destination is read
+off the equilibria instead, exactly (:func:`destinations_1d`, the basins of a 1-D flow being the
+intervals between unstable equilibria). The settled state is then matched to the stable
 equilibria at that control: those of the diagram that do not lie on an undesired run, followed
 by Newton to each member's own parameters. Recovered means it sits on the one with the lowest
 (or, for regime "highest", the highest) target variable, within ``DESIRED_TOLERANCE`` (scaled
@@ -24,6 +26,7 @@ from planner.models import System
 DESIRED_TOLERANCE = 1e-3  # scaled distance to the desired attractor
 NEWTON_ITERATIONS = 30
 NEWTON_RESIDUAL = 1e-8  # |f| <= this * (1 + max|x|) counts as an equilibrium
+SCAN_POINTS = 32  # points checked between a 1-D state and its destination
 # Settling only has to find the attractor (the rate test stops it there), not the path to it.
 SETTLE_TOLERANCE = Tolerance(rtol=1e-7, atol=1e-10)
 
@@ -74,10 +77,11 @@ def _stable(jacobian: np.ndarray) -> np.ndarray:
     return finite & (eigenvalues.real.max(axis=1) < 0)
 
 
-def follow_equilibria(system: System, u: float, starts: np.ndarray, m: int):
+def follow_equilibria(system: System, u: float, starts: np.ndarray, m: int, stable_only=True):
     """Each equilibrium in ``starts`` (k, n) followed by Newton to every member's parameters.
 
-    Returns states (k, n, m) and whether each is a converged, stable equilibrium (k, m).
+    Returns states (k, n, m) and whether each is a converged (and, with ``stable_only``,
+    stable) equilibrium (k, m).
     """
     k, n = starts.shape[0], system.n
     states = np.empty((k, n, m))
@@ -95,8 +99,40 @@ def follow_equilibria(system: System, u: float, starts: np.ndarray, m: int):
             converged = residual <= NEWTON_RESIDUAL * (1.0 + np.max(np.abs(x), axis=0))
             stable = _stable(system.jac(x, u).reshape(n, n, m))
         states[e] = x
-        good[e] = converged & stable & np.isfinite(x).all(axis=0)
+        good[e] = converged & (stable | (not stable_only)) & np.isfinite(x).all(axis=0)
     return states, good
+
+
+def destinations_1d(where: Attractors, system: System, states: np.ndarray):
+    """One state variable: where each state (1, m) goes with the control held, read off the
+    equilibria instead of integrating (the basins of a 1-D flow are the intervals between
+    unstable equilibria: the state moves monotonically to the first equilibrium in the
+    direction of the flow). Returns the destinations (1, m) and whether each is known for sure:
+    a stable equilibrium ahead, with no sign change of the flow on the way (a scan of
+    ``SCAN_POINTS`` points guards against an equilibrium the diagram did not have)."""
+    m = states.shape[1]
+    u = where.control
+    x = states[0]
+    with np.errstate(all="ignore"):
+        flow = system.rhs(states, u)[0]
+    roots, converged = follow_equilibria(system, u, where.equilibria, m, stable_only=False)
+    roots = roots[:, 0, :]  # (k, m)
+    direction = np.sign(flow)
+    with np.errstate(invalid="ignore"):
+        ahead = converged & ((roots - x) * direction > 0)
+    distance = np.where(ahead, np.abs(roots - x), np.inf)
+    nearest = np.argmin(distance, axis=0) if roots.shape[0] else np.zeros(m, dtype=int)
+    found = np.isfinite(distance.min(axis=0)) if roots.shape[0] else np.zeros(m, dtype=bool)
+    goal = np.where(found, roots[nearest, np.arange(m)] if roots.shape[0] else x, x)
+    at_rest = flow == 0
+    goal = np.where(at_rest, x, goal)
+    with np.errstate(all="ignore"):
+        slope = system.jac(goal[None, :], u).reshape(m)
+        share = (np.arange(1, SCAN_POINTS + 1) / (SCAN_POINTS + 1))[:, None]
+        scan = system.rhs((x + share * (goal - x))[None], u)[0] * direction
+    clear_way = np.all(scan > 0, axis=0) | at_rest
+    known = (found | at_rest) & clear_way & (slope < 0) & np.isfinite(goal)
+    return goal[None, :], known
 
 
 @dataclass(frozen=True, eq=False)
@@ -110,6 +146,7 @@ class Attractors:
     target_index: int
     sign: float
     scale: np.ndarray
+    equilibria: np.ndarray  # every equilibrium at the control, stable or not (k, n)
 
 
 def attractors(diagram, u: float) -> Attractors:
@@ -122,6 +159,9 @@ def attractors(diagram, u: float) -> Attractors:
         target_index=diagram.target_index,
         sign=1.0 if diagram.regime == "lowest" else -1.0,
         scale=np.asarray(diagram.scale[:-1], dtype=float),
+        equilibria=np.array([e.state for e in diagram.equilibria_at(u)], dtype=float).reshape(
+            -1, n
+        ),
     )
 
 
@@ -173,6 +213,19 @@ def decide(
     if finished.size == 0:
         return Verdicts(codes, settled, diverged_at)
     sub = _members(system, finished, m)
+    if system.n == 1 and where.equilibria.size:
+        goal, known = destinations_1d(where, sub, final_state[:, finished])
+        if known.any():
+            read = finished[known]
+            settled[:, read] = goal[:, known]
+            good = on_desired(
+                where, _members(sub, np.nonzero(known)[0], finished.size), goal[:, known]
+            )
+            codes[read] = np.where(good, RECOVERED, NOT_RECOVERED)
+            sub = _members(sub, np.nonzero(~known)[0], finished.size)
+            finished = finished[~known]
+            if finished.size == 0:
+                return Verdicts(codes, settled, diverged_at)
     limits = Limits(limit, system.model.spec.nonnegative_state)
     run = settle(
         sub,

@@ -121,3 +121,40 @@ def test_a_relapse_after_a_jump_reads_the_same_in_compare_and_ensemble():
         expected = np.nan if outcome.meets_target_at is None else outcome.meets_target_at
         np.testing.assert_allclose(summary.meets_target_at, expected, atol=1e-5)
         np.testing.assert_allclose(summary.present_value, outcome.cost.present_value, rtol=1e-6)
+
+
+def test_one_variable_destinations_read_off_equal_long_integration():
+    """In one variable the verdict reads each state's destination off the equilibria; it must
+    equal where scipy's solve_ivp (LSODA, 2000 time units, reference library) takes the state,
+    for states spread over both basins of the bistable recycling model x' = a - b x +
+    x^2/(1 + x^2), b = 0.6, a = 0.095 (inside the window 0.0897..0.1021; Carpenter, Ludwig &
+    Brock 1999, Ecological Applications 9:751-771, appendix), with b varying per member."""
+    from scipy.integrate import solve_ivp
+
+    from planner.models import compile_model, formula_spec
+    from planner.verdict import Attractors, destinations_1d
+
+    spec = formula_spec({"x": "a - b*x + x**2/(1 + x**2)"}, ("a", "b"))
+    a = 0.095
+    nominal = compile_model(spec, "a").bind({"a": a, "b": 0.6})
+    grid = np.linspace(0.0, 3.0, 3001)
+    values = nominal.rhs(grid[None], a)[0]
+    roots = grid[:-1][np.sign(values[:-1]) != np.sign(values[1:])]
+    assert roots.size == 3
+    where = Attractors(a, roots[:1, None], 0, 1.0, np.array([1.0]), roots[:, None])
+    rng = np.random.default_rng(5)
+    b = rng.uniform(0.59, 0.61, 40)
+    x0 = rng.uniform(0.0, 2.5, 40)
+    members = compile_model(spec, "a").bind({"a": a, "b": b})
+    goal, known = destinations_1d(where, members, x0[None])
+    assert known.all()
+    for i in range(40):
+        end = solve_ivp(
+            lambda t, x, bi=b[i]: a - bi * x + x**2 / (1 + x**2),
+            (0.0, 2000.0),
+            [x0[i]],
+            method="LSODA",
+            rtol=1e-10,
+            atol=1e-12,
+        ).y[0, -1]
+        assert goal[0, i] == pytest.approx(end, abs=1e-6)
