@@ -238,7 +238,10 @@ def _noise_draw(seed: int, key: int, start: int, stop: int, noisy: int):
             )
             for block in _blocks(start, stop)
         ]
-        return _sliced(blocks, start, stop)[:, :, members]
+        drawn = _sliced(blocks, start, stop)
+        if members.size == stop - start:  # every member of the chunk: no copy
+            return drawn
+        return drawn[:, :, members]
 
     return draw
 
