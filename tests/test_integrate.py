@@ -21,7 +21,7 @@ from planner.sweep import quasi_static_sweep
 SCENARIOS = sorted((Path(__file__).resolve().parent.parent / "scenarios").glob("*.toml"))
 
 
-BATCHED = ("dopri5", "rosenbrock23")
+BATCHED = ("dopri5", "dop853", "rosenbrock23")
 SINGLE_AND_BATCHED = ("lsoda", *BATCHED)
 # Rosenbrock is of order 2: it reaches 1e-7 on these problems only at a tighter tolerance.
 TOLERANCE = {"rosenbrock23": Tolerance(1e-11, 1e-13)}
@@ -224,7 +224,11 @@ def test_state_at_horizon_matches_tight_radau_on_every_demo_schedule(file):
     for schedule in scenario.schedules:
         path = control_path(schedule, current=scenario.current_control)
         reference = _reference_final_state(scenario, schedule)
-        for solver, tolerance in (("lsoda", Tolerance()), ("dopri5", Tolerance(1e-9, 1e-12))):
+        for solver, tolerance in (
+            ("lsoda", Tolerance()),
+            ("dopri5", Tolerance(1e-9, 1e-12)),
+            ("dop853", Tolerance(1e-9, 1e-12)),
+        ):
             run = integrate(
                 Problem(
                     scenario.system(),

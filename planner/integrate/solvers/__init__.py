@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 from planner.integrate.solvers.base import Step, StepError, Stepper
+from planner.integrate.solvers.dop853 import DormandPrince853
 from planner.integrate.solvers.dopri5 import DormandPrince
 from planner.integrate.solvers.euler_maruyama import EulerMaruyama
 from planner.integrate.solvers.lsoda import Lsoda
@@ -12,6 +13,7 @@ from planner.integrate.solvers.rosenbrock import Rosenbrock23, batched_solve
 SOLVERS: dict[str, type[Stepper]] = {
     "lsoda": Lsoda,
     "dopri5": DormandPrince,
+    "dop853": DormandPrince853,
     "rosenbrock23": Rosenbrock23,
     "euler-maruyama": EulerMaruyama,
 }

@@ -44,7 +44,7 @@ class Step:
         """State at time(s) t within the step: t scalar or one time per member (per column of
         ``columns`` when given: only those members are interpolated); (n, m) or (n, columns)."""
         if self.interpolant is not None:
-            return self.interpolant(t)
+            return self.interpolant(t) if columns is None else self.interpolant(t, columns)
         x0, x1, f0, f1 = self.x0, self.x1, self.f0, self.f1
         t0, t1 = np.asarray(self.t0, dtype=float), np.asarray(self.t1, dtype=float)
         if columns is not None:

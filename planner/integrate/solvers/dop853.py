@@ -1,0 +1,108 @@
+"""Batched Dormand-Prince 8(5,3) (Hairer, Norsett & Wanner 1993, Solving Ordinary Differential
+Equations I, section II.10; the coefficient tables are scipy's, used by its DOP853): explicit,
+order 8, so far fewer steps than the 5(4) pair at tight tolerances; twelve right-hand sides per
+step; one step size for the batch (see :func:`planner.integrate.solvers.base.shared_steps`)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from planner.integrate.solvers.base import Stepper, shared_steps
+
+STAGES = 12
+
+
+def _tables():
+    from scipy.integrate._ivp import dop853_coefficients as tables
+
+    return tables
+
+
+class _DenseOutput:
+    """The method's own interpolant of degree 7 over one step (three more right-hand sides,
+    evaluated only when asked, for the members asked): crossings inside long steps are then
+    located to the method's accuracy, not to a cubic's."""
+
+    def __init__(self, tables, piece, t0, h, x0, x1, f0, f1, stages):
+        self.tables, self.piece = tables, piece
+        self.t0, self.h = t0, h
+        self.x0, self.x1, self.f0, self.f1 = x0, x1, f0, f1
+        self.stages = stages.reshape(stages.shape[0], *x0.shape).copy()
+
+    def __call__(self, t, columns=None):
+        tables, h = self.tables, self.h
+        pick = (lambda a: a) if columns is None else (lambda a: a[..., columns])
+        x0, x1, f0, f1 = pick(self.x0), pick(self.x1), pick(self.f0), pick(self.f1)
+        piece = self.piece if columns is None else self.piece.subset(columns)
+        k = np.concatenate([pick(self.stages), np.empty((3, *x0.shape))])
+        for s in range(STAGES + 1, STAGES + 4):
+            a = tables.A[s, :s]
+            y = x0 + h * np.tensordot(a, k[:s], axes=1)
+            k[s] = piece.rhs(self.t0 + tables.C[s] * h, y)
+        delta = x1 - x0
+        terms = [delta, h * f0 - delta, 2 * delta - h * (f1 + f0)]
+        terms += list(h * np.tensordot(tables.D, k, axes=1))
+        share = (np.asarray(t, dtype=float) - self.t0) / h
+        out = np.zeros_like(x0)
+        for i, term in enumerate(reversed(terms)):
+            out = out + term
+            out = out * (share if i % 2 == 0 else 1 - share)
+        return out + x0
+
+
+class DormandPrince853(Stepper):
+    name = "dop853"
+    order = 7  # the error estimate's order: step control exponent 1/8
+    shared_step = True
+
+    def steps(self, piece, a, b, x, h, *, tolerance, scale, alive, max_steps, dense=False, **_):
+        tables = _tables()
+        A, B, C = tables.A[:STAGES, :STAGES], tables.B, tables.C[:STAGES]
+        E3, E5 = tables.E3, tables.E5
+        n = x.shape[0]
+        stages = np.empty((STAGES + 1, x.size))
+
+        def attempt(t, x, f, h):
+            stages[0] = f.reshape(-1)
+            flat = x.reshape(-1)
+            for i in range(1, STAGES):
+                y = flat + h * (A[i, :i] @ stages[:i])
+                stages[i] = piece.rhs(t + C[i] * h, y.reshape(x.shape)).reshape(-1)
+            new = (flat + h * (B @ stages[:STAGES])).reshape(x.shape)
+            f_new = piece.rhs(t + h, new)
+            stages[STAGES] = f_new.reshape(-1)
+            # The error of the 5th-order estimate, damped by the 3rd-order one, so that the norm
+            # taken by the step control (root mean square over variables) comes out as DOP853's.
+            err5 = (E5 @ stages).reshape(x.shape)
+            err3 = (E3 @ stages).reshape(x.shape)
+            weight = tolerance.atol * scale + tolerance.rtol * np.maximum(np.abs(x), np.abs(new))
+            e5 = np.sum((err5 / weight) ** 2, axis=0)
+            e3 = np.sum((err3 / weight) ** 2, axis=0)
+            with np.errstate(all="ignore"):
+                ratio = np.where(e5 > 0, e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
+            # error_norm divides by the same weight and takes the root mean square over the n
+            # variables: hand it an error whose norm is h * ratio.
+            error = (h * ratio * np.sqrt(1.0))[None, :] * weight * np.ones((n, 1))
+            return new, f_new, error
+
+        for step in shared_steps(
+            self, piece, a, b, x, h, tolerance, scale, alive, max_steps, attempt
+        ):
+            # The stages in the buffer are this step's until the next attempt: the driver asks
+            # for states inside the step before it asks for the next step.
+            step.interpolant = _LazyDense(tables, piece, step.t0, step.t1 - step.t0, step, stages)
+            yield step
+
+
+class _LazyDense:
+    def __init__(self, tables, piece, t0, h, step, stages):
+        self.arguments = (tables, piece, t0, h, step, stages)
+        self.built = None
+
+    def __call__(self, t, columns=None):
+        if self.built is None:
+            tables, piece, t0, h, step, stages = self.arguments
+            self.built = _DenseOutput(
+                tables, piece, t0, h, step.x0, step.x1, step.f0, step.f1, stages
+            )
+        return self.built(t, columns)
