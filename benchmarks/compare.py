@@ -32,10 +32,10 @@ from __future__ import annotations
 import argparse
 import math
 import time
-from bisect import bisect_right
 from pathlib import Path
 
 import numpy as np
+from hand_written import piecewise_linear  # noqa: I001 (a sibling script module)
 from scipy.integrate import solve_ivp
 
 from planner.equilibria import diagram_for
@@ -60,20 +60,7 @@ SAME_TIME = 1e-9
 
 def load_function(path):
     """u(t) of a piecewise-linear path by hand: right-continuous at jumps, held after the end."""
-    times = [float(t) for t in path.times]
-    values = [float(v) for v in path.values]
-    last = len(times) - 1
-
-    def load(t):
-        j = bisect_right(times, t) - 1
-        if j < 0:
-            return values[0]
-        if j >= last:
-            return values[last]
-        t0, t1 = times[j], times[j + 1]
-        return values[j] + (values[j + 1] - values[j]) * (t - t0) / (t1 - t0)
-
-    return load
+    return piecewise_linear([float(t) for t in path.times], [float(v) for v in path.values])
 
 
 def multiplier_function(pulses, parameter: str, a: float, b: float):

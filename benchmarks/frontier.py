@@ -30,10 +30,10 @@ from __future__ import annotations
 
 import argparse
 import time
-from bisect import bisect_right
 from pathlib import Path
 
 import numpy as np
+from hand_written import piecewise_linear  # noqa: I001 (a sibling script module)
 from scipy.integrate import solve_ivp
 
 from planner.equilibria import diagram_for
@@ -65,16 +65,7 @@ class Lake:
 
     def rhs_for(self, times: list[float], values: list[float]):
         s, r, q, m_q = self.s, self.r, self.q, self.m_q
-        last = len(times) - 1
-
-        def load(t):
-            j = bisect_right(times, t) - 1
-            if j < 0:
-                return values[0]
-            if j >= last:
-                return values[last]
-            t0, t1 = times[j], times[j + 1]
-            return values[j] + (values[j + 1] - values[j]) * (t - t0) / (t1 - t0)
+        load = piecewise_linear(times, values)
 
         def rhs(t, y):
             p = y[0]

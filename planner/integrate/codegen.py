@@ -104,7 +104,7 @@ def _specialise(spec, control: str, fixed: tuple[tuple[str, float], ...], free: 
     states = [sympy.Symbol(v) for v in spec.variables]
     free_symbols = [sympy.Symbol(p) for p in free]
     substitutions = {sympy.Symbol(name): sympy.Float(value) for name, value in fixed}
-    rhs = [_integer_exponents(sympy.sympify(e).xreplace(substitutions)) for e in spec.equations]
+    rhs = [_integer_exponents(e.xreplace(substitutions)) for e in spec.equations]
     jac = [sympy.diff(f, x) for f in rhs for x in states]
     dfdu = [sympy.diff(f, sympy.Symbol(control)) for f in rhs]
     hoisted: dict = {}
