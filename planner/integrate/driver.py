@@ -331,7 +331,7 @@ def integrate(
                     t1 = t1 if columns is None else t1[columns]
                     t_member[chosen] = t1
                     if adaptive_batch:
-                        h_member[slice(None) if whole_batch else batch] = step.h_next
+                        h_member[slice(None) if whole_batch else batch] = _carried(step)
                     elif step.h_next > 0:
                         h = step.h_next
                     if tracker is not None:
@@ -427,6 +427,15 @@ def integrate(
         message=message,
         dense=tuple(dense),
     )
+
+
+def _carried(step: Step):
+    """The step size a batched stepper starts the next stretch with: the one it last took (the
+    right-hand side may jump at the cut, so the larger proposal after it is often rejected).
+    Within a stretch the stepper carries its own proposal; the last step of a stretch is cut
+    short to end at the cut, so its proposal is kept when larger."""
+    taken = np.asarray(step.t1, dtype=float) - np.asarray(step.t0, dtype=float)
+    return np.minimum(step.h_next, np.maximum(taken, 0.5 * np.asarray(step.h_next)))
 
 
 def _record_single(step: Step, y, save, sample_times, samples, next_sample) -> None:

@@ -194,7 +194,8 @@ def shared_steps(stepper, piece, a, b, x, h, tolerance, scale, alive, max_steps,
             h = b - t
         with np.errstate(all="ignore"):
             new, f_new, error = attempt(t, x, f, h)
-            norms = error_norm(error, x, new, tolerance, scale)
+            # An attempt may hand back its error norms per member directly (shape (m,)).
+            norms = error if error.ndim == 1 else error_norm(error, x, new, tolerance, scale)
         counted = norms[alive]
         worst = float(np.max(counted)) if counted.size else 0.0
         tries += 1

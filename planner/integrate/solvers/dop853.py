@@ -71,18 +71,15 @@ class DormandPrince853(Stepper):
             new = (flat + h * (B @ stages[:STAGES])).reshape(x.shape)
             f_new = piece.rhs(t + h, new)
             stages[STAGES] = f_new.reshape(-1)
-            # The error of the 5th-order estimate, damped by the 3rd-order one, so that the norm
-            # taken by the step control (root mean square over variables) comes out as DOP853's.
-            err5 = (E5 @ stages).reshape(x.shape)
-            err3 = (E3 @ stages).reshape(x.shape)
+            # DOP853's error norm per member: the 5th-order estimate, damped by the 3rd-order one
+            # (Hairer, Norsett & Wanner 1993, section II.10), weighted by the tolerance.
             weight = tolerance.atol * scale + tolerance.rtol * np.maximum(np.abs(x), np.abs(new))
-            e5 = np.sum((err5 / weight) ** 2, axis=0)
-            e3 = np.sum((err3 / weight) ** 2, axis=0)
+            err5 = (E5 @ stages).reshape(x.shape) / weight
+            err3 = (E3 @ stages).reshape(x.shape) / weight
+            e5 = np.einsum("ij,ij->j", err5, err5)
+            e3 = np.einsum("ij,ij->j", err3, err3)
             with np.errstate(all="ignore"):
-                ratio = np.where(e5 > 0, e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
-            # error_norm divides by the same weight and takes the root mean square over the n
-            # variables: hand it an error whose norm is h * ratio.
-            error = (h * ratio * np.sqrt(1.0))[None, :] * weight * np.ones((n, 1))
+                error = np.where(e5 > 0, abs(h) * e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
             return new, f_new, error
 
         for step in shared_steps(
