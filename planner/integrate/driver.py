@@ -331,7 +331,9 @@ def integrate(
                     t1 = t1 if columns is None else t1[columns]
                     t_member[chosen] = t1
                     if adaptive_batch:
-                        h_member[slice(None) if whole_batch else batch] = _carried(step)
+                        h_member[slice(None) if whole_batch else batch] = (
+                            _carried(step) if stepper.shared_step else step.h_next
+                        )
                     elif step.h_next > 0:
                         h = step.h_next
                     if tracker is not None:
@@ -430,7 +432,7 @@ def integrate(
 
 
 def _carried(step: Step):
-    """The step size a batched stepper starts the next stretch with: the one it last took (the
+    """The step size a shared-step stepper starts the next stretch with: the one it last took (the
     right-hand side may jump at the cut, so the larger proposal after it is often rejected).
     Within a stretch the stepper carries its own proposal; the last step of a stretch is cut
     short to end at the cut, so its proposal is kept when larger."""
