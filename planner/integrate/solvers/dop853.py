@@ -28,23 +28,31 @@ class _DenseOutput:
         self.t0, self.h = t0, h
         self.x0, self.x1, self.f0, self.f1 = x0, x1, f0, f1
         self.stages = stages.reshape(stages.shape[0], *x0.shape).copy()
+        self.cache: dict = {}
+
+    def _terms(self, columns):
+        """The interpolant's coefficients for the members asked (built once per set)."""
+        key = None if columns is None else np.asarray(columns).tobytes()
+        if key not in self.cache:
+            tables, h = self.tables, self.h
+            pick = (lambda a: a) if columns is None else (lambda a: a[..., columns])
+            x0, x1, f0, f1 = pick(self.x0), pick(self.x1), pick(self.f0), pick(self.f1)
+            piece = self.piece if columns is None else self.piece.subset(columns)
+            k = np.concatenate([pick(self.stages), np.empty((3, *x0.shape))])
+            for s in range(STAGES + 1, STAGES + 4):
+                y = x0 + h * np.tensordot(tables.A[s, :s], k[:s], axes=1)
+                k[s] = piece.rhs(self.t0 + tables.C[s] * h, y)
+            delta = x1 - x0
+            terms = [delta, h * f0 - delta, 2 * delta - h * (f1 + f0)]
+            terms += list(h * np.tensordot(tables.D, k, axes=1))
+            self.cache[key] = (x0, terms[::-1])
+        return self.cache[key]
 
     def __call__(self, t, columns=None):
-        tables, h = self.tables, self.h
-        pick = (lambda a: a) if columns is None else (lambda a: a[..., columns])
-        x0, x1, f0, f1 = pick(self.x0), pick(self.x1), pick(self.f0), pick(self.f1)
-        piece = self.piece if columns is None else self.piece.subset(columns)
-        k = np.concatenate([pick(self.stages), np.empty((3, *x0.shape))])
-        for s in range(STAGES + 1, STAGES + 4):
-            a = tables.A[s, :s]
-            y = x0 + h * np.tensordot(a, k[:s], axes=1)
-            k[s] = piece.rhs(self.t0 + tables.C[s] * h, y)
-        delta = x1 - x0
-        terms = [delta, h * f0 - delta, 2 * delta - h * (f1 + f0)]
-        terms += list(h * np.tensordot(tables.D, k, axes=1))
-        share = (np.asarray(t, dtype=float) - self.t0) / h
+        x0, terms = self._terms(columns)
+        share = (np.asarray(t, dtype=float) - self.t0) / self.h
         out = np.zeros_like(x0)
-        for i, term in enumerate(reversed(terms)):
+        for i, term in enumerate(terms):
             out = out + term
             out = out * (share if i % 2 == 0 else 1 - share)
         return out + x0
