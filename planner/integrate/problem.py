@@ -133,7 +133,8 @@ class Piece:
             values = function(*x, self.control(t), *self._values(t))
         first = values[0]
         if rows == 1 and np.shape(first) == x.shape[1:] and not np.may_share_memory(first, x):
-            return np.asarray(first, dtype=float).reshape(1, *x.shape[1:])  # a view
+            # A view, not a copy: callers treat right-hand sides as read-only.
+            return np.asarray(first, dtype=float).reshape(1, *x.shape[1:])
         out = np.empty((rows, *x.shape[1:]))
         for i, value in enumerate(values):
             out[i] = value

@@ -28,12 +28,14 @@ class EulerMaruyama(Stepper):
         kicks = self.noise.draw(piece_number, count, members) * (
             sigma[None, :, None] * math.sqrt(h)
         )
+        rows = [int(i) for i in noisy]
         for j in range(count):
             t = a + j * h
-            f = piece.rhs(t, x)
-            new = x + h * f
-            new[noisy] += kicks[j]
+            new = h * piece.rhs(t, x)  # a fresh array (the right-hand side may be a view)
+            new += x
+            for r, i in enumerate(rows):  # row views: no fancy-indexed copies
+                new[i] += kicks[j, r]
             if self.nonnegative:
-                new = np.maximum(new, 0.0)
+                np.maximum(new, 0.0, out=new)
             yield Step(t, b if j == count - 1 else t + h, x, new, None, None, h)
             x = new
