@@ -14,7 +14,7 @@ Two flavours are generated from the same expressions:
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -159,21 +159,3 @@ def specialise(system: System, varying: tuple[str, ...] = ()) -> tuple[Specialis
             fixed.append((name, float(value)))
     functions = _specialise(spec, system.model.control, tuple(fixed), tuple(free))
     return functions, tuple(values)
-
-
-def stack(values: list, shape: tuple[int, ...]) -> np.ndarray:
-    """Stack generated outputs (arrays, or plain numbers for constant entries) into one array."""
-    out = np.empty((len(values), *shape))
-    for i, value in enumerate(values):
-        out[i] = value
-    return out
-
-
-def free_values(system: System, names: tuple[str, ...]) -> tuple:
-    """Current values of the named parameters of ``system`` (the free ones of a Specialised)."""
-    return tuple(system.parameter(name) for name in names)
-
-
-def parameter_map(system: System) -> Mapping[str, object]:
-    spec = system.model.spec
-    return dict(zip(spec.parameter_names, system.parameter_values, strict=True))

@@ -179,9 +179,6 @@ class Piece:
 
         return scalar_rhs, scalar_jac
 
-    def scalar_rhs(self, t: float, y: np.ndarray) -> np.ndarray:
-        return np.asarray(self.scalar_functions()[0](t, y), dtype=float)
-
     def subset(self, index: np.ndarray) -> Piece:
         """The piece for some members only (per-member parameters and factors indexed)."""
         factor = self.factor if np.ndim(self.factor) == 0 else self.factor[index]
