@@ -308,7 +308,7 @@ def integrate(
                             )
                         if save.steps:
                             step_times.append(float(step.t1))
-                            step_states.append(y.copy())
+                            step_states.append(y)  # the stepper's fresh array, never changed
                         if save.dense:
                             dense.append((float(step.t0), float(step.t1), step))
                         x[:, member] = y

@@ -25,7 +25,7 @@ class StepError(Exception):
     """The stepper could not make progress (step size underflow or too many steps)."""
 
 
-@dataclass
+@dataclass(slots=True)
 class Step:
     """One step from t0 to t1 for every stepped member: times (one for all, or one per member;
     a member that did not move has t1 == t0), states (n, m), right-hand sides (None where the
