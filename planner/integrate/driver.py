@@ -205,7 +205,17 @@ def integrate(
     progress: Callable[[float, str], None] | None = None,
 ) -> Solution:
     """Integrate ``problem`` over [0, horizon]; with ``settling``, stop each member once its
-    state has stopped moving (status SETTLED; NOT_SETTLED at the horizon)."""
+    state has stopped moving (status SETTLED; NOT_SETTLED at the horizon).
+
+    Floating-point warnings are silenced for the whole run, once: a state leaving the physical
+    range is judged by the driver (diverged), not reported as a warning, and numpy's error-state
+    switch costs microseconds when set around every right-hand side.
+    """
+    with np.errstate(all="ignore"):
+        return _integrate(problem, save, watch, limits, tolerance, settling, solver, progress)
+
+
+def _integrate(problem, save, watch, limits, tolerance, settling, solver, progress) -> Solution:
     if limits is None:
         limits = Limits(nonnegative=problem.system.model.spec.nonnegative_state)
     name = solver or choose_solver(problem, settling=settling is not None)
@@ -350,17 +360,15 @@ def integrate(
                         first = (float(np.atleast_1d(step.t0)[0]), float(np.atleast_1d(step.t1)[0]))
                         dense.append((*first, step))
                     x[:, chosen] = x1
-                    with np.errstate(invalid="ignore"):
-                        fine = np.max(np.abs(x1)) <= limits.state_limit and (
-                            lower is None or np.min(x1) >= lower
-                        )
+                    fine = np.max(np.abs(x1)) <= limits.state_limit and (
+                        lower is None or np.min(x1) >= lower
+                    )
                     if fine:
                         stopped = np.zeros(members.size, dtype=bool)
                     else:
-                        with np.errstate(invalid="ignore"):
-                            bad = ~(np.abs(x1) <= limits.state_limit)
-                            if lower is not None:
-                                bad |= x1 < lower
+                        bad = ~(np.abs(x1) <= limits.state_limit)
+                        if lower is not None:
+                            bad |= x1 < lower
                         stopped = bad.any(axis=0)
                     if not fine:
                         codes[members[stopped]] = CODE[Status.DIVERGED]
@@ -368,11 +376,10 @@ def integrate(
                     if settling is not None:
                         f1 = step.f1 if step.f1 is not None else piece.rhs(step.t1, step.x1)
                         f1 = f1 if columns is None else f1[:, columns]
-                        with np.errstate(invalid="ignore"):
-                            rate = np.max(
-                                np.abs(f1) / np.maximum(settle_scale[:, members], np.abs(x1)),
-                                axis=0,
-                            )
+                        rate = np.max(
+                            np.abs(f1) / np.maximum(settle_scale[:, members], np.abs(x1)),
+                            axis=0,
+                        )
                         done = (rate < settling.rate) & ~stopped
                         if done.any():
                             codes[members[done]] = CODE[Status.SETTLED]

@@ -129,8 +129,7 @@ class Piece:
         return self.values_at(t, self.index)
 
     def _stacked(self, function, t, x: np.ndarray, rows: int) -> np.ndarray:
-        with np.errstate(all="ignore"):
-            values = function(*x, self.control(t), *self._values(t))
+        values = function(*x, self.control(t), *self._values(t))
         first = values[0]
         if rows == 1 and np.shape(first) == x.shape[1:] and not np.may_share_memory(first, x):
             # A view, not a copy: callers treat right-hand sides as read-only.

@@ -144,20 +144,18 @@ def adaptive_steps(stepper, piece, a, b, x, h, tolerance, scale, alive, max_step
             raise StepError(f"more than {max_steps} steps")
         last = h >= b - t - end_slack
         step = np.where(moving, np.where(last, b - t, h), 0.0)
-        with np.errstate(all="ignore"):
-            new, f_new, error = attempt(t, x, f, step)
-            norms = error_norm(error, x, new, tolerance, scale)
+        new, f_new, error = attempt(t, x, f, step)
+        norms = error_norm(error, x, new, tolerance, scale)
         finite = np.isfinite(norms)
         # A member that turns non-finite is accepted once its step is tiny, so that the driver
         # can report it diverged; before that a smaller step may keep it finite.
         give_up = ~finite & (step <= 1e-6 * max(length, 1e-12))
         accept = moving & ((finite & (norms <= 1.0)) | give_up)
-        with np.errstate(all="ignore"):
-            factor = np.where(
-                finite,
-                np.where(norms == 0, MAX_FACTOR, SAFETY * norms**exponent),
-                MIN_FACTOR,
-            )
+        factor = np.where(
+            finite,
+            np.where(norms == 0, MAX_FACTOR, SAFETY * norms**exponent),
+            MIN_FACTOR,
+        )
         grow = np.clip(factor, 1.0, MAX_FACTOR)
         shrink = np.clip(factor, MIN_FACTOR, 1.0)
         t_new = np.where(accept, np.where(last, b, t + step), t)
@@ -192,10 +190,9 @@ def shared_steps(stepper, piece, a, b, x, h, tolerance, scale, alive, max_steps,
         last = h >= b - t - 1e-12 * max(1.0, abs(b))
         if last:
             h = b - t
-        with np.errstate(all="ignore"):
-            new, f_new, error = attempt(t, x, f, h)
-            # An attempt may hand back its error norms per member directly (shape (m,)).
-            norms = error if error.ndim == 1 else error_norm(error, x, new, tolerance, scale)
+        new, f_new, error = attempt(t, x, f, h)
+        # An attempt may hand back its error norms per member directly (shape (m,)).
+        norms = error if error.ndim == 1 else error_norm(error, x, new, tolerance, scale)
         counted = norms[alive]
         worst = float(np.max(counted)) if counted.size else 0.0
         tries += 1

@@ -86,8 +86,7 @@ class DormandPrince853(Stepper):
             err3 = (E3 @ stages).reshape(x.shape) / weight
             e5 = np.einsum("ij,ij->j", err5, err5)
             e3 = np.einsum("ij,ij->j", err3, err3)
-            with np.errstate(all="ignore"):
-                error = np.where(e5 > 0, abs(h) * e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
+            error = np.where(e5 > 0, abs(h) * e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
             return new, f_new, error
 
         for step in shared_steps(
