@@ -74,16 +74,23 @@ class DormandPrince853(Stepper):
             stages[0] = f.reshape(-1)
             flat = x.reshape(-1)
             for i in range(1, STAGES):
-                y = flat + h * (A[i, :i] @ stages[:i])
+                y = (h * A[i, :i]) @ stages[:i]  # scale the short row, not the long result
+                y += flat
                 stages[i] = piece.rhs(t + C[i] * h, y.reshape(x.shape)).reshape(-1)
-            new = (flat + h * (B @ stages[:STAGES])).reshape(x.shape)
+            new = (h * B) @ stages[:STAGES]
+            new += flat
+            new = new.reshape(x.shape)
             f_new = piece.rhs(t + h, new)
             stages[STAGES] = f_new.reshape(-1)
             # DOP853's error norm per member: the 5th-order estimate, damped by the 3rd-order one
             # (Hairer, Norsett & Wanner 1993, section II.10), weighted by the tolerance.
-            weight = tolerance.atol * scale + tolerance.rtol * np.maximum(np.abs(x), np.abs(new))
-            err5 = (E5 @ stages).reshape(x.shape) / weight
-            err3 = (E3 @ stages).reshape(x.shape) / weight
+            weight = np.maximum(np.abs(x), np.abs(new))
+            weight *= tolerance.rtol
+            weight += tolerance.atol * scale
+            err5 = (E5 @ stages).reshape(x.shape)
+            err5 /= weight
+            err3 = (E3 @ stages).reshape(x.shape)
+            err3 /= weight
             e5 = np.einsum("ij,ij->j", err5, err5)
             e3 = np.einsum("ij,ij->j", err3, err3)
             error = np.where(e5 > 0, abs(h) * e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
