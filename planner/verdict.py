@@ -115,7 +115,7 @@ def destinations_1d(where: Attractors, system: System, states: np.ndarray):
     x = states[0]
     with np.errstate(all="ignore"):
         flow = system.rhs(states, u)[0]
-    roots, converged = follow_equilibria(system, u, where.equilibria, m, stable_only=False)
+    roots, converged = where.followed(system, where.equilibria, m, stable_only=False)
     roots = roots[:, 0, :]  # (k, m)
     direction = np.sign(flow)
     with np.errstate(invalid="ignore"):
@@ -147,6 +147,23 @@ class Attractors:
     sign: float
     scale: np.ndarray
     equilibria: np.ndarray  # every equilibrium at the control, stable or not (k, n)
+    parameters: tuple = ()  # the diagram's parameter values: members with these need no Newton
+
+    def followed(self, system: System, starts: np.ndarray, m: int, stable_only: bool):
+        """``starts`` followed to every member's parameters (see :func:`follow_equilibria`);
+        members with the diagram's own parameters keep them as they are."""
+        own = system.parameter_values
+        if (
+            self.parameters
+            and len(own) == len(self.parameters)
+            and all(
+                (a is None and b is None) or (np.ndim(a) == 0 and a is not None and a == b)
+                for a, b in zip(own, self.parameters, strict=True)
+            )
+        ):
+            states = np.repeat(starts[:, :, None], m, axis=2)
+            return states, np.ones((starts.shape[0], m), dtype=bool)
+        return follow_equilibria(system, self.control, starts, m, stable_only=stable_only)
 
 
 def attractors(diagram, u: float) -> Attractors:
@@ -162,6 +179,7 @@ def attractors(diagram, u: float) -> Attractors:
         equilibria=np.array([e.state for e in diagram.equilibria_at(u)], dtype=float).reshape(
             -1, n
         ),
+        parameters=tuple(diagram.system.parameter_values),
     )
 
 
@@ -170,7 +188,7 @@ def on_desired(where: Attractors, system: System, states: np.ndarray) -> np.ndar
     m = states.shape[1]
     if where.candidates.shape[0] == 0:
         return np.zeros(m, dtype=bool)
-    followed, good = follow_equilibria(system, where.control, where.candidates, m)
+    followed, good = where.followed(system, where.candidates, m, stable_only=True)
     k = where.target_index
     values = np.where(good, where.sign * followed[:, k, :], np.inf)
     best = np.argmin(values, axis=0)
