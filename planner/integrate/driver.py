@@ -87,14 +87,17 @@ class _Tracker:
         if changed.any():
             self._switch(live[changed], np.full(int(changed.sum()), t), now[changed])
 
+    def step_single(self, step: Step, member: int) -> None:
+        """One accepted step of a single run, on plain floats."""
+        now = self.sign * (float(step.x1[self.watch.variable, 0]) - self.watch.level) <= 0.0
+        if now != bool(self.inside[member]):
+            time = self._locate(step, np.zeros(1, dtype=int))
+            self._switch(np.array([member]), time, np.array([now]))
+
     def step(self, step: Step, members: np.ndarray, columns: np.ndarray | None) -> None:
         """One accepted step of ``members`` (the step's columns ``columns``; None: all)."""
-        k = self.watch.variable
-        if step.x1.shape[1] == 1:  # a single run: plain floats
-            now = self.sign * (float(step.x1[k, 0]) - self.watch.level) <= 0.0
-            if now != bool(self.inside[members[0]]):
-                time = self._locate(step, np.zeros(1, dtype=int))
-                self._switch(members[:1], time, np.array([now]))
+        if step.x1.shape[1] == 1:  # a batch of one
+            self.step_single(step, int(members[0]))
             return
         x1 = step.x1 if columns is None else step.x1[:, columns]
         now = self._inside(x1)
@@ -252,6 +255,8 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
     steps = 0
     message = ""
     lower = limits.lower
+    limit = limits.state_limit
+    absorbing = watch is not None and watch.absorbing
 
     for number, (a, b) in enumerate(zip(cuts[:-1], cuts[1:], strict=True)):
         live = np.nonzero(alive)[0]
@@ -297,6 +302,8 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
             rebuild = False
             all_counted = True
             single_slope = None if stepper.batched else piece.scalar_functions()[0]
+            single = None if stepper.batched else int(batch[0])
+            scale = None if stepper.batched else settle_scale[:, single].tolist()
             whole_batch = batch.size == m  # a slice then selects it (no fancy indexing)
             try:
                 for step in generator:
@@ -306,13 +313,12 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
                         # one-element array would dominate the step).
                         if step.h_next > 0:
                             h = step.h_next
-                        member = int(batch[0])
                         y = step.x1[:, 0]
-                        t_member[member] = step.t1
+                        t_member[single] = step.t1
                         if tracker is not None:
-                            tracker.step(step, batch, None)
-                        _record_single(step, y, save, sample_times, samples, next_sample)
+                            tracker.step_single(step, single)
                         if samples is not None:
+                            _record_single(step, y, sample_times, samples, next_sample)
                             next_sample = int(
                                 np.searchsorted(sample_times, step.t1 + 1e-12, side="right")
                             )
@@ -321,17 +327,23 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
                             step_states.append(y)  # the stepper's fresh array, never changed
                         if save.dense:
                             dense.append((float(step.t0), float(step.t1), step))
-                        x[:, member] = y
-                        end = _single_end(
-                            single_slope, step.t1, y, limits, settling, settle_scale[:, member]
-                        )
-                        if end is None and not alive[member]:
-                            break  # absorbed by the watch
+                        x[:, single] = y
+                        values = y.tolist()
+                        if not max(map(abs, values)) <= limit or (
+                            lower is not None and min(values) < lower
+                        ):
+                            end = Status.DIVERGED
+                        elif settling is not None:
+                            end = _settled_single(single_slope, step.t1, y, values, settling, scale)
+                        else:
+                            end = None
                         if end is not None:
-                            codes[member] = CODE[end]
-                            t_end[member] = step.t1
-                            alive[member] = False
+                            codes[single] = CODE[end]
+                            t_end[single] = step.t1
+                            alive[single] = False
                             break
+                        if absorbing and not alive[single]:
+                            break  # absorbed by the watch
                         continue
                     columns = None if all_counted else np.nonzero(mask)[0]
                     members = batch if columns is None else batch[columns]
@@ -386,7 +398,7 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
                             t_end[members[done]] = t1[done]
                             stopped |= done
                             fine = False
-                    absorbed = ~alive[chosen] if tracker is not None and watch.absorbing else None
+                    absorbed = ~alive[chosen] if absorbing else None
                     if absorbed is not None and absorbed.any():
                         stopped = stopped | absorbed
                         fine = False
@@ -447,10 +459,8 @@ def _carried(step: Step):
     return np.minimum(step.h_next, np.maximum(taken, 0.5 * np.asarray(step.h_next)))
 
 
-def _record_single(step: Step, y, save, sample_times, samples, next_sample) -> None:
+def _record_single(step: Step, y, sample_times, samples, next_sample) -> None:
     """A single run's samples inside the step, from one interpolant call."""
-    if samples is None:
-        return
     stop = int(np.searchsorted(sample_times, step.t1 + 1e-12, side="right"))
     if stop > next_sample:
         when = sample_times[next_sample:stop]
@@ -461,21 +471,13 @@ def _record_single(step: Step, y, save, sample_times, samples, next_sample) -> N
         samples[next_sample:stop, :, 0] = values.T
 
 
-def _single_end(slope, t: float, y: np.ndarray, limits: Limits, settling, scale) -> Status | None:
-    """Whether a single run stops after this step: diverged, settled, or neither (None).
-    ``slope(t, y)`` is the piece's plain-float right-hand side."""
-    values = y.tolist()
-    lower = limits.lower
-    if not max(map(abs, values)) <= limits.state_limit or (
-        lower is not None and min(values) < lower
-    ):
-        return Status.DIVERGED
-    if settling is None:
-        return None
+def _settled_single(
+    slope, t: float, y: np.ndarray, values: list, settling, scale: list
+) -> Status | None:
+    """SETTLED when a single run's state has stopped moving, else None. ``slope(t, y)`` is the
+    piece's plain-float right-hand side, ``values`` the state as floats."""
     slopes = slope(t, y)
-    rate = max(
-        abs(f) / max(s, abs(v)) for f, s, v in zip(slopes, scale.tolist(), values, strict=True)
-    )
+    rate = max(abs(f) / max(s, abs(v)) for f, s, v in zip(slopes, scale, values, strict=True))
     return Status.SETTLED if rate < settling.rate else None
 
 
