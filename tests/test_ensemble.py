@@ -238,10 +238,10 @@ def test_process_noise_gives_the_ornstein_uhlenbeck_variance():
 
 
 @pytest.mark.parametrize("demo", ["alder-mere.toml", "brellow-reservoir.toml"])
-def test_runge_kutta_steps_agree_with_solve_ivp(demo):
-    """The fixed-step engine (no uncertainty) against scipy's Radau at rtol 1e-11, split at the
-    same kinks, at every yearly sample of every schedule without actions (scipy.integrate
-    reference); classical Runge-Kutta at 20 steps a year should be within 1e-6 relative."""
+def test_ensemble_steps_agree_with_solve_ivp(demo):
+    """The ensemble's integration (no uncertainty) against scipy's Radau at rtol 1e-11, split at
+    the same kinks, at every yearly sample of every schedule without actions (scipy.integrate
+    reference): within 1e-6 relative."""
     data = _demo_data(demo)
     data.pop("uncertainty", None)
     scenario = scenario_from_data(data)
