@@ -24,6 +24,7 @@ from planner.integrate.solvers.euler_maruyama import EulerMaruyama
 from planner.models import System
 
 ROOT_ITERATIONS = 40  # Illinois iterations locating a crossing inside a step
+CROSSING_TOLERANCE = 1e-11  # years per year of the time: how tightly a crossing is bracketed
 COMPACT_SHARE = 0.5  # settling: step only the members still moving once they are this few
 SETTLE_TOLERANCE = Tolerance(rtol=1e-9, atol=1e-12)
 SETTLE_CAP = 20000.0  # years
@@ -87,6 +88,26 @@ class _Tracker:
         if changed.any():
             self._switch(live[changed], np.full(int(changed.sum()), t), now[changed])
 
+    def scan_single(self, step: Step, member: int, times, states) -> None:
+        """A single run's stretch, given at its outputs: every change of side between two
+        outputs is located exactly by short runs from the earlier output (the step's
+        interpolant)."""
+        inside = self.sign * (states[self.watch.variable] - self.watch.level) <= 0.0
+        flags = np.concatenate([[bool(self.inside[member])], inside[1:]])
+        for i in np.nonzero(flags[1:] != flags[:-1])[0] + 1:
+            between = Step(
+                times[i - 1],
+                times[i],
+                states[:, i - 1 : i],
+                states[:, i : i + 1],
+                None,
+                None,
+                0.0,
+                step.interpolant,
+            )
+            time = self._locate(between, np.zeros(1, dtype=int))
+            self._switch(np.array([member]), time, np.array([bool(inside[i])]))
+
     def step_single(self, step: Step, member: int) -> None:
         """One accepted step of a single run, on plain floats."""
         now = self.sign * (float(step.x1[self.watch.variable, 0]) - self.watch.level) <= 0.0
@@ -117,7 +138,7 @@ class _Tracker:
         b = np.array(np.broadcast_to(step.t1, (m,))[columns], dtype=float)
         ga = sign * (step.x0[k, columns] - level)
         gb = sign * (step.x1[k, columns] - level)
-        tight = 1e-13 * np.maximum(1.0, np.abs(b))
+        tight = CROSSING_TOLERANCE * np.maximum(1.0, np.abs(b))
         done = (np.abs(b - a) <= tight) | (gb == 0)
         for _ in range(ROOT_ITERATIONS):
             if done.all():
@@ -255,7 +276,6 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
     steps = 0
     message = ""
     lower = limits.lower
-    limit = limits.state_limit
     absorbing = watch is not None and watch.absorbing
 
     for number, (a, b) in enumerate(zip(cuts[:-1], cuts[1:], strict=True)):
@@ -298,48 +318,46 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
                 members=batch,
                 piece_number=number,
                 dense=save.dense,
+                outputs=sample_times,
+                settling=settling is not None,
             )
             rebuild = False
             all_counted = True
-            single_slope = None if stepper.batched else piece.scalar_functions()[0]
             single = None if stepper.batched else int(batch[0])
-            scale = None if stepper.batched else settle_scale[:, single].tolist()
             whole_batch = batch.size == m  # a slice then selects it (no fancy indexing)
             try:
                 for step in generator:
                     steps += 1
                     if not stepper.batched:
-                        # One run: the checks below on plain floats (numpy's per-call cost on a
-                        # one-element array would dominate the step).
+                        # One run: the stepper returns the whole stretch with its outputs; the
+                        # checks below run over those outputs at once.
                         if step.h_next > 0:
                             h = step.h_next
-                        y = step.x1[:, 0]
-                        t_member[single] = step.t1
+                        times, states = step.times, step.states
+                        stop, end = _first_stop(
+                            piece, times, states, limits, settling, settle_scale[:, single]
+                        )
+                        stopped_at = None if stop is None else float(times[stop])
+                        if stop is not None:
+                            # a non-finite output is no state: the run ends at the one before
+                            keep = stop + 1 if np.all(np.isfinite(states[:, stop])) else stop
+                            times, states = times[:keep], states[:, :keep]
                         if tracker is not None:
-                            tracker.step_single(step, single)
+                            tracker.scan_single(step, single, times, states)
                         if samples is not None:
-                            _record_single(step, y, sample_times, samples, next_sample)
-                            next_sample = int(
-                                np.searchsorted(sample_times, step.t1 + 1e-12, side="right")
+                            next_sample = _samples_single(
+                                times, states, sample_times, samples, next_sample
                             )
                         if save.steps:
-                            step_times.append(float(step.t1))
-                            step_states.append(y)  # the stepper's fresh array, never changed
+                            step_times.extend(times[1:].tolist())
+                            step_states.extend(states[:, 1:].T)
                         if save.dense:
-                            dense.append((float(step.t0), float(step.t1), step))
-                        x[:, single] = y
-                        values = y.tolist()
-                        if not max(map(abs, values)) <= limit or (
-                            lower is not None and min(values) < lower
-                        ):
-                            end = Status.DIVERGED
-                        elif settling is not None:
-                            end = _settled_single(single_slope, step.t1, y, values, settling, scale)
-                        else:
-                            end = None
+                            dense.append((float(times[0]), float(times[-1]), step))
+                        x[:, single] = states[:, -1]
+                        t_member[single] = times[-1]
                         if end is not None:
                             codes[single] = CODE[end]
-                            t_end[single] = step.t1
+                            t_end[single] = stopped_at
                             alive[single] = False
                             break
                         if absorbing and not alive[single]:
@@ -459,26 +477,36 @@ def _carried(step: Step):
     return np.minimum(step.h_next, np.maximum(taken, 0.5 * np.asarray(step.h_next)))
 
 
-def _record_single(step: Step, y, sample_times, samples, next_sample) -> None:
-    """A single run's samples inside the step, from one interpolant call."""
-    stop = int(np.searchsorted(sample_times, step.t1 + 1e-12, side="right"))
+def _first_stop(piece, times, states, limits: Limits, settling, scale):
+    """A single run's first output (index >= 1) where it diverged or settled, and which; or
+    (None, None). ``states`` (n, len(times))."""
+    later = states[:, 1:]
+    bad = ~np.all(np.abs(later) <= limits.state_limit, axis=0)
+    if limits.lower is not None:
+        bad |= np.any(later < limits.lower, axis=0)
+    first_bad = int(np.argmax(bad)) + 1 if bad.any() else None
+    first_calm = None
+    if settling is not None and later.shape[1]:
+        slopes = piece.rhs(times[1:], later)
+        rate = np.max(np.abs(slopes) / np.maximum(scale[:, None], np.abs(later)), axis=0)
+        calm = rate < settling.rate
+        first_calm = int(np.argmax(calm)) + 1 if calm.any() else None
+    if first_bad is not None and (first_calm is None or first_bad <= first_calm):
+        return first_bad, Status.DIVERGED
+    if first_calm is not None:
+        return first_calm, Status.SETTLED
+    return None, None
+
+
+def _samples_single(times, states, sample_times, samples, next_sample: int) -> int:
+    """Copy a single run's outputs at the sample times (the outputs include them) up to the end
+    of ``times``; returns the next sample to fill."""
+    stop = int(np.searchsorted(sample_times, times[-1] + 1e-12, side="right"))
     if stop > next_sample:
-        when = sample_times[next_sample:stop]
-        inside = when < step.t1
-        values = np.repeat(y[:, None], when.size, axis=1)
-        if inside.any():
-            values[:, inside] = step.interpolant.many(when[inside])
-        samples[next_sample:stop, :, 0] = values.T
-
-
-def _settled_single(
-    slope, t: float, y: np.ndarray, values: list, settling, scale: list
-) -> Status | None:
-    """SETTLED when a single run's state has stopped moving, else None. ``slope(t, y)`` is the
-    piece's plain-float right-hand side, ``values`` the state as floats."""
-    slopes = slope(t, y)
-    rate = max(abs(f) / max(s, abs(v)) for f, s, v in zip(slopes, scale, values, strict=True))
-    return Status.SETTLED if rate < settling.rate else None
+        wanted = sample_times[next_sample:stop]
+        index = np.clip(np.searchsorted(times, wanted - 1e-12), 0, len(times) - 1)
+        samples[next_sample:stop, :, 0] = states[:, index].T
+    return stop
 
 
 def _sample_times(save: Save, horizon: float) -> np.ndarray | None:

@@ -39,6 +39,8 @@ class Step:
     f1: np.ndarray | None
     h_next: float | np.ndarray
     interpolant: Callable[[float | np.ndarray], np.ndarray] | None = None
+    times: np.ndarray | None = None  # a single run's outputs inside the step, t0 and t1 included
+    states: np.ndarray | None = None  # the state at ``times``, (n, len(times))
 
     def at(self, t: float | np.ndarray, columns: np.ndarray | None = None) -> np.ndarray:
         """State at time(s) t within the step: t scalar or one time per member (per column of

@@ -1,12 +1,46 @@
-"""Single runs: scipy's LSODA stepper (Hindmarsh 1983, ODEPACK; Petzold 1983, SIAM J. Sci.
-Stat. Comput. 4:136-148), Adams steps while non-stiff and BDF with the analytic Jacobian once
-stiff, fed plain-float right-hand sides generated for the model."""
+"""Single runs: LSODA (Hindmarsh 1983, ODEPACK; Petzold 1983, SIAM J. Sci. Stat. Comput.
+4:136-148), Adams steps while non-stiff and BDF with the analytic Jacobian once stiff, fed
+plain-float right-hand sides generated for the model.
+
+The solver runs through scipy's ``odeint``, whose stepping loop is compiled: one call covers a
+whole stretch and returns the state on a grid of outputs (every ``OUTPUT_SPACING`` years, and the
+samples asked for; while settling, a geometric grid). The stretch comes back as ONE step that
+carries those outputs; states between outputs come from a fresh short run started at the nearest
+output (exact to the tolerance), which is how crossings are located.
+"""
 
 from __future__ import annotations
+
+import math
+import warnings
 
 import numpy as np
 
 from planner.integrate.solvers.base import Step, StepError, Stepper
+
+OUTPUT_SPACING = 0.1  # years between outputs within a stretch (plots, crossings, divergence)
+SETTLE_FIRST_OUTPUT = 0.01  # years: first output of a settling run; then GROWTH times further
+SETTLE_GROWTH = 1.25
+SUCCESS = "Integration successful."
+
+
+def output_grid(a: float, b: float, samples: np.ndarray | None, settling: bool) -> np.ndarray:
+    """Output times of a stretch [a, b]: uniform (or geometric while settling) plus samples."""
+    if settling:
+        count = max(
+            1,
+            math.ceil(
+                math.log(max(b - a, SETTLE_FIRST_OUTPUT) / SETTLE_FIRST_OUTPUT)
+                / math.log(SETTLE_GROWTH)
+            ),
+        )
+        grid = a + SETTLE_FIRST_OUTPUT * SETTLE_GROWTH ** np.arange(count + 1)
+    else:
+        grid = np.linspace(a, b, max(1, math.ceil((b - a) / OUTPUT_SPACING)) + 1)
+    parts = [[a], grid[(grid > a) & (grid < b)], [b]]
+    if samples is not None:
+        parts.append(samples[(samples > a) & (samples < b)])
+    return np.unique(np.concatenate(parts))
 
 
 class Lsoda(Stepper):
@@ -15,65 +49,72 @@ class Lsoda(Stepper):
     stiff = True
     batched = False
 
-    def steps(self, piece, a, b, x, h, *, tolerance, scale, max_steps, dense=False, **_):
-        from scipy.integrate import LSODA
-
-        y0 = x[:, 0]
+    def steps(
+        self, piece, a, b, x, h, *, tolerance, scale, max_steps, outputs=None, settling=False, **_
+    ):
         rhs, jac = piece.scalar_functions()
-        solver = LSODA(
-            rhs,
+        grid = output_grid(a, b, outputs, settling)
+        options = {
+            "rtol": tolerance.rtol,
+            "atol": tolerance.atol * scale[:, 0],
+            "mxstep": int(min(max_steps, 2**31 - 1)),
+        }
+        states, info = _run(rhs, jac, x[:, 0], grid, options, h)
+        valid = len(grid)
+        if info["message"] != SUCCESS:
+            reached = np.asarray(info["tcur"], dtype=float)
+            # an output counts only once the solver has passed it
+            valid = 1 + int(np.sum(np.cumprod(reached >= grid[1:] - 1e-12 * max(1.0, abs(b)))))
+        times, states = grid[:valid], states[:valid].T.copy()
+        steps_taken = np.asarray(info["hu"], dtype=float)
+        h_next = float(steps_taken[valid - 2]) if valid >= 2 else 0.0
+        yield Step(
             a,
+            float(times[-1]),
+            x,
+            states[:, -1:].copy(),
+            None,
+            None,
+            h_next,
+            _Between(rhs, jac, times, states, options),
+            times,
+            states,
+        )
+        if valid < len(grid):
+            last = states[:, -1]
+            if np.all(np.isfinite(last)):
+                raise StepError(str(info["message"]))
+
+
+def _run(rhs, jac, y0, grid, options, h):
+    from scipy.integrate import ODEintWarning, odeint
+
+    with warnings.catch_warnings():
+        # A failure is reported through full_output (and judged by the driver), not warned.
+        warnings.simplefilter("ignore", ODEintWarning)
+        return odeint(
+            rhs,
             y0,
-            b,
-            rtol=tolerance.rtol,
-            atol=tolerance.atol * scale[:, 0],
-            jac=jac,
-            first_step=None if h is None else min(h, b - a),
-        )
-        count = 0
-        while solver.status == "running":
-            message = solver.step()
-            count += 1
-            if solver.status == "failed" or count > max_steps:
-                if not np.all(np.isfinite(solver.y)):
-                    x1 = solver.y[:, None].copy()
-                    yield Step(solver.t_old or a, solver.t, x, x1, None, None, 0.0)
-                    return
-                raise StepError(str(message or f"more than {max_steps} steps"))
-            x1 = solver.y[:, None].copy()
-            interpolant = _columns(solver.dense_output()) if dense else _Lazy(solver)
-            yield Step(solver.t_old, solver.t, x, x1, None, None, solver.step_size, interpolant)
-            x = x1
-
-
-def _columns(dense):
-    def at(t):
-        return np.asarray(dense(np.asarray(t, dtype=float).reshape(-1)[0]), dtype=float)[:, None]
-
-    def many(times):
-        """States at several times at once, (n, len(times))."""
-        return np.asarray(dense(np.asarray(times, dtype=float)), dtype=float).reshape(
-            -1, len(times)
+            grid,
+            Dfun=jac,
+            tfirst=True,
+            full_output=True,
+            h0=0.0 if h is None or not np.isfinite(h) else float(h),
+            **options,
         )
 
-    at.many = many
-    return at
 
+class _Between:
+    """States between a stretch's outputs: a short run from the nearest output at or before t."""
 
-class _Lazy:
-    """The solver's interpolant over its last step, built only when the driver asks."""
+    def __init__(self, rhs, jac, times, states, options):
+        self.rhs, self.jac, self.times, self.states, self.options = rhs, jac, times, states, options
 
-    def __init__(self, solver):
-        self.solver = solver
-        self.built = None
-
-    def __call__(self, t):
-        return self._built()(t)
-
-    def many(self, times):
-        return self._built().many(times)
-
-    def _built(self):
-        if self.built is None:
-            self.built = _columns(self.solver.dense_output())
-        return self.built
+    def __call__(self, t, columns=None):
+        t = float(np.asarray(t, dtype=float).reshape(-1)[0])
+        i = int(np.clip(np.searchsorted(self.times, t, side="right") - 1, 0, len(self.times) - 1))
+        start = self.times[i]
+        if t <= start:
+            return self.states[:, i : i + 1].copy()
+        end, _ = _run(self.rhs, self.jac, self.states[:, i], [start, t], self.options, None)
+        return end[-1][:, None]
