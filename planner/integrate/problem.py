@@ -140,6 +140,16 @@ class Piece:
         return out
 
     def rhs(self, t, x: np.ndarray) -> np.ndarray:
+        if self.n == 1:  # the common case, kept lean: it runs a dozen times per step
+            u = (self.u_a + self.slope * (t - self.a)) * self.factor
+            value = self.functions.batched_rhs(x[0], u, *self.values_at(t, self.index))[0]
+            if (
+                type(value) is np.ndarray
+                and value.shape == x.shape[1:]
+                and value.dtype == np.float64
+                and not np.may_share_memory(value, x)
+            ):
+                return value.reshape(1, *x.shape[1:])  # a view: callers treat it as read-only
         return self._stacked(self.functions.batched_rhs, t, x, self.n)
 
     def jac(self, t, x: np.ndarray) -> np.ndarray:
