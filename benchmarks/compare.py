@@ -35,7 +35,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from hand_written import piecewise_linear  # noqa: I001 (a sibling script module)
+from hand_written import piecewise_linear, recycling  # noqa: I001 (a sibling script module)
 from scipy.integrate import solve_ivp
 
 from planner.equilibria import diagram_for
@@ -97,18 +97,7 @@ def hand_written(kind: str, parameters: dict, load, pulses, a: float, b: float):
         base_r = parameters["r"]
         m_q = m**q
         if r_of_t is None:
-
-            def rhs(t, y):
-                p = y[0]
-                p_q = p**q
-                return [load(t) - s * p + r0 * p_q / (m_q + p_q)]
-
-            def jac(t, y):
-                p = y[0]
-                p_q = p**q
-                d = m_q + p_q
-                return [[-s + r0 * q * p ** (q - 1.0) * m_q / (d * d)]]
-
+            rhs, jac = recycling(load, s, r0, q, m_q)
         else:
 
             def rhs(t, y):

@@ -33,7 +33,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from hand_written import piecewise_linear  # noqa: I001 (a sibling script module)
+from hand_written import piecewise_linear, recycling  # noqa: I001 (a sibling script module)
 from scipy.integrate import solve_ivp
 
 from planner.equilibria import diagram_for
@@ -65,19 +65,7 @@ class Lake:
 
     def rhs_for(self, times: list[float], values: list[float]):
         s, r, q, m_q = self.s, self.r, self.q, self.m_q
-        load = piecewise_linear(times, values)
-
-        def rhs(t, y):
-            p = y[0]
-            p_q = p**q
-            return [load(t) - s * p + r * p_q / (m_q + p_q)]
-
-        def jac(t, y):
-            p = y[0]
-            d = m_q + p**q
-            return [[-s + r * q * p ** (q - 1.0) * m_q / (d * d)]]
-
-        return rhs, jac
+        return recycling(piecewise_linear(times, values), s, r, q, m_q)
 
     def schedule(self, floor: float, hold: float) -> tuple[list[float], list[float]]:
         family = self.family

@@ -19,3 +19,19 @@ def piecewise_linear(times: list[float], values: list[float]):
         return values[j] + (values[j + 1] - values[j]) * (t - t0) / (t1 - t0)
 
     return load
+
+
+def recycling(load, s: float, r: float, q: float, m_q: float):
+    """(rhs, jac) of dP/dt = L(t) - s P + r P^q / (m^q + P^q) in plain floats, m^q given."""
+
+    def rhs(t, y):
+        p = y[0]
+        p_q = p**q
+        return [load(t) - s * p + r * p_q / (m_q + p_q)]
+
+    def jac(t, y):
+        p = y[0]
+        d = m_q + p**q
+        return [[-s + r * q * p ** (q - 1.0) * m_q / (d * d)]]
+
+    return rhs, jac
