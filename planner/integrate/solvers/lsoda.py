@@ -110,6 +110,27 @@ class _Between:
     def __init__(self, rhs, jac, times, states, options):
         self.rhs, self.jac, self.times, self.states, self.options = rhs, jac, times, states, options
 
+    def many(self, times) -> np.ndarray:
+        """States at several times, (n, len(times)): one short run per output interval."""
+        times = np.asarray(times, dtype=float)
+        out = np.empty((self.states.shape[0], times.size))
+        order = np.argsort(times)
+        index = np.clip(
+            np.searchsorted(self.times, times[order], side="right") - 1, 0, len(self.times) - 1
+        )
+        for i in np.unique(index):
+            chosen = order[index == i]
+            start = self.times[i]
+            wanted = times[chosen]
+            later = wanted > start
+            out[:, chosen[~later]] = self.states[:, i : i + 1]
+            if later.any():
+                distinct, back = np.unique(wanted[later], return_inverse=True)
+                grid = np.concatenate([[start], distinct])
+                run, _ = _run(self.rhs, self.jac, self.states[:, i], grid, self.options, None)
+                out[:, chosen[later]] = run[1:][back].T
+        return out
+
     def __call__(self, t, columns=None):
         t = float(np.asarray(t, dtype=float).reshape(-1)[0])
         i = int(np.clip(np.searchsorted(self.times, t, side="right") - 1, 0, len(self.times) - 1))
