@@ -40,8 +40,8 @@ from scipy.integrate import solve_ivp
 
 from planner.equilibria import diagram_for
 from planner.integrate import Problem, Save, integrate
-from planner.metrics import plan, watch_for
-from planner.outcomes import compare, limits_for
+from planner.metrics import limits_for, plan, watch_for
+from planner.outcomes import compare
 from planner.scenario import load_scenario
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"

@@ -60,6 +60,7 @@ from planner.equilibria import EXTEND, NEGATIVE_MARGIN, Diagram, Fold, diagram_f
 from planner.errors import InputError, Problem
 from planner.integrate import Limits, Save, Status, Tolerance, Trajectory, integrate, trajectory
 from planner.integrate import Problem as IntegrationProblem
+from planner.metrics import limits_for
 from planner.models import ModelSpec, System, compile_model
 from planner.monitoring import Record, same_unit
 from planner.progress import Progress, scaled, silent
@@ -1054,7 +1055,7 @@ def _fitted_trajectory(
     solution = integrate(
         IntegrationProblem(scenario.system(**fitted), x0, observations.path, observations.horizon),
         save=Save(every=1.0 / TRAJECTORY_SAMPLES_PER_YEAR, steps=True),
-        limits=Limits(scenario.simulation.state_limit, scenario.spec.nonnegative_state),
+        limits=limits_for(scenario),
         tolerance=Tolerance(rtol=FIT_RTOL, atol=FIT_RTOL * FIT_ATOL_SHARE),
     )
     return trajectory(solution, observations.path)

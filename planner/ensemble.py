@@ -56,9 +56,9 @@ from scipy.special import ndtri
 
 from planner.equilibria import Diagram, diagram_for
 from planner.errors import InputError, Problem
-from planner.integrate import Limits, ProcessNoise, Save, Tolerance, Watch, held, integrate
 from planner.integrate import Problem as Run
-from planner.metrics import Plan, damages, plan, target_metrics, watch_for
+from planner.integrate import ProcessNoise, Save, Tolerance, Watch, held, integrate, system_limits
+from planner.metrics import Plan, damages, limits_for, plan, target_metrics, watch_for
 from planner.models import System
 from planner.progress import Progress, scaled, silent
 from planner.scenario import Scenario, Schedule, Uncertainty
@@ -257,7 +257,7 @@ def _run_chunk(task: _Task, progress: Progress = silent) -> list[_MemberResults]
         system = system.with_parameters(**parameters)
     factors = draw_load_factors(uncertainty, settings.years, start, stop)
     keep = max(0, min(stop, settings.fan_members) - start)
-    limits = Limits(scenario.simulation.state_limit, scenario.spec.nonnegative_state)
+    limits = limits_for(scenario)
     watch = watch_for(scenario)
     noisy = np.nonzero(settings.noise > 0)[0]
     x0 = np.repeat(scenario.initial_state[:, None], m, axis=1)
@@ -677,7 +677,7 @@ def first_passage_times(
     run = integrate(
         problem,
         watch=watch,
-        limits=Limits(nonnegative=system.model.spec.nonnegative_state),
+        limits=system_limits(system),
         progress=lambda fraction, message: progress(fraction, "first passages"),
     )
     reached = np.isfinite(run.watch.entered_at)

@@ -22,7 +22,7 @@ from typing import Literal
 import numpy as np
 from scipy.optimize import brentq
 
-from planner.integrate import Limits, Status, Tolerance, settle
+from planner.integrate import Status, Tolerance, settle, system_limits
 from planner.models import System
 
 # Tuning constants (scaled units: state by its magnitude, control by the range width).
@@ -691,7 +691,7 @@ def compute_diagram(
 
 def _settle(system: System, x: np.ndarray, u: float, limit: float):
     """Integrate at a frozen control until the state settles (cap 1e5 years)."""
-    limits = Limits(limit, system.model.spec.nonnegative_state)
+    limits = system_limits(system, limit)
     return settle(system, x, u, cap=1e5, limits=limits, tolerance=Tolerance(rtol=1e-7, atol=1e-10))
 
 

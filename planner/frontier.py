@@ -34,7 +34,8 @@ from planner.equilibria import Diagram, diagram_for
 from planner.errors import InputError, Problem
 from planner.integrate import STATUSES, Save, Solution, Status, integrate
 from planner.integrate import Problem as Run
-from planner.outcomes import evaluate, limits_for
+from planner.metrics import limits_for
+from planner.outcomes import evaluate
 from planner.progress import Progress, scaled, silent
 from planner.scenario import OvershootSchedule, Scenario, Schedule, StaircaseSchedule
 from planner.schedules import ControlPath

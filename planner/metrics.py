@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from planner.costs import CostBreakdown, damage_present_value, scenario_costs
-from planner.integrate import Status, Watch, WatchRecord
+from planner.integrate import Limits, Status, Watch, WatchRecord, system_limits
 from planner.schedules import (
     ActionTimeline,
     ControlPath,
@@ -61,6 +61,11 @@ def plan(scenario, schedule) -> Plan:
         infeasible=infeasible,
         planned_costs=planned,
     )
+
+
+def limits_for(scenario) -> Limits:
+    """The scenario's divergence limits (its state limit; amounts stay non-negative)."""
+    return system_limits(scenario.system(), scenario.simulation.state_limit)
 
 
 def watch_for(scenario) -> Watch | None:

@@ -13,8 +13,9 @@ import numpy as np
 
 from planner.costs import CostBreakdown
 from planner.equilibria import Diagram, diagram_for
-from planner.integrate import Limits, Problem, Save, Trajectory, integrate, trajectory
+from planner.integrate import Problem, Save, Trajectory, integrate, trajectory
 from planner.metrics import (
+    limits_for,
     overshoot,
     plan,
     schedule_costs_with_damages,
@@ -63,10 +64,6 @@ class Comparison:
     scenario: Scenario
     diagram: Diagram
     outcomes: list[ScheduleOutcome]
-
-
-def limits_for(scenario: Scenario) -> Limits:
-    return Limits(scenario.simulation.state_limit, scenario.spec.nonnegative_state)
 
 
 def evaluate(

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from planner.equilibria import follow_branch
-from planner.integrate import Limits, Status, settle
+from planner.integrate import Status, settle, system_limits
 from planner.models import System
 from planner.progress import Progress, silent
 
@@ -48,7 +48,7 @@ def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
         followed = None
         if previous_u is not None:
             followed = follow_branch(system, x, float(previous_u), float(u), width, magnitude)
-        limits = Limits(limit, system.model.spec.nonnegative_state)
+        limits = system_limits(system, limit)
         run = settle(system, x, float(u), cap=cap, limits=limits)
         if run.status is Status.DIVERGED:
             break

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planner.integrate import Limits, Status, Tolerance, settle
+from planner.integrate import Status, Tolerance, settle, system_limits
 from planner.integrate.solvers import batched_solve
 from planner.models import System
 
@@ -244,7 +244,7 @@ def decide(
             finished = finished[~known]
             if finished.size == 0:
                 return Verdicts(codes, settled, diverged_at)
-    limits = Limits(limit, system.model.spec.nonnegative_state)
+    limits = system_limits(system, limit)
     run = settle(
         sub,
         final_state[:, finished],

@@ -3,7 +3,7 @@ driver and one solution type. Nothing outside this package steps an ODE."""
 
 from planner.integrate.driver import choose_solver, integrate, settle
 from planner.integrate.options import Limits, Save, Settling, Tolerance, Watch
-from planner.integrate.problem import Problem, ProcessNoise, held
+from planner.integrate.problem import Problem, ProcessNoise, held, system_limits
 from planner.integrate.solution import (
     STATUSES,
     Solution,
@@ -32,5 +32,6 @@ __all__ = [
     "held",
     "integrate",
     "settle",
+    "system_limits",
     "trajectory",
 ]

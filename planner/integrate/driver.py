@@ -17,7 +17,7 @@ from collections.abc import Callable
 import numpy as np
 
 from planner.integrate.options import SCALE_FLOOR, Limits, Save, Settling, Tolerance, Watch
-from planner.integrate.problem import Pieces, Problem, held
+from planner.integrate.problem import Pieces, Problem, held, system_limits
 from planner.integrate.solution import CODE, Solution, Status, WatchRecord
 from planner.integrate.solvers import SOLVERS, Step, StepError, Stepper
 from planner.integrate.solvers.euler_maruyama import EulerMaruyama
@@ -194,9 +194,6 @@ class _Tracker:
             entered_at=np.where(met_end, entered, np.nan),
             relapsed=relapsed,
             not_met_by_year=missing,
-            crossings=tuple(
-                (t, int(j), int(d)) for t, j, d in zip(times, members, directions, strict=True)
-            ),
         )
 
 
@@ -241,7 +238,7 @@ def integrate(
 
 def _integrate(problem, save, watch, limits, tolerance, settling, solver, progress) -> Solution:
     if limits is None:
-        limits = Limits(nonnegative=problem.system.model.spec.nonnegative_state)
+        limits = system_limits(problem.system)
     name = solver or choose_solver(problem, settling=settling is not None)
     stepper = _stepper(name, problem)
     m = problem.members

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from planner.integrate.codegen import Specialised, specialise
+from planner.integrate.options import Limits
 from planner.models import System
 from planner.schedules import ActionTimeline, ControlPath
 
@@ -115,9 +116,11 @@ class Piece:
         a: float,
         factor: float | np.ndarray,
         index: np.ndarray | None = None,
+        fixed: tuple | None = None,
     ):
         self.functions = functions
         self.values_at = values_at
+        self.fixed = fixed  # the parameter values when they do not change over the stretch
         self.u_a, self.slope, self.a, self.factor = u_a, slope, a, factor
         self.index = index
         self.n = functions.n
@@ -169,7 +172,7 @@ class Piece:
         rhs, jac = self.functions.scalar_rhs, self.functions.scalar_jac
         u_a, slope, a, factor, n = self.u_a, self.slope, self.a, float(self.factor), self.n
         values_at = self._values
-        constant = values_at(a) if values_at(a) is values_at(a + 1.0) else None
+        constant = self.fixed if self.index is None else None
 
         def scalar_rhs(t, y):
             values = constant if constant is not None else values_at(t)
@@ -221,6 +224,7 @@ class Pieces:
         decaying = any(
             p.decay_years > 0 and a >= p.start + p.duration - SAME_TIME for p in self.pulses
         )
+        fixed = None
         if decaying:
             values_at = self._values_at
         else:
@@ -230,11 +234,17 @@ class Pieces:
                 return fixed if index is None else tuple(_pick(v, index) for v in fixed)
 
         u_a, slope = float(control(a)), float(control.slope(a))
-        return Piece(self.functions, values_at, u_a, slope, a, factor)
+        return Piece(self.functions, values_at, u_a, slope, a, factor, fixed=fixed)
 
 
 def _pick(value, index: np.ndarray | None):
     return value if index is None or np.ndim(value) == 0 else value[index]
+
+
+def system_limits(system, state_limit: float = 1e6) -> Limits:
+    """The divergence limits of a system: the state limit, and non-negative states for models
+    whose state is an amount."""
+    return Limits(state_limit, system.model.spec.nonnegative_state)
 
 
 def held(value: float) -> ControlPath:

@@ -35,7 +35,6 @@ class WatchRecord:
     entered_at: np.ndarray
     relapsed: np.ndarray
     not_met_by_year: np.ndarray
-    crossings: tuple[tuple[float, int, int], ...] = ()  # (time, member, +1 lost / -1 entered)
 
 
 @dataclass(frozen=True, eq=False)
