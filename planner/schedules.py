@@ -209,7 +209,10 @@ def control_path(
         previous = current
         for k, level in enumerate(schedule.levels):
             begin = start + k * step
-            points += [(begin, previous), (begin + ramp, float(level))]
+            # A ramp as long as the step ends where the next change begins; rounding in
+            # begin + ramp must not put it after that (the times would run backwards).
+            end = min(begin + ramp, start + (k + 1) * step)
+            points += [(begin, previous), (end, float(level))]
             previous = float(level)
     elif isinstance(schedule, OvershootSchedule):
         t = schedule.start
