@@ -124,8 +124,12 @@ class Piece:
         self.u_a, self.slope, self.a, self.factor = u_a, slope, a, factor
         self.index = index
         self.n = functions.n
+        # a held load is the same array at every call: computed once, not a dozen times a step
+        self.held = u_a * factor if slope == 0.0 else None
 
     def control(self, t):
+        if self.held is not None:
+            return self.held
         return (self.u_a + self.slope * (t - self.a)) * self.factor
 
     def _values(self, t) -> tuple:
@@ -144,7 +148,7 @@ class Piece:
 
     def rhs(self, t, x: np.ndarray) -> np.ndarray:
         if self.n == 1:  # the common case, kept lean: it runs a dozen times per step
-            u = (self.u_a + self.slope * (t - self.a)) * self.factor
+            u = self.held if self.held is not None else self.control(t)
             value = self.functions.batched_rhs(x[0], u, *self.values_at(t, self.index))[0]
             if (
                 type(value) is np.ndarray
