@@ -115,12 +115,48 @@ class StableRun:
     undesired: bool
 
 
+ThresholdKind = Literal["fold", "hopf", "stability change"]
+
+
 @dataclass(frozen=True)
 class Window:
-    """A bistable window: between the recovery and the collapse threshold."""
+    """A bistable window: between the recovery and the collapse threshold, each the control
+    value where a regime stops being a stable attractor along its branch (``*_kind``: at a
+    fold, a Hopf point, or a real eigenvalue crossing zero away from a fold); ``*_state`` the
+    equilibrium there."""
 
     recovery: float | None
     collapse: float | None
+    recovery_kind: ThresholdKind = "fold"
+    collapse_kind: ThresholdKind = "fold"
+    recovery_state: np.ndarray | None = field(default=None, repr=False, compare=False)
+    collapse_state: np.ndarray | None = field(default=None, repr=False, compare=False)
+
+
+@dataclass(frozen=True)
+class Threshold:
+    """Where one regime stops being a stable attractor as the control passes ``location``.
+
+    ``lost``: the regime that ends there ("undesired" for the recovery threshold, "desired"
+    for the collapse threshold). ``kind``: a fold (the equilibrium meets the basin boundary and
+    vanishes), a Hopf point (it turns into a growing spiral: the lake swings before it leaves)
+    or another stability change. ``location`` is where that happens along the branch, None
+    when the regime persists over the whole searched range. ``reachable`` is False when the
+    location lies outside what the control can do (below the lowest achievable load, outside
+    the control range); ``reason`` then says why in words, and :attr:`value` is None: such a
+    threshold is never an actionable load.
+    """
+
+    lost: Literal["undesired", "desired"]
+    kind: ThresholdKind
+    location: float | None
+    state: np.ndarray | None = field(repr=False, compare=False)
+    reachable: bool
+    reason: str | None = None
+
+    @property
+    def value(self) -> float | None:
+        return self.location if self.reachable else None
 
 
 @dataclass(frozen=True)
@@ -139,14 +175,34 @@ class Diagram:
     classification: Classification
     scale: np.ndarray = field(repr=False)
     stability_changes: list[StabilityChange] = field(default_factory=list)
+    recovery: Threshold | None = None
+    collapse: Threshold | None = None
 
     @property
     def recovery_threshold(self) -> float | None:
-        return None if self.window is None else self.window.recovery
+        """The control value below which the undesired regime is no longer a stable attractor;
+        None when there is none the control can reach (see :attr:`recovery`)."""
+        return None if self.recovery is None else self.recovery.value
 
     @property
     def collapse_threshold(self) -> float | None:
-        return None if self.window is None else self.window.collapse
+        """The control value above which the desired regime is lost; None when unreachable."""
+        return None if self.collapse is None else self.collapse.value
+
+    @cached_property
+    def most_stable_states(self) -> int:
+        """The largest number of stable equilibria that coexist at one control value in range
+        (2 for a hysteretic lake, 3 or more for multi-stable ones)."""
+        low, high = self.control_range
+        spans = [
+            (float(run.controls[0]), float(run.controls[-1]))
+            for run in self.stable_runs
+            if run.controls[-1] >= low and run.controls[0] <= high
+        ]
+        probes = [np.clip(0.5 * (a + b), low, high) for a, b in spans]
+        ends = sorted({min(max(v, low), high) for span in spans for v in span} | {low, high})
+        probes += [0.5 * (a + b) for a, b in zip(ends, ends[1:], strict=False)]
+        return int(max((sum(bool(a <= u <= b) for a, b in spans) for u in probes), default=0))
 
     def equilibria_at(self, u: float) -> list[Equilibrium]:
         """All traced equilibria at control ``u``, polished by Newton, in branch order."""
@@ -503,6 +559,34 @@ def follow_branch(
     return end[:-1] * scale[:-1]
 
 
+def _refine_change(
+    system: System, states: np.ndarray, controls: np.ndarray, leading: np.ndarray
+) -> tuple[float, np.ndarray, bool]:
+    """Where the leading eigenvalue's real part crosses zero between two traced points away
+    from a fold: bisection on the control (the control is a good coordinate there), each
+    equilibrium polished by Newton at a fixed control. Returns the control, the equilibrium and
+    whether a complex pair crosses (a Hopf point) rather than a real eigenvalue."""
+    (u_a, u_b), (x_a, x_b) = controls, states
+    sign_a = leading[0] < 0
+    x_mid = x_a
+    for _ in range(BISECTIONS):
+        u_mid = 0.5 * (u_a + u_b)
+        w = 0.0 if u_b == u_a else (u_mid - controls[0]) / (controls[1] - controls[0])
+        polished = _newton_fixed_control(system, (1 - w) * states[0] + w * states[1], u_mid)
+        if polished is None:
+            break
+        x_mid = polished
+        if (np.max(np.linalg.eigvals(system.jac(x_mid, u_mid)).real) < 0) == sign_a:
+            u_a, x_a = u_mid, x_mid
+        else:
+            u_b, x_b = u_mid, x_mid
+    u_c = 0.5 * (u_a + u_b)
+    x_c = 0.5 * (x_a + x_b)
+    eigenvalues = np.linalg.eigvals(system.jac(x_c, u_c))
+    critical = eigenvalues[np.argmax(eigenvalues.real)]
+    return float(u_c), x_c, bool(abs(critical.imag) > 1e-9 * (1 + abs(critical)))
+
+
 def _refine_fold(system: System, x: np.ndarray, u: float) -> tuple[np.ndarray, float, float]:
     """Newton on f = 0, J v = 0, c.v = 1 (unknowns x, u, v). Returns x, u and |f|."""
     n = system.n
@@ -625,14 +709,10 @@ def compute_diagram(
                 or np.min(np.abs(extremes - i - 1), initial=99) <= 2
             ):
                 continue  # the change belongs to a fold
-            w = leading[i] / (leading[i] - leading[i + 1])
-            u_c = float((1 - w) * controls_b[i] + w * controls_b[i + 1])
-            oscillatory = bool(np.any(np.abs(eigenvalues[i : i + 2].imag) > 0))
-            changes.append(
-                StabilityChange(
-                    u_c, (1 - w) * states[i] + w * states[i + 1], oscillatory, low <= u_c <= high
-                )
+            u_c, x_c, oscillatory = _refine_change(
+                system, states[i : i + 2], controls_b[i : i + 2], leading[i : i + 2]
             )
+            changes.append(StabilityChange(u_c, x_c, oscillatory, low <= u_c <= high))
         for extreme in extremes:
             x_f, u_f, residual = _refine_fold(system, states[extreme], controls_b[extreme])
             side = np.sign(controls_b[extreme - 1] - controls_b[extreme])
@@ -674,9 +754,16 @@ def compute_diagram(
         folds.append(Fold(float(u_f), x_f, kind, residual, vanish, bool(low <= u_f <= high)))
         fold_places.append((branch_index, index))
 
+    diagram = dataclasses.replace(diagram, folds=folds)
     windows = _windows(diagram, folds, fold_places)
     u_now = least if current_control is None else float(current_control)
-    window = _main_window(windows, u_now, (low, high))
+    holding = [w for w in windows if _contains(w, u_now)]
+    attractor = None
+    if len(holding) > 1:  # several windows at this control: the lake's own branch decides
+        run = _settle(system, reference, u_now, limit)
+        attractor = run.final_state[:, 0] if run.status is Status.SETTLED else None
+    window = _main_window(diagram, windows, u_now, (low, high), attractor)
+    recovery, collapse = _thresholds(window, (low, high), least)
     stable_at_least = [e for e in diagram.equilibria_at(least) if e.stable]
     if len(stable_at_least) >= 2:
         classification: Classification = "irreversible"
@@ -685,8 +772,56 @@ def compute_diagram(
     else:
         classification = "reversible"
     report(1.0, "done")
-    fields = {"folds": folds, "windows": windows, "window": window}
+    fields = {"windows": windows, "window": window, "recovery": recovery, "collapse": collapse}
     return dataclasses.replace(diagram, **fields, classification=classification)
+
+
+def _thresholds(
+    window: Window | None, control_range: tuple[float, float], least: float
+) -> tuple[Threshold | None, Threshold | None]:
+    """The recovery and collapse thresholds of the main window, each reachable or not."""
+    if window is None:
+        return None, None
+    low, high = control_range
+    recovery = window.recovery
+    if recovery is None:
+        reason = "the undesired regime stays stable over the whole searched range"
+    elif recovery < least:
+        reason = (
+            "the undesired regime stays stable down to the lowest achievable control value, "
+            f"{least:g}"
+        )
+    elif recovery > high:
+        reason = f"it lies above the control range, which ends at {high:g}"
+    else:
+        reason = None
+    collapse = window.collapse
+    if collapse is None:
+        collapse_reason = "the desired regime stays stable over the whole searched range"
+    elif collapse > high:
+        collapse_reason = f"the desired regime stays stable up to the top of the range, {high:g}"
+    elif collapse < low:
+        collapse_reason = f"it lies below the control range, which starts at {low:g}"
+    else:
+        collapse_reason = None
+    return (
+        Threshold(
+            "undesired",
+            window.recovery_kind,
+            recovery,
+            window.recovery_state,
+            reason is None,
+            reason,
+        ),
+        Threshold(
+            "desired",
+            window.collapse_kind,
+            collapse,
+            window.collapse_state,
+            collapse_reason is None,
+            collapse_reason,
+        ),
+    )
 
 
 def _settle(system: System, x: np.ndarray, u: float, limit: float):
@@ -740,7 +875,17 @@ def _windows(diagram: Diagram, folds: list[Fold], places: list[tuple[int, int]])
                 recovery = first if first.kind == "recovery" else second
                 collapse = second if recovery is first else first
                 if recovery.control < collapse.control:
-                    windows.append(Window(recovery.control, collapse.control))
+                    windows.append(
+                        Window(
+                            *_window_ends(
+                                diagram,
+                                b,
+                                {id(f): i for i, f in on_branch},
+                                recovery,
+                                collapse,
+                            )
+                        )
+                    )
                     paired.update({id(first), id(second)})
         for fold in kinds:
             if id(fold) in paired:
@@ -748,11 +893,53 @@ def _windows(diagram: Diagram, folds: list[Fold], places: list[tuple[int, int]])
             inside = fold.control - fold.vanish_direction * FOLD_NUDGE * width
             if sum(e.stable for e in diagram.equilibria_at(inside)) < 2:
                 continue
+            index = {id(f): i for i, f in on_branch}
             if fold.kind == "collapse":
-                windows.append(Window(None, fold.control))
+                u, kind, x = _stable_end(diagram, b, index[id(fold)], fold)
+                windows.append(Window(None, u, collapse_kind=kind, collapse_state=x))
             else:
-                windows.append(Window(fold.control, None))
+                u, kind, x = _stable_end(diagram, b, index[id(fold)], fold)
+                windows.append(Window(u, None, recovery_kind=kind, recovery_state=x))
     return windows
+
+
+def _window_ends(diagram: Diagram, b: int, index: dict, recovery: Fold, collapse: Fold) -> tuple:
+    """Window fields for a recovery and a collapse fold on branch b (see :func:`_stable_end`)."""
+    u_r, kind_r, x_r = _stable_end(diagram, b, index[id(recovery)], recovery)
+    u_c, kind_c, x_c = _stable_end(diagram, b, index[id(collapse)], collapse)
+    return u_r, u_c, kind_r, kind_c, x_r, x_c
+
+
+def _stable_end(
+    diagram: Diagram, b: int, index: int, fold: Fold
+) -> tuple[float, ThresholdKind, np.ndarray]:
+    """Where the stable run that ends at ``fold`` really stops being stable.
+
+    Usually at the fold itself; but in slow-fast lakes the turbid equilibrium can lose its
+    stability at a Hopf point before its fold (the branch between them is an unstable spiral),
+    and then the regime ends there: the lake leaves it at the Hopf point, not at the fold.
+    Walks along the branch from the fold on each side to the first stable point (not passing
+    another fold); one right next to the fold means the fold ends the run.
+    """
+    branch = diagram.branches[b]
+    stable, controls = branch.stable, branch.controls
+    steps = np.diff(controls)
+    turning = set((np.nonzero(np.sign(steps[:-1]) * np.sign(steps[1:]) < 0)[0] + 1).tolist())
+    for direction in (1, -1):
+        j = index + direction
+        while 0 <= j < len(stable) and not stable[j] and j not in turning:
+            j += direction
+        if not 0 <= j < len(stable) or j in turning:
+            continue
+        if abs(j - index) <= 2:
+            break
+        low, high = sorted((controls[j - direction], controls[j]))
+        width = diagram.control_range[1] - diagram.control_range[0]
+        for change in diagram.stability_changes:
+            if low - 1e-9 * width <= change.control <= high + 1e-9 * width:
+                kind: ThresholdKind = "hopf" if change.oscillatory else "stability change"
+                return change.control, kind, change.state
+    return fold.control, "fold", fold.state
 
 
 def _overlap(window: Window, interval: tuple[float, float]) -> float:
@@ -762,15 +949,47 @@ def _overlap(window: Window, interval: tuple[float, float]) -> float:
 
 
 def _main_window(
-    windows: list[Window], u_now: float, interval: tuple[float, float]
+    diagram: Diagram,
+    windows: list[Window],
+    u_now: float,
+    interval: tuple[float, float],
+    attractor: np.ndarray | None = None,
 ) -> Window | None:
-    """The window holding the current control, else the one overlapping the range most."""
+    """The window holding the current control, else the one overlapping the range most. With
+    several holding it (three or more stable states), the one whose thresholds end the stable
+    run the lake's ``attractor`` lies on: its recovery threshold when that run is undesired,
+    its collapse threshold when desired (not the first found, which would depend on the
+    control value rather than on where the lake is)."""
     if not windows:
         return None
     holding = [w for w in windows if _contains(w, u_now)]
+    if len(holding) > 1 and attractor is not None:
+        run = _run_of(diagram, attractor, u_now)
+        if run is not None:
+            ends = run.states[[0, -1]]
+
+            def distance(w: Window) -> float:
+                x = w.recovery_state if run.undesired else w.collapse_state
+                if x is None:
+                    return np.inf
+                return float(np.min(np.max(np.abs(ends - x) / diagram.scale[:-1], axis=1)))
+
+            return min(holding, key=distance)
     if holding:
         return holding[0]
     return max(windows, key=lambda w: _overlap(w, interval))
+
+
+def _run_of(diagram: Diagram, state: np.ndarray, u: float) -> StableRun | None:
+    """The stable run passing nearest to ``state`` at control ``u``."""
+    best, distance = None, np.inf
+    for run in diagram.stable_runs:
+        if run.controls[0] <= u <= run.controls[-1]:
+            at = np.array([np.interp(u, run.controls, run.states[:, i]) for i in range(len(state))])
+            d = float(np.max(np.abs(at - state) / diagram.scale[:-1]))
+            if d < distance:
+                best, distance = run, d
+    return best if distance < RUN_MATCH else None
 
 
 def _contains(window: Window, u: float) -> bool:
@@ -789,7 +1008,9 @@ class Standing:
 
     ``separatrix`` (1-D models) lists the unstable equilibria at the current control: the basin
     boundaries. ``to_recovery`` is how far the control must still fall to pass the recovery
-    threshold (negative: already below it); ``to_collapse`` how far it may rise before collapse.
+    threshold (negative: already below it; None when no reachable recovery threshold exists or
+    the lake is in the desired regime already);
+    ``to_collapse`` how far it may rise before collapse (only for a lake in the desired regime).
     """
 
     control: float
@@ -821,6 +1042,10 @@ def locate(diagram: Diagram, state: np.ndarray, control: float, *, limit: float 
         where = attractors(diagram, control)
         desired = bool(on_desired(where, diagram.system, attractor[:, None])[0])
     recovery, collapse = diagram.recovery_threshold, diagram.collapse_threshold
+    if desired is not True:
+        collapse = None  # a lake already out of the desired regime has no collapse ahead
+    if desired is True:
+        recovery = None  # nor has a lake in the desired regime a recovery still to make
     return Standing(
         control=float(control),
         state=np.asarray(state, dtype=float),

@@ -14,7 +14,7 @@ import numpy as np
 import plotly.graph_objects as go
 
 from planner.equilibria import Diagram, Standing
-from planner.report import clipped_runs
+from planner.report import clipped_runs, stable_states_words
 
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#000000", "#F0E442")
 STABLE_COLOUR = "#1f1f1f"
@@ -71,7 +71,7 @@ def hysteresis_figure(
                 fillcolor=WINDOW_FILL,
                 line_width=0,
                 layer="below",
-                annotation_text="two stable states",
+                annotation_text=stable_states_words(diagram),
                 annotation_position="top left",
             )
     shown = set()

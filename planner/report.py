@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any
 if TYPE_CHECKING:  # `planner check` prints from here and must not load the numerical stack
     import numpy as np
 
-    from planner.equilibria import Branch, Diagram, Standing
+    from planner.equilibria import Branch, Diagram, Standing, Threshold
 
 CAUTION = (
     "Caution: this is a screening tool. Results are estimates from simplified models of "
@@ -80,14 +80,17 @@ def diagram_json(scenario, diagram: Diagram, standing: Standing | None = None) -
             for fold in sorted(diagram.folds, key=lambda f: f.control)
         ],
         "window": (
-            {"recovery": window.recovery, "collapse": window.collapse}
-            if window is not None and window.recovery is not None and window.collapse is not None
+            {"recovery": diagram.recovery_threshold, "collapse": diagram.collapse_threshold}
+            if window is not None
+            and diagram.recovery_threshold is not None
+            and diagram.collapse_threshold is not None
             else None
         ),
         "thresholds": {
-            "recovery": diagram.recovery_threshold,
-            "collapse": diagram.collapse_threshold,
+            "recovery": threshold_json(diagram.recovery),
+            "collapse": threshold_json(diagram.collapse),
         },
+        "most_stable_states": diagram.most_stable_states,
         "stability_changes": [
             {
                 "control": change.control,
@@ -129,29 +132,90 @@ def standing_json(variables: tuple[str, ...], standing: Standing) -> dict[str, A
     }
 
 
+_KIND_WORDS = {
+    ("undesired", "fold"): "a fold: the undesired state meets its basin boundary and vanishes",
+    ("undesired", "hopf"): (
+        "a Hopf point: below it the undesired state is no longer steady; the lake swings in "
+        "growing oscillations before it leaves that state"
+    ),
+    ("undesired", "stability change"): "the undesired state stops being stable there",
+    ("desired", "fold"): "a fold: the desired state meets its basin boundary and vanishes",
+    ("desired", "hopf"): (
+        "a Hopf point: above it the desired state is no longer steady and starts to swing"
+    ),
+    ("desired", "stability change"): "the desired state stops being stable there",
+}
+NOT_REACHABLE = {
+    "undesired": "not reachable by load cuts alone",
+    "desired": "not reached within the control range",
+}
+
+
+_COUNT_WORDS = {2: "two", 3: "three", 4: "four", 5: "five"}
+
+
+def threshold_words(threshold: Threshold | None, unit: str = "") -> str:
+    """A threshold in words: its value and what happens there, or why the control cannot reach
+    it (the CLI text, the app and the briefing all say it this way)."""
+    if threshold is None:
+        return "none found"
+    if not threshold.reachable:
+        return f"{NOT_REACHABLE[threshold.lost]} ({threshold.reason})"
+    return f"{_number(threshold.value, unit)} ({_KIND_WORDS[(threshold.lost, threshold.kind)]})"
+
+
+def threshold_json(threshold: Threshold | None) -> dict[str, Any] | None:
+    """value (null when not reachable), kind, reachable and the reason when it is not."""
+    if threshold is None:
+        return None
+    return {
+        "value": threshold.value,
+        "kind": threshold.kind,
+        "reachable": threshold.reachable,
+        "reason": threshold.reason,
+    }
+
+
 def _number(value: float | None, unit: str = "") -> str:
     if value is None:
         return "none found"
     return f"{value:.4g} {unit}".strip()
 
 
-def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: bool = True) -> str:
-    """A readable summary for the terminal (``caution=False`` where the page shows it already)."""
+def stable_states_words(diagram: Diagram) -> str:
+    """'two stable states', 'three stable states'...: how many coexist at most in range."""
+    count = diagram.most_stable_states
+    return f"{_COUNT_WORDS.get(count, str(count))} stable states"
+
+
+def lake_verdict_words(scenario, diagram: Diagram) -> str:
+    """The lake's classification in one line (the terminal, the app and the briefing)."""
     unit = scenario.control.unit
     name = scenario.control.label or scenario.control.parameter
     verdicts = {
         "reversible": "reversible: one stable state at every control value in range, no hysteresis",
-        "hysteretic": "hysteretic: two stable states over a window of control values",
+        "hysteretic": f"hysteretic: {stable_states_words(diagram)} over a window of control values",
         "irreversible": (
             "irreversible: the undesired state persists even at the lowest achievable "
             f"{name} ({diagram.least:g} {unit})"
         ),
     }
-    lines = [scenario.name, "", f"Lake verdict: {verdicts[diagram.classification]}"]
-    lines.append(f"Collapse threshold: {_number(diagram.collapse_threshold, unit)}")
-    lines.append(f"Recovery threshold: {_number(diagram.recovery_threshold, unit)}")
+    return verdicts[diagram.classification]
+
+
+def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: bool = True) -> str:
+    """A readable summary for the terminal (``caution=False`` where the page shows it already)."""
+    unit = scenario.control.unit
+    name = scenario.control.label or scenario.control.parameter
+    count = diagram.most_stable_states
+    lines = [scenario.name, "", f"Lake verdict: {lake_verdict_words(scenario, diagram)}"]
+    if diagram.classification == "irreversible" and count > 2:
+        lines.append(f"{_COUNT_WORDS.get(count, str(count)).capitalize()} stable states coexist.")
+    lines.append(f"Collapse threshold: {threshold_words(diagram.collapse, unit)}")
+    lines.append(f"Recovery threshold: {threshold_words(diagram.recovery, unit)}")
+    shown = {diagram.recovery_threshold, diagram.collapse_threshold}
     for change in diagram.stability_changes:
-        if change.in_range:
+        if change.in_range and change.control not in shown:
             lines.append(
                 f"Note: an equilibrium changes stability at {change.control:.4g} {unit}"
                 + (" (oscillations start there)" if change.oscillatory else "")
@@ -159,10 +223,19 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: boo
     lines.append("")
     lines.append("Folds:")
     for fold in sorted(diagram.folds, key=lambda f: f.control):
-        where = "" if fold.in_range else " (outside the control range)"
+        where = "" if fold.in_range else " (outside the control range: not a load to aim for)"
         state = ", ".join(
             f"{k} = {v:.4g}" for k, v in state_dict(diagram.system.variables, fold.state).items()
         )
+        passed = {"recovery": diagram.recovery, "collapse": diagram.collapse}.get(fold.kind)
+        if (
+            fold.in_range
+            and passed is not None
+            and passed.kind != "fold"
+            and passed.location is not None
+            and abs(passed.location - fold.control) > 0
+        ):
+            where = f" (the {passed.lost} state is already unstable here: see the threshold)"
         lines.append(f"  {fold.kind:<9} at {fold.control:.6g} {unit}  [{state}]{where}")
     if not diagram.folds:
         lines.append("  none in the searched range")
@@ -189,9 +262,16 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: boo
                 f"  The control is already {-standing.to_recovery:.4g} {unit} "
                 "below the recovery threshold."
             )
+    elif standing.desired is False and diagram.recovery is not None:
+        lines.append(f"  Recovery threshold {threshold_words(diagram.recovery, unit)}.")
     if standing.to_collapse is not None and standing.to_collapse > 0:
         lines.append(
             f"  It may rise by {standing.to_collapse:.4g} {unit} before the collapse threshold."
+        )
+    elif standing.desired is False:
+        lines.append(
+            "  The lake is already in the undesired regime: the collapse threshold matters "
+            "again once it has recovered."
         )
     lines += ["", CAUTION]
     return "\n".join(lines)
@@ -312,8 +392,8 @@ def comparison_json(comparison) -> dict[str, Any]:
         "horizon": scenario.simulation.horizon,
         "classification": diagram.classification,
         "thresholds": {
-            "recovery": diagram.recovery_threshold,
-            "collapse": diagram.collapse_threshold,
+            "recovery": threshold_json(diagram.recovery),
+            "collapse": threshold_json(diagram.collapse),
         },
         "target": {
             "variable": scenario.target.variable,
@@ -353,8 +433,8 @@ def comparison_text(comparison) -> str:
     keep = [0, 1, 3, 6, 7, 9]
     lines = [
         scenario.name,
-        f"Recovery threshold {_number(diagram.recovery_threshold, unit)}; "
-        f"collapse threshold {_number(diagram.collapse_threshold, unit)}; "
+        f"Recovery threshold {threshold_words(diagram.recovery, unit)}; "
+        f"collapse threshold {threshold_words(diagram.collapse, unit)}; "
         f"horizon {scenario.simulation.horizon:g} years.",
         "",
         text_table(tuple(header[i] for i in keep), [[row[i] for i in keep] for row in rows]),

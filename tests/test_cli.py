@@ -180,3 +180,34 @@ def test_check_loads_no_numerical_or_plotting_stack(path):
     lines = result.stdout.strip().splitlines()
     assert lines[0] == f"{path}: valid"
     assert lines[-1] == "0 []"
+
+
+def test_unreachable_recovery_threshold_is_said_in_words_never_as_a_load():
+    """The Tarnby Water demo's recovery fold lies at a negative load (the minimum of
+    L(P) = s P - r P^q / (m^q + P^q) on its upper part, scipy brentq on the closed-form
+    derivative): `diagram` reports no recovery threshold value, says "not reachable by load
+    cuts alone" and never tells the manager to cut the load by an amount.
+
+    Reference: Carpenter, Ludwig & Brock 1999, Ecological Applications 9:751-771 (model);
+    Strogatz 2015, Nonlinear Dynamics and Chaos, section 3.1 (fold condition).
+    """
+    tarnby = SCENARIOS / "tarnby-water.toml"
+    recovery_fold = min(L for L, _ in _reference_folds(tarnby))
+    assert recovery_fold < 0
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        assert main(["diagram", str(tarnby), "--json"]) == 0, err.getvalue()
+    data = json.loads(out.getvalue())
+    recovery = data["thresholds"]["recovery"]
+    assert recovery["value"] is None and recovery["reachable"] is False
+    assert "lowest achievable" in recovery["reason"]
+    assert data["window"] is None
+    assert data["current"]["to_recovery"] is None
+    fold = [f for f in data["folds"] if f["kind"] == "recovery"][0]
+    assert abs(fold["control"] - recovery_fold) < FOLD_AGREEMENT and not fold["in_range"]
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        assert main(["diagram", str(tarnby)]) == 0
+    text = out.getvalue()
+    assert "not reachable by load cuts alone" in text
+    assert "must fall by" not in text and "may rise by" not in text

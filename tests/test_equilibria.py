@@ -11,6 +11,7 @@ from functools import cache
 import numpy as np
 import pytest
 import sympy
+from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
 
 from planner.equilibria import Diagram, compute_diagram, locate
@@ -561,5 +562,138 @@ def test_locate_separatrix_and_basins(offset):
     assert abs(standing.attractor[0] - destination) < 1e-6
     assert standing.desired == (offset < 0)
     (a_recovery, _), (a_collapse, _) = _q2_folds(b)
-    assert abs(standing.to_recovery - (a - a_recovery)) < FOLD_AGREEMENT
-    assert abs(standing.to_collapse - (a_collapse - a)) < FOLD_AGREEMENT
+    if standing.desired:
+        assert abs(standing.to_collapse - (a_collapse - a)) < FOLD_AGREEMENT
+        assert standing.to_recovery is None  # nothing to recover from
+    else:  # already in the undesired regime: no collapse lies ahead of it
+        assert abs(standing.to_recovery - (a - a_recovery)) < FOLD_AGREEMENT
+        assert standing.to_collapse is None
+
+
+# --------------------------------------------------------------------------------------------
+# Thresholds: where a regime stops being a stable attractor along its branch
+
+SEDIMENT_HOPF = dict(s=0.7, h=0.15, b=0.002, r=0.03, m=2.4, q=8.0)
+"""Invented demo parameters (the Brellow Reservoir demo) for the Carpenter 2005 model, where the
+turbid equilibrium loses stability at a Hopf point before its fold."""
+
+
+def _sediment_hopf_reference() -> tuple[float, float, float]:
+    """(L, X, M) where the Jacobian of the sediment model has trace 0 and a positive
+    determinant on its equilibrium curve: a pair of eigenvalues crosses the imaginary axis.
+
+    The equilibrium equations, trace and determinant are written and solved here with sympy
+    (nsolve), independently of the continuation. References: Strogatz 2015, Nonlinear Dynamics
+    and Chaos, 2nd ed., section 8.2 (in two dimensions eigenvalues are purely imaginary when
+    tau = 0 and Delta > 0); model equations from Carpenter 2005, PNAS 102:10002-10005.
+    """
+    X, M, L = sympy.symbols("X M L")
+    p = {k: sympy.nsimplify(v) for k, v in SEDIMENT_HOPF.items()}
+    recycled = p["r"] * M * X ** p["q"] / (p["m"] ** p["q"] + X ** p["q"])
+    f = L - (p["s"] + p["h"]) * X + recycled
+    g = p["s"] * X - p["b"] * M - recycled
+    jacobian = sympy.Matrix([f, g]).jacobian([X, M])
+    solution = sympy.nsolve(
+        [f, g, jacobian.trace()], [X, M, L], [2.9, 76.0, 0.59], tol=1e-25, prec=40
+    )
+    values = {X: solution[0], M: solution[1], L: solution[2]}
+    assert float(jacobian.det().subs(values)) > 0  # a Hopf point, not a saddle
+    return float(solution[2]), float(solution[0]), float(solution[1])
+
+
+def test_hopf_before_the_fold_is_the_recovery_threshold():
+    """The turbid equilibrium of the sediment model (demo parameters) stops being stable at a
+    Hopf point above its fold: the recovery threshold is the Hopf point, of kind "hopf", and
+    held between the fold and the Hopf point the lake leaves the turbid state (checked with
+    scipy's LSODA from the turbid equilibrium just above the Hopf point).
+
+    References: the Hopf point from the trace and determinant (sympy), Strogatz 2015, section
+    8.2; Carpenter 2005, PNAS 102:10002-10005 (model).
+    """
+    L_hopf, X_hopf, M_hopf = _sediment_hopf_reference()
+    system = compile_model(BUILTIN_MODELS["recycling-sediment"], "L").bind(
+        {"L": 0.8, **SEDIMENT_HOPF}
+    )
+    diagram = compute_diagram(
+        system, (0.0, 1.5), reference_state=np.array([4.0, 150.0]), current_control=0.8
+    )
+    fold = [f for f in diagram.folds if f.kind == "recovery"][0]
+    assert fold.control < L_hopf  # the Hopf point comes first as the load falls
+    assert diagram.recovery.kind == "hopf"
+    assert abs(diagram.recovery_threshold - L_hopf) < 1e-8
+    np.testing.assert_allclose(diagram.recovery.state, [X_hopf, M_hopf], rtol=1e-6)
+    assert diagram.window.recovery == diagram.recovery_threshold
+    # between the fold and the Hopf point the turbid state is no attractor: the lake leaves it
+    held = 0.5 * (fold.control + L_hopf)
+    turbid = [e for e in diagram.equilibria_at(L_hopf + 0.01) if e.stable]
+    start = max(turbid, key=lambda e: e.state[0]).state
+
+    def rhs(t, y):
+        return system.rhs(y, held)
+
+    run = solve_ivp(rhs, (0.0, 20000.0), start, method="LSODA", rtol=1e-9, atol=1e-9)
+    clear = min((e for e in diagram.equilibria_at(held) if e.stable), key=lambda e: e.state[0])
+    np.testing.assert_allclose(run.y[:, -1], clear.state, rtol=1e-4)
+
+
+def test_recovery_threshold_below_the_lowest_load_is_not_reachable():
+    """Recycling model x' = L - s P + r P^8 / (m^8 + P^8) with s = 0.5, r = 2, m = 2: the recovery
+    fold lies at a negative load (the minimum of L(P) = s P - r f(P) over the upper part of the
+    curve, found here with scipy brentq on dL/dP = 0). The diagram reports it as a fold outside
+    the range, the recovery threshold has no value, says why, and the lake's standing has no
+    "must fall by".
+
+    Reference: Carpenter, Ludwig & Brock 1999, Ecological Applications 9:751-771 (model);
+    Strogatz 2015, section 3.1 (a fold is where f = 0 and df/dP = 0).
+    """
+    s_, r_, m_ = 0.5, 2.0, 2.0
+
+    def load(P):
+        return s_ * P - r_ * P**8 / (m_**8 + P**8)
+
+    def slope(P):
+        return s_ - r_ * 8 * m_**8 * P**7 / (m_**8 + P**8) ** 2
+
+    grid = np.linspace(0.5, 6.0, 400)
+    roots = _sign_change_roots(slope, grid)
+    recovery_fold = min(load(P) for P in roots)
+    assert recovery_fold < 0
+    system = _system(
+        {"P": "L - s*P + r*P**8/(m**8 + P**8)"}, {"L": 1.0, "s": s_, "r": r_, "m": m_}, "L"
+    )
+    diagram = compute_diagram(
+        system, (0.0, 1.0), reference_state=np.array([4.0]), current_control=0.4
+    )
+    fold = [f for f in diagram.folds if f.kind == "recovery"][0]
+    assert abs(fold.control - recovery_fold) < FOLD_AGREEMENT
+    assert not fold.in_range
+    assert diagram.classification == "irreversible"
+    assert diagram.recovery is not None and not diagram.recovery.reachable
+    assert diagram.recovery_threshold is None
+    assert "lowest achievable" in diagram.recovery.reason
+    standing = locate(diagram, np.array([4.0]), 0.4)
+    assert standing.desired is False
+    assert standing.to_recovery is None and standing.to_collapse is None
+
+
+def test_three_stable_states_thresholds_follow_the_lake_branch():
+    """x' = u - p(x), p = x^5 - 5x^3 + 4x: stable where p'(x) > 0, so at u = 0 three stable
+    states coexist (x < x1, x2 < x < x3, x > x4 with x1..x4 the roots of p', numpy.roots). At
+    the same control the thresholds depend on the branch the lake is on: on the lowest branch
+    (desired) the collapse threshold is p(x1); on the middle one the recovery threshold is
+    p(x2); on the top one it is p(x4).
+
+    Reference: Strogatz 2015, Nonlinear Dynamics and Chaos, 2nd ed., section 2.2 (stability
+    on the line from the sign of f') and 3.1 (folds at f = f' = 0).
+    """
+    p = np.poly1d([1.0, 0.0, -5.0, 0.0, 4.0, 0.0])
+    x1, x2, _, x4 = np.sort(np.roots(p.deriv().coeffs).real)
+    system = _system({"x": "u - (x**5 - 5*x**3 + 4*x)"}, {"u": 0.0}, "u")
+    expected = {-2.0: ("collapse", p(x1)), 0.0: ("recovery", p(x2)), 2.0: ("recovery", p(x4))}
+    for start, (which, value) in expected.items():
+        diagram = compute_diagram(
+            system, (-5.0, 5.0), reference_state=np.array([start]), current_control=0.0
+        )
+        assert diagram.most_stable_states == 3
+        threshold = diagram.collapse if which == "collapse" else diagram.recovery
+        assert abs(threshold.value - value) < FOLD_AGREEMENT, (start, threshold)

@@ -18,7 +18,7 @@ from dash import no_update
 
 from planner.cli import main as cli_main
 from planner.errors import InputError
-from planner.report import CAUTION
+from planner.report import CAUTION, threshold_words
 from planner.scenario import load_scenario
 from planner.scenario.io import MAX_SCENARIO_BYTES
 from webapp import compute, create_app, drafts, exports, files, ids
@@ -444,7 +444,7 @@ def test_summary_states_thresholds_from_the_planner():
     scenario = compute.scenario_of(working["data"])
     dia, _ = compute.diagram_of(scenario)
     text = text_of(diagram.describe(working).children)
-    assert f"Recovery threshold {dia.recovery_threshold:.3g} g P / m2 / yr" in text
+    assert f"Recovery threshold {threshold_words(dia.recovery, 'g P / m2 / yr')}" in text
     assert "Hysteretic" in text
 
 

@@ -9,7 +9,7 @@ from dash import Input, Output, State, dcc, html, no_update
 
 from planner.figures import hysteresis_figure, trajectories_of
 from planner.outcomes import Comparison
-from planner.report import diagram_text
+from planner.report import diagram_text, lake_verdict_words, threshold_words
 from planner.scenario import Scenario
 from webapp import compute, ids
 from webapp.settings import Settings
@@ -20,14 +20,6 @@ from webapp.views.common import (
     working_comparison,
     working_scenario,
 )
-
-CLASSIFICATION = {
-    "reversible": "Reversible: one stable state at every value in range, no hysteresis.",
-    "hysteretic": "Hysteretic: two stable states over a window of values (shaded).",
-    "irreversible": (
-        "Irreversible: the undesired state persists even at the lowest achievable value."
-    ),
-}
 
 
 def summary_layout() -> html.Div:
@@ -73,13 +65,11 @@ def summary(scenario: Scenario) -> html.Div:
     diagram, standing = compute.diagram_of(scenario)
     unit = scenario.control.unit
     name = scenario.control.label or scenario.control.parameter
-    lines = [
-        html.P(html.Strong(CLASSIFICATION.get(diagram.classification, diagram.classification)))
-    ]
+    lines = [html.P(html.Strong(lake_verdict_words(scenario, diagram).capitalize() + "."))]
     lines.append(
         html.P(
-            f"Recovery threshold {amount(diagram.recovery_threshold, unit)}; "
-            f"collapse threshold {amount(diagram.collapse_threshold, unit)}; "
+            f"Recovery threshold {threshold_words(diagram.recovery, unit)}; "
+            f"collapse threshold {threshold_words(diagram.collapse, unit)}; "
             f"{name} now {amount(standing.control, unit)}."
         )
     )
