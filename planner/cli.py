@@ -207,16 +207,40 @@ EXTENSIONS.append(_more_commands)
 
 @command("app")
 def _app(args: argparse.Namespace) -> int:
-    from webapp.serve import DEFAULT_WORKERS, serve  # the web app sits on top of the planner
+    # the web app sits on top of the planner
+    from webapp.serve import DEFAULT_WORKERS, LOOPBACK_NAMES, is_loopback, serve
 
     workers = DEFAULT_WORKERS if args.workers is None else args.workers
     if workers < 1:
         raise InputError([Problem("--workers", "workers", "must be at least 1")])
+    remote = not is_loopback(args.host)
+    if remote and not args.allow_remote:
+        reason = (
+            f"{args.host} serves the app beyond this machine, where anyone who reaches the port "
+            "can read and save scenarios; add --allow-remote to do so on purpose"
+        )
+        raise InputError([Problem("--host", "host", reason)])
+    allowed = (*LOOPBACK_NAMES, *args.host_name)
+    if remote:
+        if args.host not in ("0.0.0.0", "::"):
+            allowed += (args.host,)
+        print(
+            f"Warning: serving on {args.host}, beyond this machine; requests naming hosts other "
+            f"than {', '.join(allowed)} are refused (add names with --host-name).",
+            file=sys.stderr,
+        )
 
     def ready(port: int) -> None:
         print(f"Lake recovery planner: http://{args.host}:{port}/ (Ctrl+C stops)", file=sys.stderr)
 
-    serve(args.dir, host=args.host, port=args.port, workers=workers, ready=ready)
+    serve(
+        args.dir,
+        host=args.host,
+        port=args.port,
+        workers=workers,
+        ready=ready,
+        allowed_hosts=allowed,
+    )
     return EXIT_OK
 
 
@@ -226,6 +250,19 @@ def _app_command(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8050, help="port to listen on (default 8050)")
     p.add_argument("--workers", type=int, help="worker processes (default: one per core, up to 4)")
+    p.add_argument(
+        "--allow-remote",
+        action="store_true",
+        help="needed to serve beyond this machine (a --host that is not a loopback address)",
+    )
+    p.add_argument(
+        "--host-name",
+        action="append",
+        default=[],
+        metavar="NAME",
+        help="a name clients use to reach the app (repeatable; default: the loopback names and "
+        "--host); requests for other names are refused",
+    )
 
 
 EXTENSIONS.append(_app_command)

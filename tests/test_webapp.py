@@ -638,6 +638,62 @@ def test_save_as_refuses_names_that_are_not_plain(settings, name):
     assert list(settings.save_folder.iterdir()) == []
 
 
+@pytest.mark.parametrize(
+    "pending", ["../escape.toml", "../../escape.toml", "/tmp/escape.toml", "plan\n.toml"]
+)
+def test_overwrite_never_writes_outside_the_save_folder(settings, pending):
+    """A crafted request carrying a path in the pending-overwrite store writes nothing outside
+    the save folder (common practice, no source: decide every path on the server)."""
+    working = run_recompute(draft_of())["working"]
+    outside = settings.save_folder.parent
+    before = sorted(p.name for p in outside.iterdir())
+    message, *_ = scenario_panel.save_as(
+        "ignored", working, pending, settings=settings, trigger=ids.SAVE_OVERWRITE
+    )
+    assert "Not saved" in text_of(message) and "file name" in text_of(message)
+    assert sorted(p.name for p in outside.iterdir()) == before
+    assert list(settings.save_folder.iterdir()) == []
+    assert not Path("/tmp/escape.toml").exists()
+
+
+@pytest.mark.parametrize("name", ["pl\nan", "plan\r.toml", "a\u0000b", "../x.toml", "x/y.toml"])
+def test_plain_save_refuses_names_that_are_not_plain(settings, name):
+    scenario = load_scenario(DEMOS / ALDER)
+    with pytest.raises(InputError) as error:
+        files.save(scenario, settings.save_folder, name)
+    assert "file name" in str(error.value)
+    assert list(settings.save_folder.iterdir()) == []
+
+
+def test_requests_for_other_host_names_are_refused(folders, tmp_path):
+    """DNS rebinding: a page elsewhere that points its own name at this machine gets 400; the
+    loopback names work (common practice, no source)."""
+    scenarios, saved = folders
+    app = create_app(scenarios, save_dir=saved, cache_dir=tmp_path / "cache")
+    client = app.server.test_client()
+    for host in ("attacker.example", "attacker.example:8050", "192.168.1.20:8050"):
+        assert client.get("/", headers={"Host": host}).status_code == 400, host
+        assert client.post("/_dash-update-component", headers={"Host": host}).status_code == 400
+    for host in ("localhost:8050", "127.0.0.1:8050", "[::1]:8050", "LOCALHOST"):
+        assert client.get("/", headers={"Host": host}).status_code == 200, host
+    named = create_app(
+        scenarios,
+        save_dir=saved,
+        cache_dir=tmp_path / "cache2",
+        allowed_hosts=("localhost", "planner.lan"),
+    )
+    assert named.server.test_client().get("/", headers={"Host": "planner.lan"}).status_code == 200
+
+
+def test_serving_beyond_loopback_needs_an_explicit_flag(capsys):
+    """`planner app --host 0.0.0.0` is refused (exit 2, naming --host) without --allow-remote;
+    nothing starts listening."""
+    code = cli_main(["app", "--host", "0.0.0.0", "--port", "0"])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "--host" in err and "--allow-remote" in err
+
+
 def test_save_as_refuses_while_a_field_is_invalid(settings):
     draft = draft_of()
     good = run_recompute(draft)["working"]

@@ -14,10 +14,12 @@ import shutil
 import tempfile
 from functools import partial
 from pathlib import Path
+from urllib.parse import urlsplit
 
 import dash
 import diskcache
 from dash import Dash, dcc, html
+from flask import Response, request
 
 from planner.errors import InputError, Problem
 from planner.report import CAUTION
@@ -158,13 +160,36 @@ def page(settings: Settings) -> html.Div:
     )
 
 
+LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
+
+
+def host_name(host_header: str) -> str:
+    """The host name of a Host header ("example.org:8050" -> "example.org", "[::1]:80" -> "::1")."""
+    return (urlsplit("//" + host_header).hostname or "").lower()
+
+
+def _allow_only(server, allowed: tuple[str, ...]) -> None:
+    names = {name.lower().strip("[]") for name in allowed}
+
+    @server.before_request
+    def check_host():
+        if host_name(request.host) not in names:
+            return Response("This host name is not served here.", status=400)
+        return None
+
+
 def create_app(
     scenario_dir: str | os.PathLike[str] | None = None,
     *,
     save_dir: str | os.PathLike[str] | None = None,
     cache_dir: str | os.PathLike[str] | None = None,
+    allowed_hosts: tuple[str, ...] = LOOPBACK_NAMES,
 ) -> Dash:
     """Build the app over the scenario files in ``scenario_dir`` (default: the bundled demos).
+
+    Requests whose Host header names anything but ``allowed_hosts`` (the loopback names by
+    default) are refused with 400: a web page elsewhere cannot reach the app by pointing a
+    name of its own at this machine (DNS rebinding).
 
     "Save as" writes into ``save_dir`` (default: ``scenario_dir``); ``cache_dir`` holds the
     background workers' job queue and results (default: a temporary folder removed at exit).
@@ -201,6 +226,7 @@ def create_app(
     # size cap is refused before it is read.
     app.server.config["MAX_CONTENT_LENGTH"] = 8 * MAX_SCENARIO_BYTES
     app.layout = partial(page, settings)
+    _allow_only(app.server, allowed_hosts)
     # dash.callback's global registry is handed to the first app that serves a request, so a
     # second app in the same process (tests, benchmarks) would get none; each view therefore
     # registers through this app's own ``callback``, which takes the same arguments.

@@ -124,7 +124,7 @@ def save_name(text: str | None) -> str:
     if name and not name.endswith(SUFFIX):
         name += SUFFIX
     stem = name[: -len(SUFFIX)] if name.endswith(SUFFIX) else name
-    if not stem or not _NAME.match(stem) or ".." in name:
+    if not stem or not _NAME.fullmatch(stem) or ".." in name:
         raise InputError(
             [
                 Problem(
@@ -138,8 +138,13 @@ def save_name(text: str | None) -> str:
 
 
 def save(scenario: Scenario, folder: Path, name: str, *, overwrite: bool = False) -> Path:
-    """Write atomically through the planner; never replaces a file unless ``overwrite``."""
+    """Write atomically through the planner; never replaces a file unless ``overwrite``. The
+    path is decided here from the folder and a plain name (checked again: whatever a request
+    carried, nothing outside ``folder`` is written)."""
+    name = save_name(name)
     target = folder / name
+    if target.resolve().parent != folder.resolve():
+        raise InputError([Problem("save as", "file name", "must name a file in the save folder")])
     try:
         return save_scenario(scenario, target, overwrite=overwrite)
     except OSError as error:

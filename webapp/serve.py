@@ -19,9 +19,23 @@ import tempfile
 from pathlib import Path
 
 from webapp import compute
-from webapp.app import create_app
+from webapp.app import LOOPBACK_NAMES, create_app  # noqa: F401 (LOOPBACK_NAMES re-exported)
 
 LOOPBACK = "127.0.0.1"
+
+
+def is_loopback(host: str) -> bool:
+    """Whether listening on ``host`` keeps the app on this machine."""
+    import ipaddress
+
+    if host.lower() == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
 # One worker per core (at most four) where processes can be forked safely; elsewhere one.
 DEFAULT_WORKERS = min(4, os.cpu_count() or 1) if sys.platform.startswith("linux") else 1
 
@@ -34,13 +48,14 @@ def serve(
     workers: int = DEFAULT_WORKERS,
     save_dir: str | os.PathLike[str] | None = None,
     ready=None,
+    allowed_hosts: tuple[str, ...] = LOOPBACK_NAMES,
 ) -> None:
     """Serve until interrupted. ``ready(port)`` is called once the socket listens (port 0 picks
-    a free one)."""
+    a free one). Requests for host names outside ``allowed_hosts`` are refused."""
     if workers <= 1 or not hasattr(os, "fork"):
         from werkzeug.serving import make_server
 
-        app = create_app(scenario_dir, save_dir=save_dir)
+        app = create_app(scenario_dir, save_dir=save_dir, allowed_hosts=allowed_hosts)
         server = make_server(host, port, app.server, threaded=True)
         if ready is not None:
             ready(server.server_port)
@@ -52,16 +67,23 @@ def serve(
             server.server_close()
         return
     _serve_workers(
-        scenario_dir, host=host, port=port, workers=workers, save_dir=save_dir, ready=ready
+        scenario_dir,
+        host=host,
+        port=port,
+        workers=workers,
+        save_dir=save_dir,
+        ready=ready,
+        allowed_hosts=allowed_hosts,
     )
 
 
-def _serve_workers(scenario_dir, *, host, port, workers, save_dir, ready) -> None:
+def _serve_workers(scenario_dir, *, host, port, workers, save_dir, ready, allowed_hosts) -> None:
     from werkzeug.serving import make_server
 
     cache = Path(tempfile.mkdtemp(prefix="planner-app-"))
     atexit.register(shutil.rmtree, cache, ignore_errors=True)
-    create_app(scenario_dir, save_dir=save_dir, cache_dir=cache)  # fail here, once, on bad folders
+    # fail here, once, on bad folders
+    create_app(scenario_dir, save_dir=save_dir, cache_dir=cache, allowed_hosts=allowed_hosts)
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
     listener = socket.create_server((host, port), family=family, backlog=128)
     listener.set_inheritable(True)
@@ -72,7 +94,9 @@ def _serve_workers(scenario_dir, *, host, port, workers, save_dir, ready) -> Non
             code = 0
             try:
                 signal.signal(signal.SIGTERM, lambda *_: sys.exit(0))
-                app = create_app(scenario_dir, save_dir=save_dir, cache_dir=cache)
+                app = create_app(
+                    scenario_dir, save_dir=save_dir, cache_dir=cache, allowed_hosts=allowed_hosts
+                )
                 compute.use_disk(cache / "results", share_all=True)  # results serve every worker
                 # Dash registers its script bundles while rendering the page, so a worker that
                 # would otherwise first see a script request renders the page once itself.

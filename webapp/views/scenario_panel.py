@@ -150,7 +150,9 @@ def save_as(name_text, working, pending, *, settings: Settings, trigger=None):
         return not_saved(html.Div(text, className="message problem"))
     overwrite = trigger == ids.SAVE_OVERWRITE
     try:
-        name = pending if overwrite and pending else files.save_name(name_text)
+        # The pending name comes back from the browser: it is checked like a typed one, so a
+        # crafted request cannot name a file outside the save folder.
+        name = files.save_name(pending if overwrite and pending else name_text)
         scenario = compute.scenario_of(working["data"])
         target = settings.save_folder / name
         if target.exists() and not overwrite:
