@@ -136,7 +136,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 def _compare(args: argparse.Namespace) -> int:
     from planner.briefing import comparison_briefing
     from planner.outcomes import compare
-    from planner.report import comparison_json, comparison_rows, comparison_text
+    from planner.report import comparison_json, comparison_rows, comparison_text, table_csv
     from planner.scenario import load_scenario
 
     scenario = load_scenario(args.file)
@@ -146,10 +146,7 @@ def _compare(args: argparse.Namespace) -> int:
     else:
         print(comparison_text(comparison))
     if args.csv:
-        import pandas as pd
-
-        header, rows = comparison_rows(comparison)
-        _write(args.csv, pd.DataFrame(rows, columns=list(header)).to_csv(index=False))
+        _write(args.csv, table_csv(*comparison_rows(comparison)))
     if args.html:
         _write(args.html, comparison_briefing(comparison))
     return EXIT_OK

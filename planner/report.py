@@ -413,6 +413,33 @@ def _cell_text(value: object) -> str:
     return str(value)
 
 
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+"""Text cells starting with these are read as formulas by spreadsheets (OWASP, CSV injection)."""
+
+
+def csv_cell(value: object) -> object:
+    """A cell as a spreadsheet reads it safely: None empty, numbers as numbers, text that would
+    start a formula prefixed with an apostrophe (shown as text, never run)."""
+    if value is None:
+        return ""
+    if isinstance(value, str) and value.startswith(FORMULA_STARTS):
+        return "'" + value
+    return value
+
+
+def table_csv(header, rows) -> str:
+    """A table as CSV text (the CLI's ``--csv`` and the app's download alike)."""
+    import csv
+    import io
+
+    stream = io.StringIO()
+    writer = csv.writer(stream)  # CRLF line ends (RFC 4180): a field holding \r is quoted too
+    writer.writerow([csv_cell(h) for h in header])
+    for row in rows:
+        writer.writerow([csv_cell(value) for value in row])
+    return stream.getvalue()
+
+
 def text_table(header: tuple[str, ...], rows: list[list[object]], *, max_width: int = 48) -> str:
     """A plain fixed-width table for the terminal."""
     cells = [[_cell_text(v)[:max_width] for v in row] for row in rows]

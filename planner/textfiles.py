@@ -1,8 +1,11 @@
-"""Reading a user's text file with a size cap and errors that name the file."""
+"""Reading a user's text file with a size cap, and writing one without losing anything: both
+with errors that name the file."""
 
 from __future__ import annotations
 
+import contextlib
 import os
+import tempfile
 from pathlib import Path
 
 from planner.errors import InputError, Problem
@@ -23,3 +26,68 @@ def read_user_text(path: str | os.PathLike[str], limit: int, *, encoding: str = 
         return raw.decode(encoding)
     except UnicodeDecodeError:
         raise InputError([Problem(source, "(file)", "not UTF-8 text")]) from None
+
+
+TEMPORARY_SUFFIX = ".tmp"
+
+
+def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool = False) -> Path:
+    """Write ``text`` atomically: a temporary file in the same folder, flushed to disk (fsync),
+    then renamed over the name, so a crash leaves either the old file or the new one, never a
+    half-written one. An existing file is kept (InputError) unless ``overwrite``; the new file
+    gets the usual permissions (those a plain ``open`` would give under the user's umask).
+    """
+    path = Path(path)
+    exists = Problem(str(path), "(file)", "exists already; choose another name (or overwrite)")
+    if path.exists() and not overwrite:
+        raise InputError([exists])
+    try:
+        handle, temporary = tempfile.mkstemp(
+            dir=path.parent, prefix=f".{path.name}.", suffix=TEMPORARY_SUFFIX
+        )
+    except OSError as error:
+        raise InputError(
+            [Problem(str(path), "(file)", f"cannot write: {error.strerror or error}")]
+        ) from None
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8") as stream:
+            stream.write(text)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.chmod(temporary, 0o666 & ~_umask())
+        if overwrite:
+            os.replace(temporary, path)
+        else:
+            os.link(temporary, path)  # fails if the name appeared meanwhile: no overwrite race
+            os.unlink(temporary)
+        _sync_folder(path.parent)
+    except FileExistsError:
+        os.unlink(temporary)
+        raise InputError([exists]) from None
+    except OSError as error:
+        with contextlib.suppress(OSError):
+            os.unlink(temporary)
+        raise InputError(
+            [Problem(str(path), "(file)", f"cannot write: {error.strerror or error}")]
+        ) from None
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(temporary)
+        raise
+    return path
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _sync_folder(folder: Path) -> None:
+    """Flush the folder entry too, so the rename itself survives a power cut (POSIX)."""
+    with contextlib.suppress(OSError, AttributeError):
+        descriptor = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(descriptor)
+        finally:
+            os.close(descriptor)

@@ -7,7 +7,6 @@ through a small wrapper that adds flags keeping it off the network.
 
 from __future__ import annotations
 
-import io
 import os
 import re
 import shutil
@@ -98,17 +97,6 @@ def figure_png(figure: go.Figure, *, width: int | None = None, height: int | Non
 def figure_html(figure: go.Figure, title: str, heading: str) -> str:
     """A complete offline HTML page with the figure and the caution."""
     return page(title, [Section(heading, figure=figure)])
-
-
-def table_csv(header, rows) -> str:
-    import csv
-
-    stream = io.StringIO()
-    writer = csv.writer(stream, lineterminator="\n")
-    writer.writerow(header)
-    for row in rows:
-        writer.writerow(["" if value is None else value for value in row])
-    return stream.getvalue()
 
 
 def slug(text: str) -> str:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import os
-import tempfile
 import tomllib
 from pathlib import Path
 from typing import Any
@@ -15,7 +14,7 @@ from planner.errors import InputError, Problem
 from planner.scenario.root import Scenario
 from planner.scenario.schedule_blocks import ACTION_KINDS, SCHEDULE_KINDS
 from planner.scenario.uncertainty import PRIOR_KINDS
-from planner.textfiles import read_user_text
+from planner.textfiles import read_user_text, write_user_text
 
 MAX_SCENARIO_BYTES = 1_000_000
 _TAGS = {
@@ -90,30 +89,6 @@ def scenario_to_toml(scenario: Scenario) -> str:
 def save_scenario(
     scenario: Scenario, path: str | os.PathLike[str], *, overwrite: bool = False
 ) -> Path:
-    """Write atomically (temporary file in the same folder, then rename).
-
-    Refuses to replace an existing file unless ``overwrite`` is set, so nothing saved is lost.
-    """
-    path = Path(path)
-    if path.exists() and not overwrite:
-        raise InputError([Problem(str(path), "(file)", "exists already; choose another name")])
-    text = scenario_to_toml(scenario)
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8") as stream:
-            stream.write(text)
-        if overwrite:
-            os.replace(temporary, path)
-        else:
-            os.link(temporary, path)  # fails if the name appeared meanwhile: no overwrite race
-            os.unlink(temporary)
-    except FileExistsError:
-        os.unlink(temporary)
-        raise InputError(
-            [Problem(str(path), "(file)", "exists already; choose another name")]
-        ) from None
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
-    return path
+    """Write atomically (:func:`planner.textfiles.write_user_text`); refuses to replace an
+    existing file unless ``overwrite`` is set, so nothing saved is lost."""
+    return write_user_text(path, scenario_to_toml(scenario), overwrite=overwrite)

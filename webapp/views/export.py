@@ -11,6 +11,7 @@ import plotly.graph_objects as go
 from dash import ALL, Input, Output, State, ctx, dcc, html, no_update
 
 from planner.briefing import comparison_briefing
+from planner.report import table_csv
 from webapp import exports, ids
 from webapp.settings import Settings
 from webapp.views.common import working_comparison, working_scenario
@@ -81,7 +82,7 @@ def build_export(what: str, fmt: str, working, shown, side_choice, sweep_figure_
             header, rows = table_rows(comparison)
             name = f"{stem}-comparison.csv"
             return dict(
-                content=exports.table_csv(header, rows), filename=name, type="text/csv"
+                content=table_csv(header, rows), filename=name, type="text/csv"
             ), name
         if what == "diagram":
             figure = diagram_figure(scenario, comparison, shown)
