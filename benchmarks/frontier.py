@@ -208,7 +208,7 @@ def timed(function):
 
 def planner_frontier(scenario, diagram, depths):
     frontier = recovery_frontier(scenario, diagram=diagram, depths=depths, own_schedules=False)
-    return [p.duration for p in frontier.points], frontier
+    return [p.hold_years for p in frontier.points], frontier
 
 
 def main() -> None:

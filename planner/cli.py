@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 import traceback
 from collections.abc import Callable, Sequence
@@ -126,6 +127,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return EXIT_INTERNAL
+    except BrokenPipeError:
+        # The reader stopped early (`planner ... | head`): not an error of ours. Point stdout at
+        # the null device so that the interpreter's final flush does not fail again.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return EXIT_OK
     except Exception:  # a bug: show it plainly
         traceback.print_exc()
         print("internal error: this is a bug in the planner, not in your input", file=sys.stderr)
@@ -292,8 +299,10 @@ def _frontier(args: argparse.Namespace) -> int:
         scenario,
         relax_to=args.relax_to,
         depths=_number_list(args.depths, "--depths"),
-        durations=_number_list(args.durations, "--durations") or (),
+        hold_years=_number_list(args.hold_years, "--hold-years") or (),
         family=args.family,
+        start_year=args.start_year,
+        ramp_years=args.ramp_years,
         source=args.file,
         progress=_progress(),
     )
@@ -360,8 +369,28 @@ def _frontier_commands(sub: argparse._SubParsersAction) -> None:
     p.add_argument("file")
     p.add_argument("--relax-to", type=float, metavar="X", help="control value after the hold")
     p.add_argument("--depths", metavar="D1,D2,...", help="depths below the recovery threshold")
-    p.add_argument("--durations", metavar="Y1,Y2,...", help="holds (years): least depth for each")
+    p.add_argument(
+        "--hold-years",
+        "--durations",
+        dest="hold_years",
+        metavar="Y1,Y2,...",
+        help="holds at the floor (years): the least depth for each (--durations: old name)",
+    )
     p.add_argument("--family", choices=("overshoot", "staircase"), default="overshoot")
+    p.add_argument(
+        "--start-year",
+        type=float,
+        default=0.0,
+        metavar="Y",
+        help="year the descent to the floor begins (default 0)",
+    )
+    p.add_argument(
+        "--ramp-years",
+        type=float,
+        metavar="R",
+        help="years of each ramp, down and up; 0 for instant jumps (default: at the scenario's "
+        "largest yearly change, or 2 yr each when it sets none)",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--html", metavar="OUT", help="write an HTML figure of the frontier")
     p = sub.add_parser("search", help="cheapest recovering schedule; money against time")

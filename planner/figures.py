@@ -352,11 +352,11 @@ def frontier_figure(scenario, frontier) -> go.Figure:
     is a dotted line; the scenario's own overshoot schedules are marked with their verdicts
     (filled: recovers, open: does not), and the converse (least depth for a hold) as diamonds."""
     unit = f" ({frontier.unit})" if frontier.unit else ""
-    found = [p for p in frontier.points if p.duration is not None]
-    missing = [p for p in frontier.points if p.duration is None]
+    found = [p for p in frontier.points if p.hold_years is not None]
+    missing = [p for p in frontier.points if p.hold_years is None]
     own = list(frontier.own)
-    holds = [p.duration for p in found] + [o.duration for o in own]
-    holds += [c.duration for c in frontier.converse if c.depth is not None]
+    holds = [p.hold_years for p in found] + [o.hold_years for o in own]
+    holds += [c.hold_years for c in frontier.converse if c.depth is not None]
     top = 1.15 * max([*holds, 1.0])
     fig = go.Figure()
     if found:
@@ -364,7 +364,7 @@ def frontier_figure(scenario, frontier) -> go.Figure:
         fig.add_trace(
             go.Scatter(
                 x=[*depths, *depths[::-1]],
-                y=[p.duration for p in found] + [top] * len(found),
+                y=[p.hold_years for p in found] + [top] * len(found),
                 fill="toself",
                 fillcolor=RECOVERING_FILL,
                 line=dict(width=0),
@@ -375,14 +375,14 @@ def frontier_figure(scenario, frontier) -> go.Figure:
         fig.add_trace(
             go.Scatter(
                 x=depths,
-                y=[p.duration for p in found],
+                y=[p.hold_years for p in found],
                 mode="lines+markers",
                 line=dict(color=PALETTE[2], width=3),
                 marker=dict(size=7, color=PALETTE[2]),
                 name="least hold that recovers",
-                customdata=[[p.floor, p.time_below] for p in found],
+                customdata=[[p.floor, p.time_below_threshold] for p in found],
                 hovertemplate=f"depth %{{x:.4g}}{unit}<br>floor %{{customdata[0]:.4g}}<br>"
-                "least hold %{y:.2f} yr<br>below threshold %{customdata[1]:.2f} yr"
+                "least hold_years %{y:.2f}<br>time_below_threshold %{customdata[1]:.2f} yr"
                 "<extra></extra>",
             )
         )
@@ -402,7 +402,7 @@ def frontier_figure(scenario, frontier) -> go.Figure:
         fig.add_trace(
             go.Scatter(
                 x=[c.depth for c in answered],
-                y=[c.duration for c in answered],
+                y=[c.hold_years for c in answered],
                 mode="markers",
                 marker=dict(symbol="diamond", size=10, color=PALETTE[0]),
                 name="least depth for a given hold",
@@ -414,7 +414,7 @@ def frontier_figure(scenario, frontier) -> go.Figure:
         fig.add_trace(
             go.Scatter(
                 x=[schedule.depth],
-                y=[schedule.duration],
+                y=[schedule.hold_years],
                 mode="markers+text",
                 text=[schedule.name],
                 textposition="top right",

@@ -3,13 +3,21 @@ go for the lake to recover once the control relaxes again.
 
 For a family of schedules that take the control down to a ``floor``, hold it there, then relax it
 to ``relax_to`` (DESIGN.md section 2: overshoot depth = recovery threshold - floor), the frontier
-gives for each depth the least hold (years) that still recovers, and conversely the least depth
-for a given hold. The verdict is the planner's own (integrate under the schedule, then hold the
-final control until the state settles, and match it to the desired attractor). It is monotone in
-both the hold and the depth when lower loads give lower phosphorus at every time (a comparison
+gives for each depth the least ``hold_years`` (years at the floor) that still recovers, and
+conversely the least depth for a given hold. ``time_below_threshold`` (years) is the hold plus
+the parts of the ramps spent below the recovery threshold: the quantity ``compare`` reports for
+a schedule. The verdict is the planner's own (integrate under the schedule, then hold the final
+control until the state settles, and match it to the desired attractor). It is monotone in both
+the hold and the depth when lower loads give lower phosphorus at every time (a comparison
 principle, e.g. Hirsch & Smith 2005, Monotone dynamical systems, Handbook of Differential
 Equations; from memory), so each least value is found by bracketing then bisection on the
 verdict.
+
+Ramps: no catchment cuts its load overnight, so every schedule of a family ramps down to the
+floor and up to relax_to. The ramps follow the scenario's largest yearly change
+(``control.max_change_per_year``) when it sets one, else take DEFAULT_RAMP_YEARS each; a caller
+may ask for ``ramp_years`` (0: instant jumps, only when asked) and for the ``start_year`` at
+which the descent begins.
 
 Speed: for one floor all holds share the path down to the floor, so that part is integrated
 once with dense output; each verdict then only integrates the relaxation from the stored state
@@ -34,24 +42,33 @@ from planner.equilibria import Diagram, diagram_for
 from planner.errors import InputError, Problem
 from planner.integrate import STATUSES, Save, Solution, Status, integrate
 from planner.integrate import Problem as Run
-from planner.metrics import limits_for
+from planner.metrics import limits_for, overshoot
 from planner.outcomes import evaluate
 from planner.progress import Progress, scaled, silent
 from planner.scenario import OvershootSchedule, Scenario, Schedule, StaircaseSchedule
-from planner.schedules import ControlPath
+from planner.schedules import REL_TOL, ControlPath, control_path
 from planner.verdict import Verdict, attractors, decide
 
 HOLD_TOLERANCE = 0.01  # years: the least hold is bracketed this tightly (found value: upper end)
 DEPTH_TOLERANCE = 1e-4  # converse: depth bracket width, as a fraction of the control range width
 SMALLEST_DEPTH = 1e-3  # default depths start at this fraction of the control range width
 DEFAULT_DEPTHS = 20
-RAMP_YEARS_WITHOUT_LIMIT = 0.0  # with no yearly-change limit the family jumps between levels
+DEFAULT_RAMP_YEARS = 2.0
+"""Years each ramp (down to the floor, up to relax_to) takes when the scenario sets no largest
+yearly change and the caller asks for no ``ramp_years``. Catchment measures (buffer strips,
+wetlands, a treatment plant upgrade) are phased in over a couple of seasons, never overnight; an
+instant jump would credit the family with a cut no catchment can make, and would make the least
+hold disagree with a user's own ramped schedule. Common practice, no source."""
+DEFAULT_START_YEAR = 0.0  # years: the family's descent begins now unless asked otherwise
 MAX_DEPTHS = 400
 DESCENTS_KEPT = 64  # integrated descents remembered per family (dense output, one per floor)
 NAME_DIGITS = 3
 
 FamilyKind = Literal["overshoot", "staircase"]
 FAMILY_KINDS: tuple[FamilyKind, ...] = ("overshoot", "staircase")
+RampSource = Literal["rate limit", "default", "asked"]
+"""Where a family's ramps come from: the scenario's largest yearly change, DEFAULT_RAMP_YEARS,
+or the caller's ``ramp_years``."""
 
 
 # ---------------------------------------------------------------------------------------------
@@ -62,14 +79,17 @@ FAMILY_KINDS: tuple[FamilyKind, ...] = ("overshoot", "staircase")
 class Family:
     """Schedules with two free numbers, ``floor`` (control unit) and ``hold`` (years at the floor).
 
-    - overshoot: from year 0 ramp from ``current`` down to the floor at the largest yearly change
-      ``rate``, hold it ``hold`` years, ramp up to ``relax_to`` at the same rate, hold.
-    - staircase: two levels, [floor, relax_to]; every change takes the same ramp time (the one the
-      larger change needs at ``rate``), the floor is held ``hold`` years after the ramp down, so
-      the change up is slower than the rate allows when relax_to lies closer to the floor.
+    - overshoot: hold ``current`` until ``start_year``, ramp down to the floor, hold it ``hold``
+      years, ramp up to ``relax_to``, hold.
+    - staircase: two levels, [floor, relax_to], from ``start_year``; every change takes the same
+      ramp time (the one the larger change needs at ``rate``), the floor is held ``hold`` years
+      after the ramp down, so the change up is slower than the rate allows when relax_to lies
+      closer to the floor.
 
-    With ``rate`` None (no limit) ramps take RAMP_YEARS_WITHOUT_LIMIT years (jumps). Each
-    schedule must be complete by ``horizon`` (years) so that its verdict is the one at relax_to.
+    Each ramp takes ``ramp`` years when set (``ramp_source`` "default" or "asked"; 0: a jump),
+    else the years the change needs at the largest yearly change ``rate`` (control unit per
+    year; ``ramp_source`` "rate limit"). Each schedule must be complete by ``horizon`` (years)
+    so that its verdict is the one at relax_to.
     """
 
     kind: FamilyKind
@@ -77,14 +97,21 @@ class Family:
     relax_to: float
     rate: float | None
     horizon: float
+    ramp: float | None
+    ramp_source: RampSource
+    start_year: float = DEFAULT_START_YEAR
+
+    def __post_init__(self) -> None:
+        if self.ramp is None and self.rate is None:
+            raise ValueError("a family needs either a ramp length or a largest yearly change")
 
     def ramp_years(self, start: float, end: float) -> float:
-        """Years a change from ``start`` to ``end`` takes at the largest yearly change."""
-        if self.rate is None:
-            return RAMP_YEARS_WITHOUT_LIMIT
+        """Years a change from ``start`` to ``end`` takes: ``ramp``, or the change at ``rate``."""
+        if self.ramp is not None:
+            return self.ramp
         return abs(end - start) / self.rate
 
-    def _ramps(self, floor: float) -> tuple[float, float]:
+    def ramps(self, floor: float) -> tuple[float, float]:
         """(years down to the floor, years up from it to relax_to)."""
         if self.kind == "overshoot":
             return self.ramp_years(self.current, floor), self.ramp_years(floor, self.relax_to)
@@ -93,49 +120,53 @@ class Family:
 
     def min_hold(self, floor: float) -> float:
         """Shortest hold (years) the family allows (a staircase step must last some time)."""
-        if self.kind == "staircase" and self._ramps(floor)[0] == 0.0:
+        if self.kind == "staircase" and self.ramps(floor)[0] == 0.0:
             return HOLD_TOLERANCE
         return 0.0
 
     def max_hold(self, floor: float) -> float:
         """Longest hold (years) that still relaxes by the horizon (negative: none fits)."""
-        down, up = self._ramps(floor)
-        return self.horizon - down - up
+        down, up = self.ramps(floor)
+        return self.horizon - self.start_year - down - up
 
     def lowest_floor(self, hold: float) -> float:
-        """The lowest floor whose schedule with this hold still fits within the horizon."""
-        spare = self.horizon - hold
-        if self.rate is None:
-            return -math.inf if spare >= 0 else math.inf
+        """The lowest floor whose schedule with this hold still fits within the horizon and,
+        with ramps of a set length, keeps the largest yearly change."""
+        spare = self.horizon - self.start_year - hold
+        if self.ramp is not None:
+            if spare < 2 * self.ramp - 1e-9 * self.horizon:
+                return math.inf
+            if self.rate is None:
+                return -math.inf
+            return max(self.current, self.relax_to) - self.rate * self.ramp
         if self.kind == "overshoot":
             return (self.current + self.relax_to - self.rate * spare) / 2
         return max(self.current, self.relax_to) - self.rate * spare / 2
 
     def leave_time(self, floor: float, hold: float) -> float:
         """Year at which the control leaves the floor."""
-        return self._ramps(floor)[0] + hold
+        return self.start_year + self.ramps(floor)[0] + hold
 
     def descent(self, floor: float) -> ControlPath:
-        """The control path from year 0 down to the floor, then held there."""
-        down = self._ramps(floor)[0]
-        return ControlPath(np.array([0.0, down]), np.array([self.current, floor]))
+        """The control path from year 0 down to the floor, then held there past the horizon."""
+        return control_path(self.schedule(floor, self.horizon), current=self.current)
 
     def relaxation(self, floor: float) -> tuple[ControlPath, float]:
         """The control path from the moment it leaves the floor (time 0 here), and its length."""
-        up = self._ramps(floor)[1]
+        up = self.ramps(floor)[1]
         return ControlPath(np.array([0.0, up]), np.array([floor, self.relax_to])), up
 
     def schedule(self, floor: float, hold: float, name: str | None = None) -> Schedule:
         """The scenario-file schedule for (floor, hold)."""
         floor, hold = float(floor), float(hold)
-        down, up = self._ramps(floor)
+        down, up = self.ramps(floor)
         if name is None:
             name = f"{self.kind.capitalize()} to {floor:.{NAME_DIGITS}g}, held {hold:.2f} yr"
         if self.kind == "overshoot":
             return OvershootSchedule(
                 kind="overshoot",
                 name=name,
-                start=0.0,
+                start=self.start_year,
                 floor=floor,
                 down_years=down,
                 hold_years=hold,
@@ -145,35 +176,134 @@ class Family:
         return StaircaseSchedule(
             kind="staircase",
             name=name,
-            start=0.0,
+            start=self.start_year,
             levels=[floor, self.relax_to],
             step_years=down + hold,
             ramp_years=down,
         )
 
     def time_below(self, threshold: float, floor: float, hold: float) -> float:
-        """Years the control spends below ``threshold`` (ramps included)."""
-        return self._ramps_below(threshold, floor) + hold
-
-    def _ramps_below(self, threshold: float, floor: float) -> float:
-        if floor >= threshold:
-            return 0.0
-        down, up = self._ramps(floor)
-        total = 0.0
-        for start, years in ((self.current, down), (self.relax_to, up)):
-            if years > 0 and start > floor:
-                total += years * min((threshold - floor) / (start - floor), 1.0)
-        return total
+        """Years the control spends below ``threshold`` (ramps included), as compare measures it
+        (``planner.metrics.overshoot`` on the schedule's path, up to the horizon)."""
+        path = control_path(self.schedule(floor, hold), current=self.current)
+        return overshoot(path, threshold, self.horizon)[1]
 
 
-def family_for(scenario: Scenario, kind: FamilyKind, relax_to: float) -> Family:
-    """The family of ``kind`` under the scenario's largest yearly change and horizon."""
+def _checked_ramp_options(
+    scenario: Scenario, start_year: float, ramp_years: float | None, source: str
+) -> list[Problem]:
+    """Problems with ``start_year`` and ``ramp_years`` (years) that need no diagram: not finite,
+    negative, beyond the horizon, or a jump where the scenario limits the yearly change."""
+    horizon = scenario.simulation.horizon
+    rate = scenario.control.max_change_per_year
+    problems = []
+    start = float(start_year)
+    if not (math.isfinite(start) and start >= 0):
+        problems.append(Problem(source, "start_year", f"{start:g} must be a year at least 0"))
+        start = 0.0
+    elif start >= horizon:
+        problems.append(
+            Problem(
+                source,
+                "start_year",
+                f"{start:g} lies at or beyond the horizon {horizon:g} yr "
+                "(simulation.horizon): the descent must begin before it",
+            )
+        )
+    ramp = DEFAULT_RAMP_YEARS if ramp_years is None and rate is None else ramp_years
+    field = "ramp_years"
+    if ramp is None:
+        return problems
+    ramp = float(ramp)
+    default = (
+        f" (the default when the scenario sets no control.max_change_per_year; give "
+        f"{field} to change it)"
+        if ramp_years is None
+        else ""
+    )
+    if not (math.isfinite(ramp) and ramp >= 0):
+        problems.append(Problem(source, field, f"{ramp:g} must be a number of years at least 0"))
+    elif rate is not None and ramp == 0:
+        problems.append(
+            Problem(
+                source,
+                field,
+                "0 asks for instant jumps, which break the scenario's largest yearly change "
+                f"{rate:g} per year (control.max_change_per_year); give a longer ramp or leave "
+                f"{field} out to follow that limit",
+            )
+        )
+    elif start < horizon and start + 2 * ramp > horizon * (1 + REL_TOL):
+        problems.append(
+            Problem(
+                source,
+                field,
+                f"two ramps of {ramp:g} yr{default} from year {start:g} end after the horizon "
+                f"{horizon:g} yr (simulation.horizon): no schedule of the family would be "
+                "complete by then",
+            )
+        )
+    return problems
+
+
+def family_for(
+    scenario: Scenario,
+    kind: FamilyKind,
+    relax_to: float,
+    *,
+    start_year: float = DEFAULT_START_YEAR,
+    ramp_years: float | None = None,
+    source: str = "<scenario>",
+) -> Family:
+    """The family of ``kind`` under the scenario's largest yearly change and horizon.
+
+    ``start_year`` (years from now): when the descent begins. ``ramp_years`` (years): the length
+    of each ramp, down and up, 0 for instant jumps; by default the ramps follow the scenario's
+    largest yearly change, or take DEFAULT_RAMP_YEARS when it sets none. Bad options raise
+    InputError naming ``source`` and the option.
+    """
+    problems = _checked_ramp_options(scenario, start_year, ramp_years, source)
+    if problems:
+        raise InputError(problems)
+    rate = scenario.control.max_change_per_year
+    if ramp_years is not None:
+        ramp, origin = float(ramp_years), "asked"
+    elif rate is None:
+        ramp, origin = DEFAULT_RAMP_YEARS, "default"
+    else:
+        ramp, origin = None, "rate limit"
     return Family(
         kind=kind,
         current=scenario.current_control,
         relax_to=float(relax_to),
-        rate=scenario.control.max_change_per_year,
+        rate=rate,
         horizon=scenario.simulation.horizon,
+        ramp=ramp,
+        ramp_source=origin,
+        start_year=float(start_year),
+    )
+
+
+def checked_ramp_to(family: Family, deepest_floor: float, source: str) -> None:
+    """InputError naming ``ramp_years`` when ramps of the asked length would change the control
+    faster than the scenario's largest yearly change on the way to ``deepest_floor``."""
+    if family.ramp is None or family.rate is None or family.ramp_source != "asked":
+        return
+    change = max(abs(family.current - deepest_floor), abs(family.relax_to - deepest_floor))
+    if change <= family.rate * family.ramp * (1 + REL_TOL):
+        return
+    raise InputError(
+        [
+            Problem(
+                source,
+                "ramp_years",
+                f"{family.ramp:g} yr to change the control by {change:.4g} (to the deepest floor "
+                f"{deepest_floor:.4g}) is faster than the largest yearly change {family.rate:g} "
+                f"per year (control.max_change_per_year): give at least "
+                f"{change / family.rate:.4g} yr, shallower depths, or leave ramp_years out to "
+                "follow the limit",
+            )
+        ]
     )
 
 
@@ -305,34 +435,40 @@ def least_depth(
 
 @dataclass(frozen=True)
 class FrontierPoint:
-    """One depth (control units below the recovery threshold) and the least hold (years) that
-    recovers there; ``duration`` None when no hold that ends by the horizon recovers.
-    ``time_below`` adds the ramps' years below the threshold. ``achievable``: the floor is at or
-    above the lowest achievable control."""
+    """One depth (control units below the recovery threshold) and the least ``hold_years`` at
+    the floor that recovers there; None when no hold that ends by the horizon recovers.
+    ``time_below_threshold`` (years) adds the ramps' years below the threshold;
+    ``ramp_down_years`` and ``ramp_up_years`` are the family's ramps at this floor.
+    ``achievable``: the floor is at or above the lowest achievable control."""
 
     depth: float
     floor: float
-    duration: float | None
-    time_below: float | None
+    hold_years: float | None
+    time_below_threshold: float | None
+    ramp_down_years: float
+    ramp_up_years: float
     achievable: bool
 
 
 @dataclass(frozen=True)
 class ConversePoint:
-    """For a hold (years), the least depth (control units) that recovers, or None."""
+    """For ``hold_years`` at the floor, the least depth (control units) that recovers, or
+    None."""
 
-    duration: float
+    hold_years: float
     depth: float | None
     floor: float | None
 
 
 @dataclass(frozen=True)
 class OwnSchedule:
-    """One of the scenario's own overshoot schedules placed on the frontier's axes."""
+    """One of the scenario's own overshoot schedules placed on the frontier's axes, with its
+    ``time_below_threshold`` (years) as compare measures it."""
 
     name: str
     depth: float
-    duration: float
+    hold_years: float
+    time_below_threshold: float
     recovered: bool
     verdict: str
     feasible: bool
@@ -365,9 +501,11 @@ class Frontier:
 
 
 def recovery_threshold_of(scenario: Scenario, diagram: Diagram, source: str) -> float:
-    """The recovery threshold, or an InputError saying why no overshoot can recover."""
+    """The recovery threshold, or an InputError saying why no overshoot can recover: the lake
+    has none, or it lies where load cuts alone cannot take the control (DESIGN.md section 9)."""
     threshold = diagram.recovery_threshold
-    if threshold is None:
+    recovery = diagram.recovery
+    if threshold is None and (recovery is None or recovery.location is None):
         raise InputError(
             [
                 Problem(
@@ -379,21 +517,24 @@ def recovery_threshold_of(scenario: Scenario, diagram: Diagram, source: str) -> 
             ]
         )
     least = scenario.control.least
-    if threshold <= least:
-        raise InputError(
-            [
-                Problem(
-                    source,
-                    "control.range"
-                    if scenario.control.lowest_achievable is None
-                    else "control.lowest_achievable",
-                    f"the recovery threshold {threshold:.4g} lies at or below the lowest "
-                    f"achievable control {least:g}: no load cut alone recovers this lake "
-                    f"({diagram.classification}); consider in-lake actions",
-                )
-            ]
+    if threshold is not None and threshold > least:
+        return float(threshold)
+    control = scenario.control
+    field = "control.range" if control.lowest_achievable is None else "control.lowest_achievable"
+    if recovery.location > control.range[1]:
+        reason = (
+            f"the recovery threshold {recovery.location:.4g} lies above the control range: the "
+            "undesired regime is stable nowhere in it, so there is no overshoot to plan"
         )
-    return float(threshold)
+        raise InputError([Problem(source, "control.range", reason)])
+    why = recovery.reason if threshold is None and recovery.reason else None
+    if why is None:
+        why = f"it lies at {recovery.location:.4g}, the lowest achievable control is {least:g}"
+    reason = (
+        f"the recovery threshold is not reachable by load cuts alone ({why}): no load cut alone "
+        f"recovers this lake ({diagram.classification}); consider in-lake actions"
+    )
+    raise InputError([Problem(source, field, reason)])
 
 
 def default_relax_to(scenario: Scenario, diagram: Diagram) -> float:
@@ -487,15 +628,15 @@ def _checked_depths(
     return np.sort(values)
 
 
-def _checked_durations(durations: Sequence[float], source: str) -> np.ndarray:
-    values = np.asarray(durations, dtype=float).reshape(-1)
+def _checked_holds(hold_years: Sequence[float], source: str) -> np.ndarray:
+    values = np.asarray(hold_years, dtype=float).reshape(-1)
     problems = [
-        Problem(source, f"durations.{i}", f"{d:g} must be a number of years at least 0")
+        Problem(source, f"hold_years.{i}", f"{d:g} must be a number of years at least 0")
         for i, d in enumerate(values)
         if not (math.isfinite(d) and d >= 0)
     ]
     if values.size > MAX_DEPTHS:
-        problems.append(Problem(source, "durations", f"give at most {MAX_DEPTHS} durations"))
+        problems.append(Problem(source, "hold_years", f"give at most {MAX_DEPTHS} holds"))
     if problems:
         raise InputError(problems)
     return values
@@ -518,12 +659,17 @@ def frontier_points(
         hold = least_hold(verdicts, floor, upper=previous)
         if hold is not None:
             previous = hold
+        down, up = family.ramps(floor)
         points.append(
             FrontierPoint(
                 depth=float(depth),
                 floor=floor,
-                duration=hold,
-                time_below=None if hold is None else family.time_below(threshold, floor, hold),
+                hold_years=hold,
+                time_below_threshold=(
+                    None if hold is None else family.time_below(threshold, floor, hold)
+                ),
+                ramp_down_years=down,
+                ramp_up_years=up,
                 achievable=floor >= least - 1e-12 * max(1.0, abs(least)),
             )
         )
@@ -541,7 +687,8 @@ def _years(value: float | None) -> str:
 
 
 def own_overshoots(scenario: Scenario, diagram: Diagram, threshold: float) -> list[OwnSchedule]:
-    """The scenario's overshoot schedules with their depth, hold and verdict (from evaluate)."""
+    """The scenario's overshoot schedules with their depth, hold, time below the threshold and
+    verdict (all from evaluate, as compare reports them)."""
     out = []
     for schedule in scenario.schedules:
         if not isinstance(schedule, OvershootSchedule):
@@ -551,7 +698,8 @@ def own_overshoots(scenario: Scenario, diagram: Diagram, threshold: float) -> li
             OwnSchedule(
                 name=schedule.name,
                 depth=float(threshold - schedule.floor),
-                duration=float(schedule.hold_years),
+                hold_years=float(schedule.hold_years),
+                time_below_threshold=float(outcome.time_below_threshold),
                 recovered=outcome.recovered,
                 verdict=outcome.verdict.value,
                 feasible=outcome.feasible,
@@ -567,19 +715,31 @@ def recovery_frontier(
     diagram: Diagram | None = None,
     relax_to: float | None = None,
     depths: Sequence[float] | None = None,
-    durations: Sequence[float] = (),
+    hold_years: Sequence[float] = (),
     family: FamilyKind = "overshoot",
+    start_year: float = DEFAULT_START_YEAR,
+    ramp_years: float | None = None,
     own_schedules: bool = True,
     source: str = "<scenario>",
     progress: Progress = silent,
 ) -> Frontier:
-    """The least hold (years) for each depth below the recovery threshold (control units), when
-    the control then relaxes to ``relax_to``; and for each of ``durations`` (years) the least
-    depth. Defaults: relax_to from ``default_relax_to``, depths from ``default_depths``.
+    """The least hold (years at the floor) for each depth below the recovery threshold (control
+    units), when the control then relaxes to ``relax_to``; and for each of ``hold_years`` the
+    least depth. Defaults: relax_to from ``default_relax_to``, depths from ``default_depths``.
 
-    User errors (no recovery threshold, relax_to or depths out of range) raise InputError naming
+    ``start_year`` (years from now, default 0): when the descent begins. ``ramp_years`` (years):
+    the length of each ramp, down and up; 0 asks for instant jumps. By default the ramps follow
+    the scenario's largest yearly change (``control.max_change_per_year``), or take
+    DEFAULT_RAMP_YEARS when it sets none.
+
+    User errors (no recovery threshold; relax_to, depths, holds, start_year or ramp_years out of
+    range; asked ramps faster than the largest yearly change) raise InputError naming
     ``source``.
     """
+    problems = _checked_ramp_options(scenario, start_year, ramp_years, source)
+    if problems:  # before the diagram: these need none
+        raise InputError(problems)
+    holds = _checked_holds(hold_years, source)
     diagram, threshold, relax = prepared(
         scenario, diagram, relax_to, (family,), source, scaled(progress, 0.0, 0.1)
     )
@@ -588,8 +748,11 @@ def recovery_frontier(
         if depths is None
         else _checked_depths(scenario, threshold, depths, source)
     )
-    holds = _checked_durations(durations, source)
-    verdicts = Verdicts(scenario, diagram, family_for(scenario, family, relax))
+    chosen_family = family_for(
+        scenario, family, relax, start_year=start_year, ramp_years=ramp_years, source=source
+    )
+    checked_ramp_to(chosen_family, threshold - float(chosen[-1]), source)
+    verdicts = Verdicts(scenario, diagram, chosen_family)
     share = 0.8 if holds.size else 0.9
     points = frontier_points(
         verdicts, threshold, chosen, progress=scaled(progress, 0.1, 0.1 + share * 0.9)
@@ -600,7 +763,7 @@ def recovery_frontier(
         depth, _ = least_depth(verdicts, threshold, float(hold), deepest)
         converse.append(
             ConversePoint(
-                duration=float(hold),
+                hold_years=float(hold),
                 depth=depth,
                 floor=None if depth is None else threshold - depth,
             )
@@ -625,10 +788,30 @@ def recovery_frontier(
 # Plain data for JSON, tables and text
 
 
+def ramp_words(family: Family, unit: str = "") -> str:
+    """Which ramps the family used and where they come from, then when the descent begins, as
+    two phrases joined by "; " (terminal summary, web app); ``unit`` is the control's unit."""
+    per_year = f" {unit}" if unit else ""
+    if family.ramp_source == "rate limit":
+        ramps = (
+            f"ramps at the largest yearly change, {family.rate:g}{per_year} per year "
+            "(control.max_change_per_year)"
+        )
+    elif family.ramp_source == "default":
+        ramps = f"ramps of {family.ramp:g} yr each (the default: no largest yearly change is set)"
+    elif family.ramp == 0:
+        ramps = "instant jumps (asked: ramp_years 0)"
+    else:
+        ramps = f"ramps of {family.ramp:g} yr each (asked: ramp_years)"
+    return f"{ramps}; the descent begins in year {family.start_year:g}"
+
+
 def frontier_json(frontier: Frontier) -> dict[str, Any]:
-    """The `planner frontier --json` object: recovery_threshold, relax_to and points (depth,
-    duration or null), plus the floor, the years below the threshold, the converse and the
-    scenario's own overshoot schedules."""
+    """The `planner frontier --json` object: recovery_threshold, relax_to, the ramps used
+    (``ramp``: source "rate limit" | "default" | "asked", years or null when they follow the
+    rate limit), the start_year of the descent, and points (depth, floor, hold_years or null,
+    time_below_threshold, the ramps' years at that floor), plus the converse and the
+    scenario's own overshoot schedules. Holds and times below the threshold are in years."""
     family = frontier.family
     return {
         "scenario": frontier.scenario_name,
@@ -639,25 +822,35 @@ def frontier_json(frontier: Frontier) -> dict[str, Any]:
         "lowest_achievable": frontier.lowest_achievable,
         "largest_yearly_change": family.rate,
         "horizon": family.horizon,
+        "start_year": family.start_year,
+        "ramp": {
+            "source": family.ramp_source,
+            "years": family.ramp,
+            "largest_yearly_change": family.rate,
+        },
         "tolerance_years": HOLD_TOLERANCE,
         "points": [
             {
                 "depth": p.depth,
                 "floor": p.floor,
-                "duration": p.duration,
-                "time_below_threshold": p.time_below,
+                "hold_years": p.hold_years,
+                "time_below_threshold": p.time_below_threshold,
+                "ramp_down_years": p.ramp_down_years,
+                "ramp_up_years": p.ramp_up_years,
                 "achievable": p.achievable,
             }
             for p in frontier.points
         ],
         "converse": [
-            {"duration": c.duration, "depth": c.depth, "floor": c.floor} for c in frontier.converse
+            {"hold_years": c.hold_years, "depth": c.depth, "floor": c.floor}
+            for c in frontier.converse
         ],
         "own_schedules": [
             {
                 "name": o.name,
                 "depth": o.depth,
-                "duration": o.duration,
+                "hold_years": o.hold_years,
+                "time_below_threshold": o.time_below_threshold,
                 "recovered": o.recovered,
                 "verdict": o.verdict,
                 "feasible": o.feasible,
@@ -670,17 +863,28 @@ def frontier_json(frontier: Frontier) -> dict[str, Any]:
 
 
 def frontier_rows(frontier: Frontier) -> tuple[tuple[str, ...], list[list[object]]]:
-    """Table of the frontier: depth, floor, least hold, years below the threshold."""
+    """Table of the frontier: depth, floor, least hold_years, the ramps' years at that floor and
+    time_below_threshold (years)."""
     unit = f" ({frontier.unit})" if frontier.unit else ""
     header = (
         f"depth{unit}",
         f"floor{unit}",
-        "least hold (yr)",
-        "years below threshold",
+        "least hold_years",
+        "ramp down (yr)",
+        "ramp up (yr)",
+        "time_below_threshold (yr)",
         "achievable",
     )
     rows = [
-        [p.depth, p.floor, p.duration, p.time_below, "yes" if p.achievable else "no"]
+        [
+            p.depth,
+            p.floor,
+            p.hold_years,
+            p.ramp_down_years,
+            p.ramp_up_years,
+            p.time_below_threshold,
+            "yes" if p.achievable else "no",
+        ]
         for p in frontier.points
     ]
     return header, rows
@@ -693,38 +897,37 @@ def frontier_text(frontier: Frontier) -> str:
     family = frontier.family
     header, rows = frontier_rows(frontier)
     unit = f" {frontier.unit}" if frontier.unit else ""
-    rate = (
-        "jumps (no yearly-change limit)"
-        if family.rate is None
-        else f"ramps at {family.rate:g}{unit} per year"
-    )
     lines = [
         f"Recovery frontier: {frontier.scenario_name}",
         f"  recovery threshold {frontier.recovery_threshold:.4g}{unit}; the control relaxes to "
-        f"{family.relax_to:.4g}{unit} ({family.kind}, {rate}; horizon {family.horizon:g} yr)",
-        f"  least hold at the floor that recovers, to {HOLD_TOLERANCE:g} yr "
-        "('-': none within the horizon):",
+        f"{family.relax_to:.4g}{unit} ({family.kind}; horizon {family.horizon:g} yr)",
+        f"  {ramp_words(family, frontier.unit)}",
+        f"  hold_years: the least hold at the floor that recovers, to {HOLD_TOLERANCE:g} yr "
+        "('-': none within the horizon);",
+        "  time_below_threshold: that hold plus the ramps' years below the recovery threshold",
         "",
         text_table(
             header,
-            [[*row[:2], _two_decimals(row[2]), _two_decimals(row[3]), row[4]] for row in rows],
+            [[*row[:2], *(_two_decimals(v) for v in row[2:6]), row[6]] for row in rows],
         ),
     ]
     if frontier.converse:
         lines += ["", "Least depth for a given hold:"]
-        rows = [[_two_decimals(c.duration), c.depth, c.floor] for c in frontier.converse]
-        lines.append(text_table(("hold (yr)", f"least depth{unit}", f"floor{unit}"), rows))
+        rows = [[_two_decimals(c.hold_years), c.depth, c.floor] for c in frontier.converse]
+        lines.append(text_table(("hold_years", f"least depth{unit}", f"floor{unit}"), rows))
     if frontier.own:
         lines += ["", "The scenario's own overshoot schedules:"]
         rows = [
             [
                 o.name,
                 o.depth,
-                _two_decimals(o.duration),
+                _two_decimals(o.hold_years),
+                _two_decimals(o.time_below_threshold),
                 o.verdict + (" (with in-lake actions)" if o.with_actions else ""),
             ]
             for o in frontier.own
         ]
-        lines.append(text_table(("schedule", f"depth{unit}", "hold (yr)", "verdict"), rows))
+        header = ("schedule", f"depth{unit}", "hold_years", "time_below_threshold (yr)", "verdict")
+        lines.append(text_table(header, rows))
     lines += ["", CAUTION]
     return "\n".join(lines)

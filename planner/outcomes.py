@@ -43,7 +43,7 @@ class ScheduleOutcome:
     min_control: float
     final_control: float
     overshoot_depth: float
-    overshoot_duration: float
+    time_below_threshold: float
     years_in_desired_basin: float | None
     years_meeting_target: float | None
     settled_state: np.ndarray | None
@@ -125,7 +125,7 @@ def evaluate(
         min_control=float(planned.path.minimum(horizon)),
         final_control=planned.final_control,
         overshoot_depth=depth,
-        overshoot_duration=duration,
+        time_below_threshold=duration,
         years_in_desired_basin=years_in_desired_basin(
             diagram, run.times, run.control, run.states[0]
         ),

@@ -309,7 +309,7 @@ COMPARISON_HEADER = (
     "Relapsed",
     "Lowest control",
     "Overshoot depth",
-    "Overshoot duration (yr)",
+    "Time below threshold (yr)",
     "Total cost",
     "Present value",
     "Why infeasible",
@@ -338,7 +338,7 @@ def comparison_rows(comparison) -> tuple[tuple[str, ...], list[list[object]]]:
                 "yes" if outcome.relapsed else "no",
                 outcome.min_control,
                 outcome.overshoot_depth,
-                outcome.overshoot_duration,
+                outcome.time_below_threshold,
                 outcome.cost.total,
                 outcome.cost.present_value,
                 "" if outcome.infeasible is None else outcome.infeasible.message,
@@ -364,7 +364,13 @@ def outcome_json(scenario, outcome) -> dict[str, Any]:
         "relapsed": outcome.relapsed,
         "min_control": outcome.min_control,
         "final_control": outcome.final_control,
-        "overshoot": {"depth": outcome.overshoot_depth, "duration": outcome.overshoot_duration},
+        # "duration" is the contract's name (DESIGN.md section 5); time_below_threshold says
+        # what it is, as the frontier does
+        "overshoot": {
+            "depth": outcome.overshoot_depth,
+            "duration": outcome.time_below_threshold,
+            "time_below_threshold": outcome.time_below_threshold,
+        },
         "years_in_desired_basin": outcome.years_in_desired_basin,
         "years_meeting_target": outcome.years_meeting_target,
         "state_at_horizon": state_dict(variables, outcome.trajectory.final_state),

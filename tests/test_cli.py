@@ -5,6 +5,7 @@ from __future__ import annotations
 import contextlib
 import io
 import json
+import os
 import subprocess
 import sys
 import tomllib
@@ -211,3 +212,23 @@ def test_unreachable_recovery_threshold_is_said_in_words_never_as_a_load():
     text = out.getvalue()
     assert "not reachable by load cuts alone" in text
     assert "must fall by" not in text and "may rise by" not in text
+
+
+def test_a_reader_that_stops_early_is_no_error():
+    """`planner diagram | head -1` when head has already gone: the command's output pipe has
+    no reader, so its first write fails; it ends quietly (no traceback, exit 0) instead of
+    reporting an internal error."""
+    read_end, write_end = os.pipe()
+    os.close(read_end)  # the reader is gone before anything is written
+    try:
+        done = subprocess.run(
+            [sys.executable, "-m", "planner.cli", "diagram", str(ALDER)],
+            stdout=write_end,
+            stderr=subprocess.PIPE,
+            timeout=120,
+        )
+    finally:
+        os.close(write_end)
+    err = done.stderr.decode()
+    assert done.returncode == 0, err
+    assert "Traceback" not in err and "internal error" not in err

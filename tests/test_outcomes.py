@@ -134,7 +134,7 @@ def test_overshoot_depth_and_duration():
         + schedule.hold_years
         + (recovery - schedule.floor) / up_rate
     )
-    assert outcome.overshoot_duration == pytest.approx(expected, rel=1e-9)
+    assert outcome.time_below_threshold == pytest.approx(expected, rel=1e-9)
 
 
 def test_divergence_is_its_own_outcome_never_recovered(tmp_path):

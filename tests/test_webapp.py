@@ -521,7 +521,7 @@ def test_frontier_view_draws_the_frontier_and_explains_an_irreversible_lake():
     expected = recovery_frontier(compute.scenario_of(working["data"]), depths=depths)
     drawn = [y for trace in figure.data for y in (trace.y or ())]
     assert any(
-        p.duration is not None and any(abs(p.duration - y) < 1e-12 for y in drawn if y)
+        p.hold_years is not None and any(abs(p.hold_years - y) < 1e-12 for y in drawn if y)
         for p in expected.points
     )
     tarnby = run_recompute(draft_of("tarnby-water.toml"))["working"]

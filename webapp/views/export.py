@@ -81,9 +81,7 @@ def build_export(what: str, fmt: str, working, shown, side_choice, sweep_figure_
         if what == "table":
             header, rows = table_rows(comparison)
             name = f"{stem}-comparison.csv"
-            return dict(
-                content=table_csv(header, rows), filename=name, type="text/csv"
-            ), name
+            return dict(content=table_csv(header, rows), filename=name, type="text/csv"), name
         if what == "diagram":
             figure = diagram_figure(scenario, comparison, shown)
         elif what == "series":

@@ -94,7 +94,7 @@ def run_frontier(set_progress, _clicks, working, depths=None):
     scenario = working_scenario(working)
     if scenario is None:
         return no_update, "Choose a scenario first."
-    from planner.frontier import recovery_frontier
+    from planner.frontier import ramp_words, recovery_frontier
 
     diagram, _ = compute.diagram_of(scenario)
     try:
@@ -104,7 +104,14 @@ def run_frontier(set_progress, _clicks, working, depths=None):
     except InputError as error:
         return placeholder_figure("No frontier for this scenario"), _problems(error)
     figure = frontier_figure(scenario, frontier)
-    figure.update_layout(height=520)
+    # The ramps change the least hold, so the figure says which ones it used.
+    used = ramp_words(frontier.family, frontier.unit).replace("; ", "<br>")
+    figure.update_layout(
+        height=560,
+        margin_t=110,
+        title_subtitle_text=used,
+        title_subtitle_font_size=12,
+    )
     return figure, ""
 
 
