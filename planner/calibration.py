@@ -38,6 +38,14 @@ Regression Analysis and Its Applications, ch. 2):
   (a full diagram per replicate only where the fitted diagram is not one bistable window).
   Replicates without a recovery threshold (no hysteresis window on their equilibrium curve) are
   counted and reported, never dropped silently.
+- Hand-off: the fitted scenario (``planner fit --out``) carries the fit's uncertainty as the
+  priors of the fitted parameters, one ``[uncertainty.joint]`` multivariate normal on the
+  fitting scale, centred at the estimates, with the covariance of the bootstrap replicates (so
+  an ensemble on it keeps their correlation and its median member is the fitted lake); the base
+  scenario's priors on those parameters are dropped, the others kept.
+- A fit the record does not pin down (flat directions of J, intervals spanning orders of
+  magnitude, an estimate at a bound of the search) opens its summary with that warning; its
+  verdict on the lake is reported as unreliable.
 
 Residuals are treated as independent; yearly records with serially correlated errors give
 intervals that are too narrow.
@@ -64,7 +72,7 @@ from planner.metrics import limits_for
 from planner.models import ModelSpec, System, compile_model
 from planner.monitoring import Record, same_unit
 from planner.progress import Progress, scaled, silent
-from planner.report import CAUTION
+from planner.report import CAUTION, NOT_REACHABLE
 from planner.scenario import Scenario, scenario_from_data
 from planner.schedules import ControlPath
 
@@ -482,7 +490,11 @@ class ThresholdEstimate:
     """The recovery or collapse threshold of the fitted model (control units) with intervals.
 
     ``interval`` by the delta method, ``bootstrap_interval`` from the replicates that have this
-    threshold; ``bootstrap_without`` counts the replicates that do not (no window of that side).
+    threshold within reach of the load; ``bootstrap_without`` counts the replicates that have
+    none (no window of that side), ``bootstrap_unreachable`` those whose threshold lies outside
+    what the load can do (below the lowest achievable load, outside the control range), as
+    :func:`planner.equilibria.compute_diagram` judges the fitted lake's own. Neither interval
+    ever reaches past the lowest achievable load or the range: such values are not loads.
     """
 
     kind: str
@@ -491,6 +503,8 @@ class ThresholdEstimate:
     bootstrap_interval: tuple[float, float] | None
     bootstrap_values: np.ndarray = field(repr=False)
     bootstrap_without: int = 0
+    bootstrap_unreachable: int = 0  # replicates whose threshold the load cannot reach
+    unreachable: str | None = None  # why the fitted lake's threshold is not reachable
 
     @property
     def best(self) -> tuple[tuple[float, float] | None, str]:
@@ -517,7 +531,10 @@ class Fit:
 
     ``residuals`` are on the fitting scale (log, or divided by each variable's scale ``weights``);
     ``sigma`` is their standard deviation s; ``covariance`` is s^2 (J^T J)^-1 on the fitting scale
-    (None when J^T J is singular); ``singular_values`` those of J.
+    (None when J^T J is singular); ``singular_values`` those of J. ``fitted_scenario`` carries the
+    fit's uncertainty as its ``[uncertainty.joint]`` prior (see :func:`_carry_uncertainty`).
+    ``identifiable`` is False when the record does not pin the fitted quantities down
+    (``unidentified`` says why, also among ``warnings``): the lake's verdict is then unreliable.
     """
 
     scenario: Scenario
@@ -544,6 +561,8 @@ class Fit:
     identifiable: bool
     converged: bool
     message: str
+    unidentified: tuple[str, ...] = ()  # the warnings that make the fit unidentifiable
+    priors_note: str = ""  # where the fitted scenario's priors came from (also in its description)
 
     @property
     def classification(self) -> str:
@@ -811,34 +830,39 @@ def fit_record(
 
     estimates = _estimates(layout, z, covariance, t_value, boot)
     thresholds = {}
+    low, high = fitted_scenario.control.range
+    reach = {"recovery": (fitted_scenario.control.least, high), "collapse": (low, high)}
     for kind in ("recovery", "collapse"):
         value = getattr(diagram, f"{kind}_threshold")
+        detail = getattr(diagram, kind)
         gradient = gradients.get(kind)
         interval = None
         if value is not None and gradient is not None and covariance is not None:
             spread = t_value * float(np.sqrt(max(gradient @ covariance @ gradient, 0.0)))
-            interval = (value - spread, value + spread)
+            interval = (max(value - spread, reach[kind][0]), min(value + spread, reach[kind][1]))
         samples = boot_thresholds.get(kind, np.empty(0))
+        within = (samples >= reach[kind][0]) & (samples <= reach[kind][1])
         thresholds[kind] = ThresholdEstimate(
             kind=kind,
             value=value,
             interval=interval,
-            bootstrap_interval=_percentiles(samples),
+            bootstrap_interval=_percentiles(samples[within]),
             bootstrap_values=samples,
             bootstrap_without=boot_without[kind],
+            bootstrap_unreachable=int(np.sum(~within)),
+            unreachable=None if detail is None or detail.reachable else detail.reason,
         )
 
     unidentified = _identifiability_warnings(layout, jacobian, estimates)
+    for estimate, low, high, value in zip(estimates, layout.lower, layout.upper, z, strict=True):
+        if np.isfinite(low) and value - low < 1e-6 or np.isfinite(high) and high - value < 1e-6:
+            unidentified.append(
+                f"{estimate.name} ended at a bound of the search ({estimate.value:.4g})"
+            )
     identifiable = not unidentified
     warnings = unidentified + _correlation_notes(layout, covariance) + warnings
     if not solution.success or solution.status <= 0:
         warnings.append(f"the least-squares search stopped early: {solution.message}")
-    for estimate, low, high, value in zip(estimates, layout.lower, layout.upper, z, strict=True):
-        if np.isfinite(low) and value - low < 1e-6 or np.isfinite(high) and high - value < 1e-6:
-            warnings.append(
-                f"{estimate.name} ended at a bound of the search ({estimate.value:.4g})"
-            )
-            identifiable = False
     if boot is not None and boot.succeeded < MIN_BOOTSTRAP_SUCCESS * boot.replicates:
         warnings.append(
             f"only {boot.succeeded} of {boot.replicates} bootstrap refits succeeded; "
@@ -850,6 +874,9 @@ def fit_record(
                 f"{threshold.bootstrap_without} of {boot.succeeded} bootstrap replicates have no "
                 f"{kind} threshold"
             )
+    fitted_scenario, priors_note = _carry_uncertainty(
+        fitted_scenario, observations, layout, z, boot, warnings
+    )
     report(1.0, "done")
     k = layout.k
     return Fit(
@@ -877,6 +904,8 @@ def fit_record(
         identifiable=identifiable,
         converged=bool(solution.success),
         message=str(solution.message),
+        unidentified=tuple(unidentified),
+        priors_note=priors_note,
     )
 
 
@@ -1249,8 +1278,10 @@ def replicate_thresholds(
     low, high = diagram.control_range
     width = high - low
     span = (low - EXTEND * width, high + EXTEND * width)
-    controls = {kind: _track_fold(diagram, values, fold, span) for kind, fold in folds.items()}
-    recovery, collapse = controls["recovery"], controls["collapse"]
+    tracked = {kind: _track_fold(diagram, values, fold, span) for kind, fold in folds.items()}
+    if not all(_stable_next_to_folds(system, x, u) for u, x in tracked.values()):
+        return None
+    recovery, collapse = tracked["recovery"][0], tracked["collapse"][0]
     crossed = recovery >= collapse  # False where either is NaN
     recovery = np.where(crossed, np.nan, recovery)
     collapse = np.where(crossed, np.nan, collapse)
@@ -1361,7 +1392,29 @@ def _track_fold(
         x[:, retry], u[retry], v[:, retry] = path
         converged[retry] = reached
         ok = _fold_found(diagram, system, (x, u, v), converged, start, span, orientation)
-    return np.where(ok, u, np.nan)
+    return np.where(ok, u, np.nan), x
+
+
+def _stable_next_to_folds(system: System, x: np.ndarray, u: np.ndarray) -> bool:
+    """Whether, at every member's fold (x (n, members), u (members,); NaN: no fold), all
+    eigenvalues but the fold's own zero one have negative real parts: then the stable run
+    reaches the fold and the fold is the threshold. Otherwise the regime may end earlier, at a
+    Hopf point (two or more variables), which only a full diagram locates."""
+    if system.n < 2:
+        return True
+    found = np.isfinite(u)
+    if not found.any():
+        return True
+    with np.errstate(
+        all="ignore"
+    ):  # every member (the parameters are per member), then those found
+        jac = np.moveaxis(system.jac(x, u), -1, 0)[found]
+    if not np.all(np.isfinite(jac)):
+        return False
+    eigenvalues = np.linalg.eigvals(jac)
+    own = np.argmin(np.abs(eigenvalues), axis=1)  # the fold's zero eigenvalue
+    others = np.delete(eigenvalues.real, own + eigenvalues.shape[1] * np.arange(len(own)))
+    return bool(np.all(others < 0))
 
 
 def _fold_found(
@@ -1595,6 +1648,148 @@ def _fitted_scenario(
     return scenario_from_data(data, source="fitted scenario")
 
 
+@dataclass(frozen=True, eq=False)
+class _JointPart:
+    """Some parameters of a joint prior: names, scales, centre (values) and covariance."""
+
+    parameters: tuple[str, ...]
+    scales: tuple[str, ...]
+    centre: tuple[float, ...]
+    covariance: np.ndarray
+
+
+def _joint_block(parts: Sequence[_JointPart], origin: str) -> dict[str, Any] | None:
+    """``[uncertainty.joint]`` data of independent parts (a block-diagonal covariance)."""
+    if not parts:
+        return None
+    size = sum(len(part.parameters) for part in parts)
+    covariance = np.zeros((size, size))
+    at = 0
+    for part in parts:
+        k = len(part.parameters)
+        covariance[at : at + k, at : at + k] = part.covariance
+        at += k
+    return {
+        "parameters": [n for part in parts for n in part.parameters],
+        "scales": [s for part in parts for s in part.scales],
+        "centre": [float(c) for part in parts for c in part.centre],
+        "covariance": covariance.tolist(),
+        "origin": origin,
+    }
+
+
+def _carry_uncertainty(
+    fitted: Scenario,
+    observations: Observations,
+    layout: _Layout,
+    z: np.ndarray,
+    boot: BootstrapSummary | None,
+    warnings: list[str],
+) -> tuple[Scenario, str]:
+    """The fitted scenario (whose ``[uncertainty]`` is still the base scenario's) with the fit's
+    uncertainty as the priors of the fitted parameters, and a note saying where they came from.
+
+    They get one ``[uncertainty.joint]`` prior: a multivariate normal on the fitting scale (the
+    logarithm of a positive parameter) centred at the estimates, so that the ensemble's median
+    member is the fitted lake, with the covariance of the successful bootstrap refits
+    (numpy.cov, n - 1 in the denominator), which keeps their correlation. The base scenario's
+    priors on fitted parameters go (they describe the first guess, not the fit); its priors on
+    the others stay, and the part of a base joint prior on unfitted parameters (its marginal)
+    stays as an independent block. Without a bootstrap (or with fewer than two successful
+    refits) the fitted parameters get no prior. Where the priors came from is said in the
+    description and in the joint prior's ``origin``.
+    """
+    names = layout.names
+    data = fitted.model_dump(mode="json", exclude_none=True)
+    block = data.pop("uncertainty", None)
+    priors = [] if block is None else block.pop("priors", [])
+    dropped = [p["parameter"] for p in priors if p["parameter"] in names]
+    base_parts = []
+    old = None if block is None else block.pop("joint", None)
+    if old is not None:
+        dropped += [n for n in old["parameters"] if n in names]
+        own = [i for i, n in enumerate(old["parameters"]) if n not in names]
+        if own:
+            matrix = np.array(old["covariance"], dtype=float)[np.ix_(own, own)]
+            base_parts.append(
+                _JointPart(
+                    tuple(old["parameters"][i] for i in own),
+                    tuple(old["scales"][i] for i in own),
+                    tuple(old["centre"][i] for i in own),
+                    matrix,
+                )
+            )
+    record = observations.record
+    fit_to = f"the fit to {record.source} ({record.times[0]:g} to {record.times[-1]:g})"
+    listed = ", ".join(names)
+    dropped_text = ", ".join(dict.fromkeys(dropped))
+    replaced = (
+        f" They replace the base scenario's priors on {dropped_text} (which described the first "
+        "guess, not the fit)."
+        if dropped
+        else ""
+    )
+    removed = (
+        f" The base scenario's priors on {dropped_text} were dropped (they described the first "
+        "guess, not the fit)."
+        if dropped
+        else ""
+    )
+    fit_part = None
+    if boot is not None and boot.succeeded >= 2:
+        theta, _ = layout.natural(z)
+        samples = boot.samples[:, : layout.k]
+        on_scale = np.where(layout.log_parameter, np.log(samples), samples)
+        covariance = np.atleast_2d(np.cov(on_scale, rowvar=False))
+        scales = tuple("log" if log else "linear" for log in layout.log_parameter)
+        fit_part = _JointPart(names, scales, tuple(theta), 0.5 * (covariance + covariance.T))
+        logs = [n for n, scale in zip(names, scales, strict=True) if scale == "log"]
+        scale_text = "the natural logs of " + ", ".join(logs) if logs else "the values"
+        if logs and len(logs) < len(names):
+            scale_text += " (the others as they are)"
+        note = (
+            f"Priors of {listed} ([uncertainty.joint]): a multivariate normal of {scale_text}, "
+            f"centred at the fitted values, with the covariance of {boot.succeeded} bootstrap "
+            f"refits (of {boot.replicates}) of {fit_to}, which keeps their correlation."
+            f"{replaced} Members share the fitted model's state at the end of the record."
+        )
+    elif boot is not None:
+        note = (
+            f"Only {boot.succeeded} of {boot.replicates} bootstrap refits of {fit_to} succeeded, "
+            f"too few for a covariance: {listed} carry no uncertainty from the fit here.{removed}"
+        )
+    else:
+        note = (
+            f"No bootstrap was run for {fit_to}, so {listed} carry no uncertainty from the fit "
+            f"here; run planner fit with --bootstrap N to carry it.{removed}"
+        )
+    description = data.get("description", "")
+
+    def scenario_with(parts: list[_JointPart], note: str, origin: str) -> tuple[Scenario, str]:
+        out = {**data, "description": f"{description}\n\n{note}".strip()}
+        kept = [p for p in priors if p["parameter"] not in names]
+        joint = _joint_block(parts, origin)
+        if block is not None or joint is not None:
+            out["uncertainty"] = {**(block or {}), "priors": kept}
+            if joint is not None:
+                out["uncertainty"]["joint"] = joint
+        return scenario_from_data(out, source="fitted scenario"), note
+
+    base_origin = "" if old is None else old.get("origin", "")
+    if fit_part is None:
+        return scenario_with(base_parts, note, base_origin)
+    try:
+        return scenario_with([fit_part, *base_parts], note, f"{note} {base_origin}".strip())
+    except InputError as error:
+        reasons = "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
+        warnings.append(
+            f"the fit's uncertainty could not be written as priors ({reasons}); "
+            f"the fitted scenario has no prior on {listed}"
+        )
+        note = f"{listed} carry no prior from the fit: {reasons}.{removed}"
+        return scenario_with(base_parts, note, base_origin)
+
+
 # ---------------------------------------------------------------------------------------------
 # Plain data for JSON and text
 
@@ -1630,6 +1825,9 @@ def fit_json(fit: Fit) -> dict[str, Any]:
             "delta_interval": _pair(threshold.interval),
             "bootstrap_interval": _pair(threshold.bootstrap_interval),
             "bootstrap_without": threshold.bootstrap_without,
+            "bootstrap_unreachable": threshold.bootstrap_unreachable,
+            "reachable": threshold.unreachable is None,
+            "reason": threshold.unreachable,
         }
     held = [p for p in scenario.spec.parameter_names if p not in fit.fitted]
     parameters = fit.fitted_scenario.model.parameters
@@ -1660,6 +1858,8 @@ def fit_json(fit: Fit) -> dict[str, Any]:
         "end_control": fit.end_control,
         "thresholds": thresholds,
         "classification": fit.classification,
+        "classification_reliable": fit.identifiable,
+        "headline": fit_headline(fit),
         "residual": {"sigma": fit.sigma, "dof": fit.dof, "observations": fit.residuals.size},
         "bootstrap": None
         if boot is None
@@ -1679,12 +1879,33 @@ def _interval_text(interval: tuple[float, float] | None) -> str:
     return "not determined" if interval is None else f"{interval[0]:.4g} to {interval[1]:.4g}"
 
 
+UNRELIABLE = "unreliable: the record does not pin the fitted parameters down"
+
+
+def fit_headline(fit: Fit) -> str:
+    """The first thing to read about a fit: the lake's verdict, or, when the record does not
+    pin the fitted parameters down, a warning that the verdict is unreliable."""
+    if fit.identifiable:
+        return f"The fitted lake is {fit.classification}."
+    return (
+        "WARNING: this monitoring record does not pin down the fitted parameters, so it cannot "
+        "tell whether the lake is reversible, hysteretic or irreversible. The verdict "
+        f"({fit.classification}) and the thresholds of this fit are not findings: fit fewer "
+        "parameters or add monitoring data before deciding on them."
+    )
+
+
 def fit_text(fit: Fit, *, caution: bool = True) -> str:
-    """A terminal summary of a fit: estimates with intervals, thresholds, warnings."""
+    """A terminal summary of a fit: estimates with intervals, thresholds, warnings; a fit that
+    is not identifiable opens with the warning (:func:`fit_headline`), not with a verdict."""
     scenario = fit.scenario
     record = fit.observations.record
     unit = scenario.control.unit
-    lines = [
+    unreliable = "" if fit.identifiable else f" ({UNRELIABLE})"
+    lines = []
+    if not fit.identifiable:
+        lines += [fit_headline(fit), *(f"  why: {reason}" for reason in fit.unidentified), ""]
+    lines += [
         f"{scenario.name}: fitted to {record.source} "
         f"({record.times[0]:g} to {record.times[-1]:g}, {fit.residuals.size} observed values"
         f"{', logarithms' if fit.log else ''})",
@@ -1700,19 +1921,21 @@ def fit_text(fit: Fit, *, caution: bool = True) -> str:
     least = scenario.control.least
     for kind, threshold in fit.thresholds.items():
         best, method = threshold.best
-        value = "none" if threshold.value is None else f"{threshold.value:.4g} {unit}"
-        lines.append(f"{kind} threshold: {value}; 95% interval {_interval_text(best)} ({method})")
-        if kind == "recovery" and threshold.value is not None and threshold.value < least:
+        if threshold.unreachable is not None:
+            value = f"{NOT_REACHABLE['undesired' if kind == 'recovery' else 'desired']}"
+            lines.append(f"{kind} threshold: {value} ({threshold.unreachable}){unreliable}")
+        else:
+            value = "none" if threshold.value is None else f"{threshold.value:.4g} {unit}"
             lines.append(
-                "  below the lowest achievable load"
-                + (
-                    " (below zero: the turbid state persists at any load)"
-                    if threshold.value < 0
-                    else ""
-                )
-                + "; load cuts alone cannot bring the fitted lake back"
+                f"{kind} threshold: {value}; 95% interval {_interval_text(best)} ({method})"
             )
-    lines.append(f"classification of the fitted lake: {fit.classification}")
+        if threshold.bootstrap_unreachable and fit.bootstrap is not None:
+            where = "below the lowest achievable load" if kind == "recovery" else "out of range"
+            lines.append(
+                f"  in {threshold.bootstrap_unreachable} of {fit.bootstrap.succeeded} replicates "
+                f"it lies {where}: not reachable by load cuts alone (left out of the interval)"
+            )
+    lines.append(f"classification of the fitted lake: {fit.classification}{unreliable}")
     if fit.bootstrap is not None:
         boot = fit.bootstrap
         counts = ", ".join(f"{k} {v}" for k, v in boot.classifications.items() if v)
@@ -1726,9 +1949,10 @@ def fit_text(fit: Fit, *, caution: bool = True) -> str:
                 f"the lowest achievable load ({least:g} {unit}): load cuts alone may not suffice"
             )
     lines.append(f"residual standard deviation: {fit.sigma:.4g} ({fit.dof} degrees of freedom)")
-    if fit.warnings:
+    others = [w for w in fit.warnings if w not in fit.unidentified]  # those shown at the top
+    if others:
         lines.append("")
-        lines += [f"warning: {w}" for w in fit.warnings]
+        lines += [f"warning: {w}" for w in others]
     if caution:
         lines += ["", CAUTION]
     return "\n".join(lines)

@@ -28,14 +28,40 @@ def command(name: str):
     return register
 
 
-def _write(path: str, text: str) -> None:
-    target = Path(path)
-    try:
-        target.parent.mkdir(parents=True, exist_ok=True)
-        target.write_text(text, encoding="utf-8")
-    except OSError as error:
-        raise InputError([Problem(path, "(output)", f"cannot write: {error.strerror}")]) from None
-    print(f"wrote {target}", file=sys.stderr)
+OUTPUT_OPTIONS = ("html", "csv", "out", "save_to")
+"""Options that name a file to write: checked before the work starts, never silently
+replaced (``--force`` replaces them)."""
+
+
+def _write(args: argparse.Namespace, option: str, text: str) -> None:
+    """Write the file named by ``option`` atomically; an existing one only with --force."""
+    from planner.textfiles import write_user_text
+
+    path = getattr(args, option)
+    write_user_text(path, text, overwrite=args.force)
+    print(f"wrote {path}", file=sys.stderr)
+
+
+def _check_outputs(args: argparse.Namespace) -> None:
+    """Every output file asked for can be written, before any work (a long fit or search would
+    otherwise fail only at its end)."""
+    from planner.textfiles import check_output
+
+    for option in OUTPUT_OPTIONS:
+        path = getattr(args, option, None)
+        if path:
+            check_output(path, "--" + option.replace("_", "-"), overwrite=args.force)
+
+
+def _add_force(sub: argparse._SubParsersAction) -> None:
+    """``--force`` on every command that writes files."""
+    for parser in sub.choices.values():
+        if any(action.dest in OUTPUT_OPTIONS for action in parser._actions):
+            parser.add_argument(
+                "--force",
+                action="store_true",
+                help="replace output files that exist already (default: keep them and stop)",
+            )
 
 
 def _progress():
@@ -80,7 +106,8 @@ def _diagram(args: argparse.Namespace) -> int:
         figure = hysteresis_figure(scenario, diagram, standing=standing)
         text = diagram_text(scenario, diagram, standing, caution=False)
         _write(
-            args.html,
+            args,
+            "html",
             page(
                 scenario.name,
                 [
@@ -108,6 +135,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--html", metavar="OUT", help="write an HTML hysteresis diagram")
     for extend in EXTENSIONS:
         extend(sub)
+    _add_force(sub)
     return parser
 
 
@@ -119,6 +147,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
+        _check_outputs(args)
         return COMMANDS[args.command](args)
     except InputError as error:
         for problem in error.problems:
@@ -153,9 +182,9 @@ def _compare(args: argparse.Namespace) -> int:
     else:
         print(comparison_text(comparison))
     if args.csv:
-        _write(args.csv, table_csv(*comparison_rows(comparison)))
+        _write(args, "csv", table_csv(*comparison_rows(comparison)))
     if args.html:
-        _write(args.html, comparison_briefing(comparison))
+        _write(args, "html", comparison_briefing(comparison))
     return EXIT_OK
 
 
@@ -168,8 +197,6 @@ def _sweep(args: argparse.Namespace) -> int:
     from planner.scenario import load_scenario
 
     scenario = load_scenario(args.file)
-    if args.step is not None and not args.step > 0:
-        raise InputError([Problem("--step", "step", "must be a positive number")])
     from planner.sweep import sweep_for
 
     sweep = sweep_for(scenario, step=args.step, progress=_progress())
@@ -181,7 +208,8 @@ def _sweep(args: argparse.Namespace) -> int:
     if args.html:
         figure = sweep_figure(scenario, sweep, diagram_for(scenario))
         _write(
-            args.html,
+            args,
+            "html",
             page(
                 scenario.name,
                 [
@@ -309,7 +337,8 @@ def _frontier(args: argparse.Namespace) -> int:
     print(json.dumps(frontier_json(frontier), indent=2) if args.json else frontier_text(frontier))
     if args.html:
         _write(
-            args.html,
+            args,
+            "html",
             page(
                 f"Recovery frontier: {scenario.name}",
                 [
@@ -328,11 +357,9 @@ def _search(args: argparse.Namespace) -> int:
     from planner.figures import frontier_figure, pareto_figure
     from planner.frontier import recovery_frontier
     from planner.scenario import load_scenario
-    from planner.search import check_new_file, save_found, search, search_json, search_text
+    from planner.search import save_found, search, search_json, search_text
 
     scenario = load_scenario(args.file)
-    if args.save_to:
-        check_new_file(args.save_to)
     result = search(
         scenario,
         relax_to=args.relax_to,
@@ -345,12 +372,13 @@ def _search(args: argparse.Namespace) -> int:
     if args.save_to:
         if result.cheapest is None:
             raise InputError([Problem(args.file, "schedules", "no admissible schedule to save")])
-        _, saved = save_found(scenario, result.cheapest, args.save_to)
+        _, saved = save_found(scenario, result.cheapest, args.save_to, overwrite=args.force)
         print(f"wrote {args.save_to} with the schedule {saved.name!r}", file=sys.stderr)
     if args.html:
         frontier = recovery_frontier(scenario, relax_to=result.relax_to, source=args.file)
         _write(
-            args.html,
+            args,
+            "html",
             page(
                 f"Cheapest recovering schedules: {scenario.name}",
                 [
@@ -455,11 +483,12 @@ def _fit(args: argparse.Namespace) -> int:
     )
     print(json.dumps(fit_json(fit), indent=2) if args.json else fit_text(fit))
     if args.out:
-        save_scenario(fit.fitted_scenario, args.out)
-        print(f"wrote {args.out} (the fitted scenario)", file=sys.stderr)
+        save_scenario(fit.fitted_scenario, args.out, overwrite=args.force)
+        print(f"wrote {args.out} (the fitted scenario). {fit.priors_note}", file=sys.stderr)
     if args.html:
         _write(
-            args.html,
+            args,
+            "html",
             page(
                 f"Fit to monitoring data: {scenario.name}",
                 [
@@ -487,7 +516,8 @@ def _signals(args: argparse.Namespace) -> int:
     print(json.dumps(signals_json(signals), indent=2) if args.json else signals_text(signals))
     if args.html:
         _write(
-            args.html,
+            args,
+            "html",
             page(
                 f"Early-warning indicators: {args.data}",
                 [
@@ -546,7 +576,7 @@ def _ensemble(args: argparse.Namespace) -> int:
     )
     print(json.dumps(ensemble_json(ensemble), indent=2) if args.json else ensemble_text(ensemble))
     if args.html:
-        _write(args.html, ensemble_briefing(ensemble))
+        _write(args, "html", ensemble_briefing(ensemble))
     return EXIT_OK
 
 

@@ -1,9 +1,11 @@
 """Ensembles: how likely each schedule is to bring the lake back, when the model's parameters are
 uncertain, yearly loads swing with wet and dry years, and the state itself is noisy.
 
-Each member draws its parameters from the priors of ``[uncertainty]``, its yearly load factors
-and (with process noise) its Brownian path; every schedule is then run for every member at once,
-vectorised over members, in chunks so memory stays bounded.
+Each member draws its parameters from the priors of ``[uncertainty]`` (independent priors, and
+the multivariate normal of ``[uncertainty.joint]`` for correlated ones, e.g. written by
+``planner fit``), its yearly load factors and (with process noise) its Brownian path; every
+schedule is then run for every member at once, vectorised over members, in chunks so memory
+stays bounded.
 
 Numerical schemes: every member runs through the one engine (:mod:`planner.integrate`), split at
 every kink of the control path, every action and every calendar year (where the load factor
@@ -45,8 +47,9 @@ method="wilson") also gives.
 from __future__ import annotations
 
 import math
+import warnings
 import zlib
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from statistics import NormalDist
 from typing import Any
@@ -64,6 +67,7 @@ from planner.progress import Progress, scaled, silent
 from planner.scenario import Scenario, Schedule, Uncertainty
 from planner.scenario.uncertainty import (
     MAX_MEMBERS,
+    JointPrior,
     LognormalPrior,
     NormalPrior,
     TriangularPrior,
@@ -81,7 +85,9 @@ QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
 FAN_MEMBERS = 20_000  # the fan chart's quantiles come from the first members (all if fewer)
 FIRST_PASSAGE_YEARS = 1.0  # first-passage runs draw their noise this many time units at a time
 
-STREAM_PARAMETERS, STREAM_LOADS, STREAM_NOISE = 1, 2, 3
+JOINT_REDRAWS = 100  # rounds of redrawing joint-prior members below a physical bound
+
+STREAM_PARAMETERS, STREAM_LOADS, STREAM_NOISE, STREAM_JOINT = 1, 2, 3, 4
 __all__ = ["VERDICTS", "first_passage_times", "run_ensemble", "wilson_interval"]
 
 SCHEME_DETERMINISTIC = "Dormand-Prince 8(5,3), adaptive, shared step"
@@ -137,17 +143,96 @@ def _inverse_cdf(prior, p: np.ndarray) -> np.ndarray:
     return x
 
 
-def draw_parameters(uncertainty: Uncertainty, start: int, stop: int) -> dict[str, np.ndarray]:
-    """Each prior's values for members start..stop-1 (truncated priors by inverse CDF)."""
+def draw_parameters(
+    uncertainty: Uncertainty,
+    start: int,
+    stop: int,
+    *,
+    bounds: Mapping[str, tuple[float, bool]] | None = None,
+) -> dict[str, np.ndarray]:
+    """Each prior's values for members start..stop-1: independent priors by inverse CDF
+    (truncated ones too), the joint prior as a multivariate normal on its scales (draws below a
+    parameter's physical bound in ``bounds``, name -> (lower, strict), redrawn)."""
     priors = uncertainty.priors
-    if not priors:
-        return {}
-    blocks = [
-        _generator(uncertainty.seed, STREAM_PARAMETERS, b).random((len(priors), RNG_BLOCK))
-        for b in _blocks(start, stop)
-    ]
-    uniforms = _sliced(blocks, start, stop)
-    return {prior.parameter: _inverse_cdf(prior, uniforms[j]) for j, prior in enumerate(priors)}
+    drawn: dict[str, np.ndarray] = {}
+    if priors:
+        blocks = [
+            _generator(uncertainty.seed, STREAM_PARAMETERS, b).random((len(priors), RNG_BLOCK))
+            for b in _blocks(start, stop)
+        ]
+        uniforms = _sliced(blocks, start, stop)
+        drawn = {
+            prior.parameter: _inverse_cdf(prior, uniforms[j]) for j, prior in enumerate(priors)
+        }
+    joint = uncertainty.joint
+    if joint is not None:
+        factor = _joint_factor(joint)
+        blocks = [
+            _joint_block(joint, factor, bounds or {}, _generator(uncertainty.seed, STREAM_JOINT, b))
+            for b in _blocks(start, stop)
+        ]
+        values = _sliced(blocks, start, stop)
+        drawn.update(zip(joint.parameters, values, strict=True))
+    return drawn
+
+
+def _joint_factor(joint: JointPrior) -> np.ndarray:
+    """A matrix A with A A^T = the joint covariance, from its eigendecomposition (unlike a
+    Cholesky factor it exists for a singular matrix too: perfectly correlated parameters, or a
+    point mass)."""
+    matrix = np.array(joint.covariance, dtype=float)
+    eigenvalues, vectors = np.linalg.eigh(0.5 * (matrix + matrix.T))
+    return vectors * np.sqrt(np.clip(eigenvalues, 0.0, None))
+
+
+def _joint_block(
+    joint: JointPrior,
+    factor: np.ndarray,
+    bounds: Mapping[str, tuple[float, bool]],
+    generator: np.random.Generator,
+) -> np.ndarray:
+    """RNG_BLOCK draws (k, RNG_BLOCK) of the joint prior from one generator: normal on each
+    parameter's scale, mapped to values; members below a physical bound draw again from the
+    same generator (rejection: the normal truncated to the physical region)."""
+    centre = np.array(joint.centre, dtype=float)
+    log = np.array([scale == "log" for scale in joint.scales])
+    mean = np.where(log, np.log(np.where(log, centre, 1.0)), centre)[:, None]
+    lower = np.array([bounds.get(name, (-np.inf, False))[0] for name in joint.parameters])
+    strict = np.array([bounds.get(name, (-np.inf, False))[1] for name in joint.parameters])
+
+    def values(count: int) -> np.ndarray:
+        normal = mean + factor @ generator.standard_normal((centre.size, count))
+        return np.where(log[:, None], np.exp(normal), normal)
+
+    def outside(x: np.ndarray) -> np.ndarray:
+        below = np.where(strict[:, None], x <= lower[:, None], x < lower[:, None])
+        return np.any(below, axis=0)
+
+    drawn = values(RNG_BLOCK)
+    for _ in range(JOINT_REDRAWS):
+        redo = np.nonzero(outside(drawn))[0]
+        if redo.size == 0:
+            return drawn
+        drawn[:, redo] = values(redo.size)
+    raise InputError(
+        [
+            Problem(
+                "[uncertainty]",
+                "uncertainty.joint",
+                f"draws keep falling below a physical bound after {JOINT_REDRAWS} redraws; "
+                "centre the prior inside the physical range or use log scales",
+            )
+        ]
+    )
+
+
+def physical_bounds(scenario: Scenario) -> dict[str, tuple[float, bool]]:
+    """Each bounded model parameter's physical lower bound and whether it is strict."""
+    return {
+        info.name: (float(info.lower), info.strict)
+        for info in scenario.model_info.parameters
+        if info.lower is not None
+    }
 
 
 def draw_load_factors(
@@ -252,7 +337,7 @@ def _run_chunk(task: _Task, progress: Progress = silent) -> list[_MemberResults]
     start, stop = task.start, task.stop
     m = stop - start
     system = scenario.system()
-    parameters = draw_parameters(uncertainty, start, stop)
+    parameters = draw_parameters(uncertainty, start, stop, bounds=physical_bounds(scenario))
     if parameters:
         system = system.with_parameters(**parameters)
     factors = draw_load_factors(uncertainty, settings.years, start, stop)
@@ -417,7 +502,9 @@ def _summarise(
     if threshold is not None:
         met = np.where(np.isfinite(meets_at), meets_at, np.inf)
         meets_by = np.mean(met[None, :] <= years[:, None], axis=1)
-    with np.errstate(all="ignore"):
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        # years where every member has run away have no quantiles: NaN, not a warning
+        warnings.simplefilter("ignore", RuntimeWarning)
         fan_values = (
             np.nanquantile(samples, QUANTILES, axis=1)
             if samples.shape[1]

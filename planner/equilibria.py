@@ -697,7 +697,16 @@ def compute_diagram(
     for line, closed in zip(traced, closed_flags, strict=True):
         states = line[:, :-1] * scale[:-1]
         controls_b = line[:, -1] * scale[-1]
-        jac = np.moveaxis(system.jac(states.T, controls_b), -1, 0)
+        with np.errstate(all="ignore"):
+            jac = np.moveaxis(system.jac(states.T, controls_b), -1, 0)
+        finite = np.all(np.isfinite(jac), axis=(1, 2))
+        if not finite.all():
+            # Where the model overflows (a huge exponent or rate far out on a curve) its
+            # stability cannot be judged: the curve is kept up to the first such point.
+            first = int(np.argmin(finite))
+            if first < 2:
+                continue
+            states, controls_b, jac = states[:first], controls_b[:first], jac[:first]
         eigenvalues = np.linalg.eigvals(jac)
         leading = np.max(eigenvalues.real, axis=1)
         stable = leading < 0

@@ -501,6 +501,7 @@ def sweep_json(scenario, sweep) -> dict[str, Any]:
             for jump in sweep.jumps
         ],
         "unsettled_steps": sweep.unsettled,
+        "diverged_at": sweep.diverged_at,
     }
 
 
@@ -519,6 +520,11 @@ def sweep_text(scenario, sweep, *, caution: bool = True) -> str:
         )
     if sweep.unsettled:
         lines.append(f"  {sweep.unsettled} steps had not settled by the cap.")
+    if sweep.diverged_at is not None:
+        lines.append(
+            f"  Diverged: at {sweep.diverged_at:.4g} {unit} the state ran away (left the "
+            "physical range or stopped being a finite number); the sweep stops there."
+        )
     if caution:
         lines += ["", CAUTION]
     return "\n".join(lines)

@@ -26,7 +26,6 @@ import math
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -383,24 +382,18 @@ def with_schedule(scenario: Scenario, schedule: Schedule, source: str = "<scenar
     return scenario_from_data(data, source)
 
 
-def check_new_file(path: str | os.PathLike[str]) -> None:
-    """Fail early (before a long search) when ``path`` cannot take a new scenario file: it
-    exists already, or its folder does not. ``save_scenario`` checks again when writing."""
-    target = Path(path)
-    if target.exists():
-        raise InputError([Problem(str(target), "(file)", "exists already; choose another name")])
-    if not target.parent.is_dir():
-        raise InputError([Problem(str(target), "(file)", "its folder does not exist")])
-
-
 def save_found(
-    scenario: Scenario, candidate: Candidate, path: str | os.PathLike[str]
+    scenario: Scenario,
+    candidate: Candidate,
+    path: str | os.PathLike[str],
+    *,
+    overwrite: bool = False,
 ) -> tuple[Scenario, Schedule]:
-    """Write the scenario with the candidate appended to a new file (atomic; refuses to replace
-    an existing file). Returns the new scenario and the schedule as saved."""
+    """Write the scenario with the candidate appended (atomic; refuses to replace an existing
+    file unless ``overwrite``). Returns the new scenario and the schedule as saved."""
     schedule = found_schedule(scenario, candidate)
     new = with_schedule(scenario, schedule, str(path))
-    save_scenario(new, path)
+    save_scenario(new, path, overwrite=overwrite)
     return new, schedule
 
 

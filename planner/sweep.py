@@ -9,11 +9,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from planner.equilibria import follow_branch
+from planner.errors import InputError, Problem
 from planner.integrate import Status, settle, system_limits
 from planner.models import System
 from planner.progress import Progress, silent
 
 DEFAULT_STEPS = 200
+MOST_STEPS = 5000  # each step settles the lake: a step so small would take hours, so it is refused
 JUMP_TOLERANCE = 1e-3  # scaled distance between the settled state and the followed equilibrium
 
 
@@ -37,11 +39,16 @@ class Sweep:
     jumps: list[Jump]
     step: float
     unsettled: int  # steps whose state had not settled by the cap (shown, but suspect)
+    diverged_at: float | None = None  # the control value where the state ran away, if it did
 
 
 def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
+    """One leg of the sweep; stops where the state runs away (returned as the last value)."""
     states, jumps, unsettled = [], [], 0
     previous_u = None
+    diverged_at = None
+    if len(controls) == 0:
+        return controls, np.empty((len(x), 0)), jumps, unsettled, x, diverged_at
     width = float(abs(controls[-1] - controls[0])) or 1.0
     magnitude = np.maximum(np.abs(x), 1e-3)
     for i, u in enumerate(controls):
@@ -51,6 +58,7 @@ def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
         limits = system_limits(system, limit)
         run = settle(system, x, float(u), cap=cap, limits=limits)
         if run.status is Status.DIVERGED:
+            diverged_at = float(u)
             break
         unsettled += run.status is not Status.SETTLED
         end = run.final_state[:, 0]
@@ -65,7 +73,8 @@ def _leg(system, x, controls, cap, limit, direction, progress, offset, share):
         previous_u = u
         progress(offset + share * (i + 1) / len(controls), f"sweeping {direction}: {u:.4g}")
     done = len(states)
-    return controls[:done], np.array(states).T.reshape(len(x), done), jumps, unsettled, x
+    states_array = np.array(states).T.reshape(len(x), done)
+    return controls[:done], states_array, jumps, unsettled, x, diverged_at
 
 
 def quasi_static_sweep(
@@ -86,16 +95,51 @@ def quasi_static_sweep(
     count = int(np.floor((high - low) / step + 1e-9)) + 1
     up = low + step * np.arange(count)
     x = np.asarray(start_state, dtype=float)
-    cu, su, jumps_up, unsettled_up, x = _leg(system, x, up, cap, limit, "up", progress, 0.0, 0.5)
+    cu, su, jumps_up, unsettled_up, x, diverged_up = _leg(
+        system, x, up, cap, limit, "up", progress, 0.0, 0.5
+    )
     down = up[: len(cu)][::-1]
-    cd, sd, jumps_down, unsettled_down, _ = _leg(
+    cd, sd, jumps_down, unsettled_down, _, diverged_down = _leg(
         system, x, down, cap, limit, "down", progress, 0.5, 0.5
     )
     progress(1.0, "done")
-    return Sweep(cu, su, cd, sd, jumps_up + jumps_down, step, unsettled_up + unsettled_down)
+    return Sweep(
+        cu,
+        su,
+        cd,
+        sd,
+        jumps_up + jumps_down,
+        step,
+        unsettled_up + unsettled_down,
+        diverged_up if diverged_up is not None else diverged_down,
+    )
 
 
-def sweep_for(scenario, *, step: float | None = None, progress: Progress = silent) -> Sweep:
+def checked_step(step: float | None, scenario, source: str = "--step") -> float | None:
+    """The sweep step asked for (None: the default), checked before any work: positive and
+    giving at most MOST_STEPS steps across the control range; else InputError naming it."""
+    if step is None:
+        return None
+    low, high = scenario.control.range
+    step = float(step)
+    if not step > 0 or not (high - low) / step <= MOST_STEPS:
+        raise InputError(
+            [
+                Problem(
+                    source,
+                    "step",
+                    f"must be a positive number of {scenario.control.unit or 'control units'}, "
+                    f"at least {(high - low) / MOST_STEPS:.3g} (at most {MOST_STEPS} steps)",
+                )
+            ]
+        )
+    return step
+
+
+def sweep_for(
+    scenario, *, step: float | None = None, progress: Progress = silent, source: str = "--step"
+) -> Sweep:
+    step = checked_step(step, scenario, source)
     return quasi_static_sweep(
         scenario.system(),
         scenario.control.range,

@@ -29,6 +29,23 @@ def read_user_text(path: str | os.PathLike[str], limit: int, *, encoding: str = 
 
 
 TEMPORARY_SUFFIX = ".tmp"
+STALE_SECONDS = 600.0  # a temporary this old belongs to no save still running: removed
+
+
+def clean_stale_temporaries(folder: str | os.PathLike[str]) -> int:
+    """Remove the temporaries of saves that were killed before their rename (hidden
+    ``.NAME.*.tmp`` files older than STALE_SECONDS); returns how many went."""
+    import time
+
+    removed = 0
+    cutoff = time.time() - STALE_SECONDS
+    with contextlib.suppress(OSError):
+        for candidate in Path(folder).glob(f".*{TEMPORARY_SUFFIX}"):
+            with contextlib.suppress(OSError):
+                if candidate.is_file() and candidate.stat().st_mtime < cutoff:
+                    candidate.unlink()
+                    removed += 1
+    return removed
 
 
 def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool = False) -> Path:
@@ -38,6 +55,7 @@ def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool 
     gets the usual permissions (those a plain ``open`` would give under the user's umask).
     """
     path = Path(path)
+    clean_stale_temporaries(path.parent)
     exists = Problem(str(path), "(file)", "exists already; choose another name (or overwrite)")
     if path.exists() and not overwrite:
         raise InputError([exists])
@@ -91,3 +109,20 @@ def _sync_folder(folder: Path) -> None:
             os.fsync(descriptor)
         finally:
             os.close(descriptor)
+
+
+def check_output(path: str | os.PathLike[str], option: str, *, overwrite: bool = False) -> None:
+    """Fail early, before any long work, when ``path`` cannot take the output asked with
+    ``option`` (e.g. "--html"): its folder does not exist or is not writable, it names a folder,
+    or it exists already and ``overwrite`` is not set."""
+    target = Path(path)
+    folder = target.parent
+    if target.is_dir():
+        raise InputError([Problem(str(target), option, "is a folder; give a file name")])
+    if target.exists() and not overwrite:
+        reason = "exists already; choose another name, or add --force to replace it"
+        raise InputError([Problem(str(target), option, reason)])
+    if not folder.is_dir():
+        raise InputError([Problem(str(target), option, f"its folder {folder} does not exist")])
+    if not os.access(folder, os.W_OK):
+        raise InputError([Problem(str(target), option, f"its folder {folder} is not writable")])

@@ -10,6 +10,7 @@ import contextlib
 import importlib.util
 import io
 import json
+import tomllib
 from functools import cache
 from pathlib import Path
 
@@ -20,17 +21,22 @@ from scipy.integrate import solve_ivp
 from scipy.optimize import brentq, least_squares
 
 from planner.calibration import (
+    UNRELIABLE,
     default_fitted,
+    fit_json,
     fit_record,
+    fit_text,
     observations_for,
     replicate_thresholds,
 )
 from planner.cli import main
+from planner.ensemble import VERDICTS, draw_parameters, run_ensemble
 from planner.equilibria import diagram_for
 from planner.errors import InputError
 from planner.integrate import Problem, Save, integrate
 from planner.monitoring import parse_record, read_record
-from planner.scenario import load_scenario, parse_scenario
+from planner.outcomes import compare
+from planner.scenario import load_scenario, parse_scenario, scenario_from_data
 from planner.schedules import ControlPath
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -319,13 +325,23 @@ def test_batched_bootstrap_gives_the_intervals_of_serial_scipy_refits():
         "recovery": fit.thresholds["recovery"].bootstrap_interval,
         "collapse": fit.thresholds["collapse"].bootstrap_interval,
     }
+    # a threshold the load cannot reach (below the lowest achievable load, out of range) is
+    # no load: left out of the interval and counted apart
+    reachable = {
+        "recovery": (folds[:, 0] >= least) & (folds[:, 0] <= high),
+        "collapse": (folds[:, 1] >= low) & (folds[:, 1] <= high),
+    }
     columns = {"s": samples[:, 0], "r": samples[:, 1], "initial P": samples[:, 2]}
-    columns |= {"recovery": folds[:, 0], "collapse": folds[:, 1]}
+    columns |= {"recovery": folds[reachable["recovery"], 0]}
+    columns |= {"collapse": folds[reachable["collapse"], 1]}
     for name, values in columns.items():
         reference = np.percentile(values, [2.5, 97.5])
         assert ours[name] == pytest.approx(reference, rel=5e-4), name
     for kind in ("recovery", "collapse"):
         assert fit.thresholds[kind].bootstrap_without == 0
+        unreachable = int(np.sum(~reachable[kind]))
+        assert fit.thresholds[kind].bootstrap_unreachable == unreachable
+        assert fit.thresholds[kind].bootstrap_interval[0] >= (least if kind == "recovery" else low)
 
 
 def _replace_parameters(scenario, values):
@@ -341,12 +357,14 @@ def _replace_parameters(scenario, values):
         # Replicates of a fit of Alder Mere, then a lake past the cusp (no fold at all), one
         # whose recovery fold lies below the searched loads, and a strongly hysteretic one.
         ("fit", {"s": [4.0, 0.3, 1.5], "r": [6.0, 6.0, 6.2]}),
-        # Water and sediment: a Hopf point on the turbid branch; larger changes of r need the
-        # staged Newton; b changes the slow sediment pool.
+        # Water and sediment, the demo: a Hopf point on the turbid branch before its fold.
         (
             "brellow-reservoir.toml",
             {"r": [0.029, 0.031, 1.0, 0.05], "b": [0.002, 0.0021, 0.002, 0.0002]},
         ),
+        # The same model with a faster sediment pool (invented b = 0.3, r = 1.0), whose turbid
+        # state stays stable up to its fold; larger changes of r need the staged Newton.
+        ("fast-sediment", {"r": [0.9, 1.1, 2.0, 1.5], "b": [0.3, 0.31, 0.3, 0.2]}),
     ],
 )
 def test_replicate_folds_by_newton_equal_those_of_full_diagrams(base, changes):
@@ -363,10 +381,17 @@ def test_replicate_folds_by_newton_equal_those_of_full_diagrams(base, changes):
         replicates = fit.bootstrap.samples[:, :2].T
         values = {n: np.append(replicates[i], changes[n]) for i, n in enumerate(("s", "r"))}
     else:
-        scenario = load_scenario(ROOT / "scenarios" / base)
+        scenario = load_scenario(ROOT / "scenarios" / "brellow-reservoir.toml")
+        if base == "fast-sediment":
+            scenario = _replace_parameters(scenario, FAST_SEDIMENT)
         diagram = diagram_for(scenario)
         values = {name: np.array(value) for name, value in changes.items()}
     tracked = replicate_thresholds(diagram, values)
+    if base == "brellow-reservoir.toml":
+        # The demo's turbid state loses stability at a Hopf point before its fold: the fold is
+        # not the threshold there, so the Newton shortcut declines and full diagrams decide.
+        assert diagram.recovery.kind == "hopf" and tracked is None
+        return
     assert tracked is not None
     members = len(next(iter(values.values())))
     lost = 0
@@ -383,6 +408,27 @@ def test_replicate_folds_by_newton_equal_those_of_full_diagrams(base, changes):
                 assert mine == pytest.approx(theirs, abs=1e-6), (b, kind)
         assert tracked.classifications[b] == full.classification, b
     assert lost >= (3 if base == "fit" else 0)
+
+
+FAST_SEDIMENT = {"b": 0.3, "r": 1.0}
+"""Invented: the Brellow demo with a sediment pool that turns over in a few years."""
+
+
+def test_replicate_thresholds_defer_to_full_diagrams_when_a_member_has_a_hopf_point():
+    """A member whose turbid state is an unstable spiral next to its recovery fold (the demo's
+    slow sediment, b = 0.002) has its threshold at a Hopf point, which Newton on the fold
+    cannot find: the shortcut declines for the whole set (then a full diagram per member
+    decides). At the fold the second eigenvalue of the Jacobian is positive there (numpy)."""
+    scenario = _replace_parameters(
+        load_scenario(ROOT / "scenarios" / "brellow-reservoir.toml"), FAST_SEDIMENT
+    )
+    diagram = diagram_for(scenario)
+    assert replicate_thresholds(diagram, {"b": np.array([0.3, 0.25])}) is not None
+    assert replicate_thresholds(diagram, {"b": np.array([0.3, 0.002])}) is None
+    slow = diagram_for(_replace_parameters(scenario, {"b": 0.002}))
+    fold = [f for f in slow.folds if f.kind == "recovery"][0]
+    assert np.max(np.linalg.eigvals(slow.system.jac(fold.state, fold.control)).real) > 0
+    assert slow.recovery.kind == "hopf"
 
 
 def test_replicate_thresholds_defer_to_full_diagrams_without_a_window():
@@ -405,18 +451,27 @@ def test_replicate_thresholds_defer_to_full_diagrams_without_a_window():
         assert threshold.bootstrap_without == boot.succeeded
 
 
-def test_warns_when_the_record_cannot_tell_the_parameters_apart():
-    """A lake held at one load on its clear branch shows P = L / s with almost no recycling:
-    r is not identifiable and the fit must say so (the informative record must not)."""
+@cache
+def _flat_fit():
+    """A fit of s and r to a lake held at one load (2.0) on its clear branch, where
+    P = L / s with almost no recycling (r P^8 / (m^8 + P^8) ~ r (P / m)^8 at P ~ 1.7, m = 4:
+    Carpenter, Ludwig & Brock 1999), so r is not identifiable; equilibrium by scipy brentq."""
     scenario = _alder()
     rng = np.random.default_rng(2)
     years = np.arange(25.0)
     equilibrium = brentq(lambda P: 2.0 - 1.2 * P + 6.0 * P**8 / (4.0**8 + P**8), 0.1, 2.5)
     observed = equilibrium * np.exp(0.03 * rng.standard_normal(years.size))
     record = parse_record(_csv(years, np.full(years.size, 2.0), observed), "<flat>")
-    flat = fit_record(
+    return fit_record(
         scenario, observations_for(record, scenario), fit=["s", "r"], log=True, bootstrap=0
     )
+
+
+def test_warns_when_the_record_cannot_tell_the_parameters_apart():
+    """A lake held at one load on its clear branch shows P = L / s with almost no recycling:
+    r is not identifiable and the fit must say so (the informative record must not)."""
+    scenario = _alder()
+    flat = _flat_fit()
     assert not flat.identifiable
     assert any(" r" in warning or "r:" in warning for warning in flat.warnings), flat.warnings
 
@@ -608,3 +663,159 @@ def test_figures_draw_the_record_the_fit_and_the_threshold_intervals():
     }
     for threshold in fit.thresholds.values():
         assert tuple(threshold.interval) in bands
+
+
+# ---------------------------------------------------------------------------------------------
+# The fitted scenario carries the fit's uncertainty; unidentifiable fits say so first
+
+HANDOFF_REPLICATES = 40
+
+
+@cache
+def _demo_fit():
+    """The demo record fitted (s, r, m on the log scale) with a small bootstrap."""
+    scenario = _alder()
+    observations = observations_for(read_record(DEMO), scenario)
+    return fit_record(scenario, observations, log=True, bootstrap=HANDOFF_REPLICATES, seed=1)
+
+
+def test_fitted_scenario_carries_the_bootstrap_as_a_joint_prior():
+    """The fitted scenario's priors on the fitted parameters are one multivariate normal of
+    their logarithms (the fitting scale) centred at the estimates, with the covariance of the
+    bootstrap replicates as numpy.cov gives it; the base's priors on s, r, m are gone, its load
+    variability and ensemble size stay, and the description and the prior say where they came
+    from. Draws keep the replicates' correlations: within 5 standard errors (1 - rho^2) /
+    sqrt(n) of a sample correlation (Fisher 1915, Biometrika 10:507-521, large-sample form,
+    from memory)."""
+    fit, base = _demo_fit(), _alder()
+    fitted = fit.fitted_scenario
+    joint = fitted.uncertainty.joint
+    assert joint.parameters == fit.fitted == ("s", "r", "m")
+    assert joint.scales == ("log", "log", "log")
+    assert joint.centre == tuple(fit.parameter(n).value for n in fit.fitted)
+    assert joint.centre == tuple(fitted.model.parameters[n] for n in fit.fitted)
+    logs = np.log(fit.bootstrap.samples[:, :3])
+    reference = np.cov(logs, rowvar=False)
+    assert np.array(joint.covariance) == pytest.approx(reference, rel=1e-12, abs=0)
+    assert fitted.uncertainty.priors == ()
+    assert fitted.uncertainty.load_variability == base.uncertainty.load_variability
+    assert fitted.uncertainty.members == base.uncertainty.members
+    for text in (fitted.description, joint.origin, fit.priors_note):
+        assert str(DEMO) in text and "1975 to 2024" in text, text
+        assert f"{HANDOFF_REPLICATES} bootstrap refits" in text, text
+
+    n = 20000
+    drawn = draw_parameters(fitted.uncertainty.model_copy(update={"members": n}), 0, n)
+    ours = np.corrcoef(np.log([drawn[name] for name in joint.parameters]))
+    theirs = np.corrcoef(logs, rowvar=False)
+    assert np.abs(theirs[np.triu_indices(3, 1)]).max() > 0.3  # correlations worth keeping
+    assert np.all(np.abs(ours - theirs) <= 5 * (1 - theirs**2) / np.sqrt(n) + 1e-12)
+
+
+def test_without_a_bootstrap_the_fitted_scenario_says_so_and_keeps_other_priors():
+    """--bootstrap 0: no joint prior, the base's priors on fitted parameters dropped (they
+    described the first guess), a prior on an unfitted parameter (q, held) kept; the note says
+    that no bootstrap was run (common practice, no source)."""
+    data = tomllib.loads(ALDER.read_text(encoding="utf-8"))
+    q_prior = {"parameter": "q", "kind": "normal", "mean": 8.0, "sd": 0.2, "lower": 1.0}
+    data["uncertainty"]["priors"].append(q_prior)
+    base = scenario_from_data(data)
+    fit = fit_record(
+        base, observations_for(read_record(DEMO), base), fit=["s", "r"], log=True, bootstrap=0
+    )
+    uncertainty = fit.fitted_scenario.uncertainty
+    assert uncertainty.joint is None
+    assert [p.parameter for p in uncertainty.priors] == ["m", "q"]
+    assert "No bootstrap" in fit.fitted_scenario.description
+    assert "priors on r, s were dropped" in fit.priors_note
+
+
+def _with_schedule(scenario, schedule: dict):
+    data = scenario.model_dump(mode="json", exclude_none=True)
+    data["schedules"].append(schedule)
+    return scenario_from_data(data)
+
+
+def test_ensemble_on_the_fitted_scenario_agrees_with_compare(tmp_path):
+    """The fitted scenario, written and read back, and its ensemble: with the spread shrunk to
+    a point (zero covariance, no load swings) every member's verdict is compare's for every
+    schedule (the one engine and verdict; DESIGN.md section 9); with the fit's real spread and
+    the load swings, schedules far from the recovery threshold's bootstrap interval get the
+    chance compare's verdict implies: at most 0.1 for a cut held well above it, at least 0.9
+    for a long cut well below it (common practice, no source)."""
+    from planner.scenario import save_scenario
+
+    fit = _demo_fit()
+    path = save_scenario(fit.fitted_scenario, tmp_path / "fitted.toml")
+    fitted = load_scenario(path)
+    assert fitted == fit.fitted_scenario
+
+    joint = fitted.uncertainty.joint
+    point = fitted.uncertainty.model_copy(
+        update={
+            "joint": joint.model_copy(update={"covariance": [[0.0] * 3] * 3}),
+            "load_variability": None,
+        }
+    )
+    pointed = fitted.model_copy(update={"uncertainty": point})
+    comparison = compare(pointed)
+    ensemble = run_ensemble(pointed, members=8, chunk_size=5, diagram=comparison.diagram)
+    for outcome, summary in zip(comparison.outcomes, ensemble.schedules, strict=True):
+        assert {VERDICTS[code] for code in summary.verdicts} == {outcome.verdict}, outcome.name
+
+    low, high = fit.thresholds["recovery"].bootstrap_interval
+    held = fitted.schedules[0]
+    assert held.name == "Cut to 1.2 and hold" and min(p[1] for p in held.points) > 2 * high
+    deep = {
+        "name": "Cut to 0.05 for 15 years",
+        "kind": "overshoot",
+        "start": 0.0,
+        "floor": 0.05,
+        "down_years": 5.0,
+        "hold_years": 15.0,
+        "relax_to": 1.0,
+        "up_years": 3.0,
+    }
+    assert deep["floor"] < low / 2
+    spread = _with_schedule(fitted, deep)
+    far = [held, spread.schedules[-1]]
+    comparison = compare(spread)
+    ensemble = run_ensemble(spread, members=300, schedules=far, diagram=comparison.diagram)
+    verdicts = {outcome.name: outcome.recovered for outcome in comparison.outcomes}
+    assert [verdicts[s.name] for s in far] == [False, True]
+    held_chance, deep_chance = (summary.p_recovered for summary in ensemble.schedules)
+    assert held_chance <= 0.1 and deep_chance >= 0.9, (held_chance, deep_chance)
+
+
+def test_an_unidentifiable_fit_headlines_the_warning_not_the_verdict():
+    """When the record cannot tell the parameters apart (see _flat_fit), the text opens with the
+    warning and calls the classification unreliable; the JSON's headline says the same. An
+    identifiable fit headlines its classification (common practice, no source)."""
+    flat = _flat_fit()
+    text = fit_text(flat)
+    first = text.splitlines()[0]
+    assert first.startswith("WARNING") and "cannot tell whether the lake is" in first
+    verdict = next(line for line in text.splitlines() if line.startswith("classification"))
+    assert verdict.endswith(f"{flat.classification} ({UNRELIABLE})")
+    assert text.index("WARNING") < text.index(flat.scenario.name)
+    result = fit_json(flat)
+    assert result["headline"] == first and result["classification_reliable"] is False
+
+    fit = _demo_fit()
+    assert fit.identifiable, fit.warnings
+    text = fit_text(fit)
+    assert "WARNING" not in text and UNRELIABLE not in text
+    assert fit_json(fit)["headline"] == f"The fitted lake is {fit.classification}."
+
+
+def test_cli_fit_out_says_where_the_priors_came_from(tmp_path):
+    """`planner fit --out` with --bootstrap 0 writes a scenario without a joint prior or the
+    base's priors on the fitted parameters, and says so on stderr."""
+    out = tmp_path / "fitted.toml"
+    argv = ["fit", str(DEMO), "--scenario", str(ALDER), "--log", "--bootstrap", "0"]
+    code, _, stderr = _run([*argv, "--fit", "s,r", "--out", str(out)])
+    assert code == 0, stderr
+    assert "No bootstrap was run" in stderr
+    uncertainty = load_scenario(out).uncertainty
+    assert uncertainty.joint is None
+    assert [p.parameter for p in uncertainty.priors] == ["m"]

@@ -118,6 +118,9 @@ def test_diagram_json_folds_match_the_fold_condition():
 
 def test_diagram_html(tmp_path, capsys):
     out = tmp_path / "report" / "diagram.html"
+    assert main(["diagram", str(ALDER), "--html", str(out)]) == 2  # no such folder: said first
+    out.parent.mkdir()
+    capsys.readouterr()
     assert main(["diagram", str(ALDER), "--html", str(out)]) == 0
     captured = capsys.readouterr()
     assert "Caution" in captured.out  # the terminal summary carries it too

@@ -304,6 +304,106 @@ def test_truncated_priors_follow_scipy_distributions():
     assert np.array_equal(part["c"], drawn["c"][1500:2600])
 
 
+JOINT = {
+    "parameters": ["a", "b", "c"],
+    "scales": ["log", "linear", "log"],
+    "centre": [2.0, -1.0, 0.5],
+    "covariance": [[0.04, 0.018, -0.01], [0.018, 0.09, 0.0], [-0.01, 0.0, 0.01]],
+}
+
+
+def _on_scales(drawn: dict, joint: dict) -> np.ndarray:
+    """Drawn values (k, members) on each parameter's scale (logs of log-scale ones)."""
+    return np.array(
+        [
+            np.log(drawn[name]) if scale == "log" else drawn[name]
+            for name, scale in zip(joint["parameters"], joint["scales"], strict=True)
+        ]
+    )
+
+
+def test_joint_prior_draws_reproduce_its_mean_and_covariance():
+    """20000 draws of a joint prior, on each parameter's scale: the sample mean lies within 5
+    standard errors sqrt(c_ii / n) of (ln centre or centre); each sample covariance entry within
+    5 of its standard error sqrt((c_ij^2 + c_ii c_jj) / (n - 1)) (variance of an entry of a
+    Wishart matrix; Anderson 2003, An Introduction to Multivariate Statistical Analysis, 3rd ed.,
+    section 7.3, from memory); the squared Mahalanobis distances follow chi-square with 3
+    degrees of freedom (Anderson 2003, section 3.3, from memory), checked against
+    scipy.stats.chi2 by the Kolmogorov-Smirnov test. Draws depend on (seed, member) only."""
+    n = 20000
+    uncertainty = Uncertainty(members=n, seed=5, joint=JOINT)
+    drawn = draw_parameters(uncertainty, 0, n)
+    x = _on_scales(drawn, JOINT)
+    mean = np.array([np.log(2.0), -1.0, np.log(0.5)])
+    covariance = np.array(JOINT["covariance"])
+    variances = np.diag(covariance)
+    assert np.all(np.abs(x.mean(axis=1) - mean) <= 5 * np.sqrt(variances / n))
+    error = np.sqrt((covariance**2 + np.outer(variances, variances)) / (n - 1))
+    assert np.all(np.abs(np.cov(x) - covariance) <= 5 * error), np.cov(x) - covariance
+    offset = x - mean[:, None]
+    distance = np.einsum("in,ij,jn->n", offset, np.linalg.inv(covariance), offset)
+    assert stats.kstest(distance, stats.chi2(3).cdf).pvalue > 1e-3
+    part = draw_parameters(uncertainty, 1500, 2600)
+    for name in JOINT["parameters"]:
+        assert np.array_equal(part[name], drawn[name][1500:2600])
+    other = draw_parameters(uncertainty.model_copy(update={"seed": 6}), 0, 100)
+    assert not np.array_equal(other["a"], drawn["a"][:100])
+
+
+def test_independent_priors_draw_the_same_values_beside_a_joint_prior():
+    """A joint prior draws from its own random stream: adding one leaves the independent priors'
+    values unchanged, and they still follow their law (scipy.stats.uniform, KS test)."""
+    priors = [{"parameter": "d", "kind": "uniform", "low": 0.0, "high": 3.0}]
+    alone = draw_parameters(Uncertainty(seed=2, priors=priors), 0, 3000)
+    both = draw_parameters(Uncertainty(seed=2, priors=priors, joint=JOINT), 0, 3000)
+    assert set(both) == {"a", "b", "c", "d"}
+    assert np.array_equal(alone["d"], both["d"])
+    assert stats.kstest(both["d"], stats.uniform(0.0, 3.0).cdf).pvalue > 1e-3
+
+
+def test_singular_and_zero_joint_covariances():
+    """A covariance of rank one (correlation exactly 1: no Cholesky factor exists) is still a
+    normal law, concentrated on the line b - 2 = 2 (a - 1) with var(a) = 1 (sample variance
+    within 5 standard errors sqrt(2 / (n - 1)); Anderson 2003, section 7.3, from memory); a
+    zero matrix is a point mass at the centre (common practice, no source)."""
+    line = {
+        "parameters": ["a", "b"],
+        "scales": ["linear", "linear"],
+        "centre": [1.0, 2.0],
+        "covariance": [[1.0, 2.0], [2.0, 4.0]],
+    }
+    n = 5000
+    drawn = draw_parameters(Uncertainty(seed=4, joint=line), 0, n)
+    assert np.allclose(drawn["b"] - 2.0, 2.0 * (drawn["a"] - 1.0), atol=1e-12)
+    assert abs(np.var(drawn["a"], ddof=1) - 1.0) <= 5 * np.sqrt(2.0 / (n - 1))
+    point = {**JOINT, "covariance": [[0.0] * 3] * 3}
+    drawn = draw_parameters(Uncertainty(seed=4, joint=point), 0, 50)
+    for name, centre in zip(point["parameters"], point["centre"], strict=True):
+        assert drawn[name] == pytest.approx(np.full(50, centre), rel=1e-15)
+
+
+def test_joint_draws_below_a_physical_bound_are_redrawn():
+    """Members whose draw falls below a parameter's physical bound draw again: the bounded
+    coordinate then follows the normal truncated at the bound (the marginal of a multivariate
+    normal truncated on that coordinate alone), scipy.stats.truncnorm by the KS test; the
+    redraws too depend on (seed, member) only."""
+    joint = {
+        "parameters": ["a", "b"],
+        "scales": ["linear", "linear"],
+        "centre": [1.0, 0.0],
+        "covariance": [[0.25, 0.3], [0.3, 1.0]],
+    }
+    uncertainty = Uncertainty(seed=8, joint=joint)
+    bounds = {"a": (0.5, True)}
+    drawn = draw_parameters(uncertainty, 0, 4000, bounds=bounds)
+    assert drawn["a"].min() > 0.5
+    law = stats.truncnorm((0.5 - 1.0) / 0.5, np.inf, loc=1.0, scale=0.5)
+    assert stats.kstest(drawn["a"], law.cdf).pvalue > 1e-3
+    part = draw_parameters(uncertainty, 1000, 2500, bounds=bounds)
+    assert np.array_equal(part["a"], drawn["a"][1000:2500])
+    assert np.array_equal(part["b"], drawn["b"][1000:2500])
+
+
 def test_load_factors_have_mean_one_and_the_asked_autocorrelation():
     """Lognormal factor exp(sigma z - sigma^2/2) has mean 1 and variance exp(sigma^2) - 1 = cv^2
     (lognormal moments, Johnson, Kotz & Balakrishnan 1994, Continuous Univariate Distributions

@@ -17,7 +17,7 @@ import pytest
 from planner.cli import main
 from planner.errors import InputError
 from planner.report import table_csv
-from planner.textfiles import write_user_text
+from planner.textfiles import STALE_SECONDS, write_user_text
 
 ALDER = Path(__file__).resolve().parent.parent / "scenarios" / "alder-mere.toml"
 HOSTILE = ("=cmd|' /C calc'!A0", "@SUM(A1:A9)", "+1+1", "-2+3", "\t=1", "\r=1")
@@ -90,3 +90,48 @@ def test_compare_csv_escapes_a_hostile_schedule_name(tmp_path):
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(io.StringIO()):
         assert main(["compare", str(scenario), "--json"]) == 0
     assert json.loads(out.getvalue())["schedules"][0]["name"] == HOSTILE[0]
+
+
+def _cli(*argv) -> tuple[int, str, str]:
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main([str(a) for a in argv])
+    return code, out.getvalue(), err.getvalue()
+
+
+def test_outputs_are_kept_unless_forced(tmp_path):
+    table = tmp_path / "table.csv"
+    table.write_text("saved by the user")
+    code, out, err = _cli("compare", ALDER, "--csv", table)
+    assert code == 2 and f"{table}: --csv: exists already" in err and "--force" in err
+    assert out == ""  # refused before any work
+    assert table.read_text() == "saved by the user"
+    code, _, err = _cli("compare", ALDER, "--csv", table, "--force")
+    assert code == 0, err
+    assert table.read_text(encoding="utf-8").startswith("Schedule")
+
+
+def test_output_folders_are_checked_before_the_work(tmp_path):
+    """`fit --out` into a missing folder fails at once (nothing fitted, nothing printed), not
+    after the whole fit."""
+    record = ALDER.parent / "data" / "alder-mere-monitoring.csv"
+    missing = tmp_path / "missing" / "fitted.toml"
+    code, out, err = _cli("fit", record, "--scenario", ALDER, "--out", missing)
+    assert code == 2 and out == ""
+    assert f"{missing}: --out: its folder" in err and "does not exist" in err
+    code, out, err = _cli("diagram", ALDER, "--html", tmp_path)
+    assert code == 2 and "is a folder" in err
+
+
+def test_stale_temporaries_of_killed_saves_are_cleaned(tmp_path):
+    """A save killed before its rename leaves a hidden temporary; the next save into the
+    folder removes those older than STALE_SECONDS and keeps a young one (a save in progress)."""
+    stale = tmp_path / ".plan.toml.abc123.tmp"
+    young = tmp_path / ".other.toml.def456.tmp"
+    for path in (stale, young):
+        path.write_text("half")
+    old = stale.stat().st_mtime - STALE_SECONDS - 60
+    os.utime(stale, (old, old))
+    write_user_text(tmp_path / "plan.toml", "whole")
+    assert not stale.exists() and young.exists()
+    assert (tmp_path / "plan.toml").read_text() == "whole"

@@ -24,6 +24,7 @@ from flask import Response, request
 from planner.errors import InputError, Problem
 from planner.report import CAUTION
 from planner.scenario.io import MAX_SCENARIO_BYTES
+from planner.textfiles import clean_stale_temporaries
 from webapp import compute, files, ids
 from webapp.settings import Settings
 from webapp.views import (
@@ -211,6 +212,7 @@ def create_app(
     else:
         cache_folder = _folder(cache_dir, "cache folder", create=True)
     settings = Settings(tuple(folders), len(folders) - 1, cache_folder)
+    clean_stale_temporaries(save_folder)  # left by saves killed before their rename
 
     compute.use_disk(cache_folder / "results")
     manager = dash.DiskcacheManager(diskcache.Cache(str(cache_folder / "jobs")))

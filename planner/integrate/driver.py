@@ -335,6 +335,10 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
                             piece, times, states, limits, settling, settle_scale[:, single]
                         )
                         stopped_at = None if stop is None else float(times[stop])
+                        if end is Status.DIVERGED and stop >= 1:
+                            stopped_at = _when_diverged(
+                                step, float(times[stop - 1]), stopped_at, limits
+                            )
                         if stop is not None:
                             # a non-finite output is no state: the run ends at the one before
                             keep = stop + 1 if np.all(np.isfinite(states[:, stop])) else stop
@@ -472,6 +476,30 @@ def _carried(step: Step):
     short to end at the cut, so its proposal is kept when larger."""
     taken = np.asarray(step.t1, dtype=float) - np.asarray(step.t0, dtype=float)
     return np.minimum(step.h_next, np.maximum(taken, 0.5 * np.asarray(step.h_next)))
+
+
+DIVERGENCE_BISECTIONS = 40
+
+
+def _when_diverged(step: Step, good: float, bad: float, limits: Limits) -> float:
+    """The time a single run left the limits (or stopped being finite) between the last output
+    inside them and the first outside, by bisection on short runs from the output before (the
+    outputs are a tenth of a year apart; a blow-up is dated to the solver's accuracy)."""
+    reach = getattr(step.interpolant, "reach", None)
+    if reach is None:
+        return bad
+    for _ in range(DIVERGENCE_BISECTIONS):
+        middle = 0.5 * (good + bad)
+        if not good < middle < bad:
+            break
+        x = reach(middle)
+        fine = (
+            x is not None
+            and bool(np.all(np.abs(x) <= limits.state_limit))
+            and (limits.lower is None or bool(np.all(x >= limits.lower)))
+        )
+        good, bad = (middle, bad) if fine else (good, middle)
+    return bad
 
 
 def _first_stop(piece, times, states, limits: Limits, settling, scale):

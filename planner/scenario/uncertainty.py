@@ -24,6 +24,32 @@ variation of the factor; sigma^2 = ln(1 + cv^2)).
 Process noise (``[uncertainty.process_noise]``) adds sigma dW to each named state variable
 (additive noise; sigma in state units per square-root year), making the model a stochastic
 differential equation.
+
+Correlated parameters (``[uncertainty.joint]``): a multivariate normal prior on several
+parameters at once, for estimates that move together (a fit to a monitoring record pins down a
+combination of them better than each; ``planner fit --out`` writes this block from its bootstrap
+replicates). Each parameter is normal on its own ``scales`` entry: ``"log"`` (the natural log of
+the value is normal: a positive parameter with a multiplicative spread) or ``"linear"`` (the
+value itself is normal)::
+
+    [uncertainty.joint]
+    parameters = ["s", "r", "m"]
+    scales = ["log", "log", "log"]
+    centre = [1.253, 6.673, 3.911]      # values; for a log-scale parameter, its median
+    covariance = [                      # of ln(value) or value, as scales says
+        [1.3e-4, 1.6e-4, -1.0e-4],
+        [1.6e-4, 4.4e-4, -8.1e-5],
+        [-1.0e-4, -8.1e-5, 1.0e-4],
+    ]
+    origin = "Priors of s, r, m: ... 200 bootstrap refits ..."   # free text, optional
+
+The normal's mean is (ln centre_i or centre_i); ``covariance`` must be symmetric and positive
+semi-definite (zero rows are allowed: a zero matrix is a point mass at ``centre``). A parameter
+in ``joint`` has no prior of its own in ``priors``; other parameters keep their independent
+priors. The control cannot be in it (its swings are ``load_variability``). Draws below a
+parameter's physical lower bound are redrawn (a truncated multivariate normal); the prior may
+put at most ``MAX_JOINT_OUTSIDE`` of its probability below a bound, so the truncation barely
+changes it.
 """
 
 from __future__ import annotations
@@ -47,7 +73,15 @@ from planner.scenario._base import (
 MIN_TRUNCATED_MASS = 1e-6
 """Least prior probability the truncation interval must keep (below it the draw is all tail)."""
 
-MAX_MEMBERS = 10_000_000
+MAX_MEMBERS = 1_000_000
+"""Most ensemble members: 10^6 members peak at about 0.6 GB of memory and take about a minute
+(benchmarks/ensemble.py); ten times more would not fit a laptop's memory."""
+MAX_JOINT_PARAMETERS = 50
+MAX_JOINT_OUTSIDE = 0.01
+"""Most probability a joint prior may put below one parameter's physical bound (redrawn)."""
+SYMMETRY_TOLERANCE = 1e-9  # |c_ij - c_ji| allowed, relative to sqrt(c_ii c_jj)
+DEFINITENESS_TOLERANCE = 1e-9  # negative eigenvalue allowed, relative to the largest one
+JointScale = Literal["log", "linear"]
 
 
 def _normal_cdf(z: float) -> float:
@@ -248,12 +282,133 @@ class LoadVariability(Strict):
         return math.sqrt(math.log1p(float(self.cv) ** 2))
 
 
+class JointPrior(Strict):
+    """A multivariate normal prior on several parameters, each on its own scale ("log": the
+    natural log of the value is normal, or "linear"); see the module docstring."""
+
+    parameters: FrozenList[str] = Field(min_length=1, max_length=MAX_JOINT_PARAMETERS)
+    scales: FrozenList[JointScale] = Field(
+        description='Scale of each parameter: "log" (ln value is normal) or "linear".'
+    )
+    centre: FrozenList[float] = Field(
+        description="Value of each parameter at the centre (a log-scale parameter's median)."
+    )
+    covariance: FrozenList[FrozenList[float]] = Field(
+        description="Covariance of (ln value or value), as scales says; symmetric, positive "
+        "semi-definite."
+    )
+    origin: str = Field(
+        default="", max_length=2000, description="Where the numbers came from (free text)."
+    )
+
+    @model_validator(mode="after")
+    def _check_shape(self) -> JointPrior:
+        problems = self._shape_problems()
+        k = len(self.parameters)
+        if len(self.covariance) == k and all(len(row) == k for row in self.covariance):
+            problems += self._matrix_problems()
+        raise_problems("joint", problems, self.parameters)
+        return self
+
+    def _shape_problems(self) -> list[tuple[Loc, str]]:
+        k = len(self.parameters)
+        problems: list[tuple[Loc, str]] = []
+        seen: dict[str, int] = {}
+        for index, name in enumerate(self.parameters):
+            if name in seen:
+                problems.append(
+                    (("parameters", index), f"same parameter as parameters.{seen[name]}")
+                )
+            seen.setdefault(name, index)
+        for field, values in (("scales", self.scales), ("centre", self.centre)):
+            if len(values) != k:
+                problems.append(((field,), f"has {len(values)} entries for {k} parameters"))
+        if len(self.covariance) != k:
+            problems.append(
+                (("covariance",), f"has {len(self.covariance)} rows for {k} parameters")
+            )
+        for index, row in enumerate(self.covariance):
+            if len(row) != k:
+                problems.append(
+                    (("covariance", index), f"has {len(row)} entries for {k} parameters")
+                )
+        if len(self.scales) == k and len(self.centre) == k:
+            for index, (scale, centre) in enumerate(zip(self.scales, self.centre, strict=True)):
+                if scale == "log" and not centre > 0:
+                    problems.append(
+                        (
+                            ("centre", index),
+                            f"must be greater than 0: {self.parameters[index]!r} is on the log "
+                            "scale (its centre is the median of a positive value)",
+                        )
+                    )
+        return problems
+
+    def _matrix_problems(self) -> list[tuple[Loc, str]]:
+        """Variances not negative, the matrix symmetric and positive semi-definite (numpy only
+        here, so scenarios without a joint prior validate without it)."""
+        import numpy as np
+
+        matrix = np.array(self.covariance, dtype=float)
+        k = matrix.shape[0]
+        problems: list[tuple[Loc, str]] = []
+        for i in range(k):
+            if matrix[i, i] < 0:
+                problems.append((("covariance", i, i), "a variance cannot be negative"))
+        if problems:
+            return problems
+        spread = np.sqrt(np.outer(np.diag(matrix), np.diag(matrix)))
+        for i in range(k):
+            for j in range(i):
+                allowed = SYMMETRY_TOLERANCE * max(spread[i, j], np.finfo(float).tiny)
+                if abs(matrix[i, j] - matrix[j, i]) > allowed:
+                    problems.append(
+                        (
+                            ("covariance", i, j),
+                            f"{matrix[i, j]:g} differs from covariance.{j}.{i} "
+                            f"({matrix[j, i]:g}): a covariance matrix is symmetric",
+                        )
+                    )
+        if problems:
+            return problems
+        eigenvalues = np.linalg.eigvalsh(0.5 * (matrix + matrix.T))
+        largest = float(np.max(np.abs(eigenvalues)))
+        if eigenvalues[0] < -DEFINITENESS_TOLERANCE * largest:
+            problems.append(
+                (
+                    ("covariance",),
+                    f"not positive semi-definite (an eigenvalue is {eigenvalues[0]:.3g}): some "
+                    "combination of the parameters would have a negative variance; a correlation "
+                    "c_ij / sqrt(c_ii c_jj) must lie within [-1, 1], and so must every "
+                    "combination of them",
+                )
+            )
+        return problems
+
+    def spread(self, index: int) -> float:
+        """Standard deviation of parameter ``index`` on its scale."""
+        return math.sqrt(max(self.covariance[index][index], 0.0))
+
+    def mass_below(self, index: int, bound: float) -> float:
+        """Probability that parameter ``index`` falls below ``bound`` (its marginal normal)."""
+        centre, scale = self.centre[index], self.scales[index]
+        if scale == "log":
+            if bound <= 0:
+                return 0.0
+            centre, bound = math.log(centre), math.log(bound)
+        sd = self.spread(index)
+        if sd == 0:
+            return 1.0 if centre < bound else 0.0
+        return _normal_cdf((bound - centre) / sd)
+
+
 class Uncertainty(Strict):
     """What is uncertain, and the size and seed of the ensemble that samples it."""
 
     members: int = Field(default=1000, ge=1, le=MAX_MEMBERS)
     seed: int = Field(default=0, ge=0, lt=2**63)
     priors: FrozenList[Prior] = Field(default=(), max_length=200)
+    joint: JointPrior | None = None
     load_variability: LoadVariability | None = None
     process_noise: FrozenDict[str, NonNegative] = Field(
         default={},
@@ -269,6 +424,18 @@ class Uncertainty(Strict):
     )
 
 
+def _not_drawable(name: str, parameters: Mapping[str, float], control: str) -> str | None:
+    """Why a prior cannot be on parameter ``name`` (None when it can)."""
+    if name == control:
+        return (
+            f"{name!r} is the control, set by each schedule; describe its year-to-year swings "
+            "with [uncertainty.load_variability]"
+        )
+    if name not in parameters:
+        return f"{name!r} is not a model parameter (parameters: {', '.join(parameters)})"
+    return None
+
+
 def prior_problems(
     uncertainty: Uncertainty,
     *,
@@ -281,30 +448,18 @@ def prior_problems(
 
     Priors name model parameters other than the control (the control's swings are
     ``load_variability``), once each; their truncated range respects the parameter's physical
-    bound (``physical_lower(name)`` gives (bound, strict) or None); process noise names model
-    variables. Locations are relative to the scenario root.
+    bound (``physical_lower(name)`` gives (bound, strict) or None); the joint prior's parameters
+    have no independent prior and it puts at most MAX_JOINT_OUTSIDE of its probability below
+    each bound; process noise names model variables. Locations are relative to the scenario
+    root.
     """
     problems: list[tuple[Loc, str]] = []
     seen: dict[str, int] = {}
     for index, prior in enumerate(uncertainty.priors):
         where: Loc = ("uncertainty", "priors", index)
         name = prior.parameter
-        if name == control:
-            problems.append(
-                (
-                    (*where, "parameter"),
-                    f"{name!r} is the control, set by each schedule; describe its year-to-year "
-                    "swings with [uncertainty.load_variability]",
-                )
-            )
-            continue
-        if name not in parameters:
-            problems.append(
-                (
-                    (*where, "parameter"),
-                    f"{name!r} is not a model parameter (parameters: {', '.join(parameters)})",
-                )
-            )
+        if (reason := _not_drawable(name, parameters, control)) is not None:
+            problems.append(((*where, "parameter"), reason))
             continue
         if name in seen:
             problems.append(
@@ -333,12 +488,68 @@ def prior_problems(
                     "drawn)"
                 )
                 problems.append(((*where, "lower"), reason))
+    if uncertainty.joint is not None:
+        problems += _joint_problems(uncertainty.joint, seen, parameters, control, physical_lower)
     for name in uncertainty.process_noise:
         if name not in variables:
             problems.append(
                 (
                     ("uncertainty", "process_noise", name),
                     f"not a model variable (variables: {', '.join(variables)})",
+                )
+            )
+    return problems
+
+
+def _joint_problems(
+    joint: JointPrior,
+    independent: Mapping[str, int],
+    parameters: Mapping[str, float],
+    control: str,
+    physical_lower,
+) -> list[tuple[Loc, str]]:
+    """Links between ``[uncertainty.joint]`` and the model and the independent priors."""
+    problems: list[tuple[Loc, str]] = []
+    where: Loc = ("uncertainty", "joint")
+    for index, name in enumerate(joint.parameters):
+        if (reason := _not_drawable(name, parameters, control)) is not None:
+            problems.append(((*where, "parameters", index), reason))
+            continue
+        if name in independent:
+            problems.append(
+                (
+                    (*where, "parameters", index),
+                    f"{name!r} also has its own prior (uncertainty.priors.{independent[name]}); "
+                    "give each parameter one prior: remove one of them",
+                )
+            )
+            continue
+        bound = physical_lower(name)
+        if bound is None:
+            continue
+        lowest, strict = bound
+        centre = joint.centre[index]
+        relation = "greater than" if strict else "at least"
+        if centre < lowest or strict and centre == lowest:
+            problems.append(
+                (
+                    (*where, "centre", index),
+                    f"{centre:g}, but {name!r} must be {relation} {lowest:g}",
+                )
+            )
+            continue
+        mass = joint.mass_below(index, lowest)
+        if mass > MAX_JOINT_OUTSIDE:
+            problems.append(
+                (
+                    (*where, "centre", index),
+                    f"the joint prior puts {mass:.2g} of its probability below {lowest:g}, the "
+                    f"physical bound of {name!r} (at most {MAX_JOINT_OUTSIDE:g} allowed); "
+                    + (
+                        "move the centre further above the bound or shrink the variance"
+                        if joint.scales[index] == "log"
+                        else 'use scale "log" for a positive parameter, or a smaller variance'
+                    ),
                 )
             )
     return problems

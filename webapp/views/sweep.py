@@ -5,16 +5,16 @@ from __future__ import annotations
 
 from dash import Input, Output, State, dcc, html, no_update
 
-from planner.errors import InputError, Problem
+from planner.errors import InputError
 from planner.figures import sweep_figure
 from planner.report import sweep_text
+from planner.sweep import checked_step
 from webapp import compute, ids
 from webapp.settings import Settings
 from webapp.views.common import figure_panel
 
 SHOWN = {"display": "flex"}
 HIDDEN = {"display": "none"}
-MOST_STEPS = 5000  # a step so small that the sweep would take very long is refused
 
 
 def layout() -> html.Div:
@@ -70,19 +70,7 @@ def sweep_step(text: str | None, scenario) -> float | None:
         step = float(text)
     except ValueError:
         step = float("nan")
-    low, high = scenario.control.range
-    if not step > 0 or (high - low) / step > MOST_STEPS:
-        raise InputError(
-            [
-                Problem(
-                    "sweep",
-                    "step",
-                    f"must be a positive number of {scenario.control.unit or 'control units'}, "
-                    f"at least {(high - low) / MOST_STEPS:.3g} (at most {MOST_STEPS} steps)",
-                )
-            ]
-        )
-    return step
+    return checked_step(step, scenario, "sweep")
 
 
 def run_sweep(set_progress, _clicks, working, step_text):

@@ -131,6 +131,17 @@ class _Between:
                 out[:, chosen[later]] = run[1:][back].T
         return out
 
+    def reach(self, t: float) -> np.ndarray | None:
+        """The state at t, (n,), or None when the solver cannot get there (a blow-up)."""
+        i = int(np.clip(np.searchsorted(self.times, t, side="right") - 1, 0, len(self.times) - 1))
+        start = self.times[i]
+        if t <= start:
+            return self.states[:, i].copy()
+        end, info = _run(self.rhs, self.jac, self.states[:, i], [start, t], self.options, None)
+        if info["message"] != SUCCESS or not np.all(np.isfinite(end[-1])):
+            return None
+        return end[-1]
+
     def __call__(self, t, columns=None):
         t = float(np.asarray(t, dtype=float).reshape(-1)[0])
         i = int(np.clip(np.searchsorted(self.times, t, side="right") - 1, 0, len(self.times) - 1))
