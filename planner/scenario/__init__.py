@@ -20,6 +20,7 @@ from planner.scenario.schedule_blocks import (
     StaircaseSchedule,
 )
 from planner.scenario.uncertainty import (
+    JointPrior,
     LoadVariability,
     LognormalPrior,
     NormalPrior,
@@ -38,6 +39,7 @@ def json_schema() -> dict:
 __all__ = [
     "BuiltinModel",
     "Control",
+    "JointPrior",
     "Costs",
     "FormulaModel",
     "LoadVariability",
