@@ -766,9 +766,9 @@ def compute_diagram(
     diagram = dataclasses.replace(diagram, folds=folds)
     windows = _windows(diagram, folds, fold_places)
     u_now = least if current_control is None else float(current_control)
-    holding = [w for w in windows if _contains(w, u_now)]
     attractor = None
-    if len(holding) > 1:  # several windows at this control: the lake's own branch decides
+    if len(windows) > 1 and current_control is not None:
+        # several windows (three or more stable states): the lake's own branch decides
         run = _settle(system, reference, u_now, limit)
         attractor = run.final_state[:, 0] if run.status is Status.SETTLED else None
     window = _main_window(diagram, windows, u_now, (low, high), attractor)
@@ -964,15 +964,16 @@ def _main_window(
     interval: tuple[float, float],
     attractor: np.ndarray | None = None,
 ) -> Window | None:
-    """The window holding the current control, else the one overlapping the range most. With
-    several holding it (three or more stable states), the one whose thresholds end the stable
-    run the lake's ``attractor`` lies on: its recovery threshold when that run is undesired,
-    its collapse threshold when desired (not the first found, which would depend on the
-    control value rather than on where the lake is)."""
+    """The window of the lake's own branch. With several windows (three or more stable
+    states), the one whose threshold ends the stable run the lake's ``attractor`` lies on: its
+    recovery threshold when that run is undesired, its collapse threshold when desired (not
+    the one that happens to hold the current control, which would make the thresholds depend
+    on the control value rather than on where the lake is). Otherwise the window holding the
+    current control, else the one overlapping the range most."""
     if not windows:
         return None
     holding = [w for w in windows if _contains(w, u_now)]
-    if len(holding) > 1 and attractor is not None:
+    if len(windows) > 1 and attractor is not None:
         run = _run_of(diagram, attractor, u_now)
         if run is not None:
             ends = run.states[[0, -1]]
@@ -983,7 +984,10 @@ def _main_window(
                     return np.inf
                 return float(np.min(np.max(np.abs(ends - x) / diagram.scale[:-1], axis=1)))
 
-            return min(holding, key=distance)
+            # the windows whose threshold ends the lake's run; among ties, one holding u_now
+            ranked = sorted(windows, key=lambda w: (distance(w), w not in holding))
+            if distance(ranked[0]) < RUN_MATCH:
+                return ranked[0]
     if holding:
         return holding[0]
     return max(windows, key=lambda w: _overlap(w, interval))

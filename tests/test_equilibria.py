@@ -697,3 +697,11 @@ def test_three_stable_states_thresholds_follow_the_lake_branch():
         assert diagram.most_stable_states == 3
         threshold = diagram.collapse if which == "collapse" else diagram.recovery
         assert abs(threshold.value - value) < FOLD_AGREEMENT, (start, threshold)
+    # the same lowest branch at other loads keeps its own collapse threshold, p(x1)
+    for u in (-2.0, 2.0):
+        roots = np.roots([1.0, 0.0, -5.0, 0.0, 4.0, -u])
+        lowest = np.min(roots[np.abs(roots.imag) < 1e-9].real)
+        diagram = compute_diagram(
+            system, (-5.0, 5.0), reference_state=np.array([lowest]), current_control=u
+        )
+        assert abs(diagram.collapse.value - p(x1)) < FOLD_AGREEMENT, u
