@@ -44,6 +44,44 @@ def colour(index: int) -> str:
     return PALETTE[index % len(PALETTE)]
 
 
+SCHEDULE_COLOURS = PALETTE[:6]  # Okabe-Ito without black (the equilibria, "now") and yellow
+SCHEDULE_DASHES = ("solid", "longdash", "dashdot")  # "dash" marks unstable equilibria and
+# "dot" infeasible schedules, so neither is used to tell schedules apart
+SCHEDULE_SYMBOLS = (
+    "circle",
+    "square",
+    "diamond",
+    "triangle-up",
+    "triangle-down",
+    "cross",
+    "x",
+    "pentagon",
+    "hexagon",
+    "star-triangle-up",
+    "hourglass",
+    "bowtie",
+)
+DISTINCT_SCHEDULES = len(SCHEDULE_COLOURS) * len(SCHEDULE_DASHES)  # 18 before a style repeats
+
+
+def schedule_line(index: int, *, feasible: bool = True, width: float = 2) -> dict:
+    """The line of schedule ``index``: colour, then dash pattern, vary so that the first
+    DISTINCT_SCHEDULES schedules all differ (and differ without colour vision, by dash); an
+    infeasible schedule is dotted."""
+    colour_ = SCHEDULE_COLOURS[index % len(SCHEDULE_COLOURS)]
+    dash = SCHEDULE_DASHES[(index // len(SCHEDULE_COLOURS)) % len(SCHEDULE_DASHES)]
+    return dict(color=colour_, width=width, dash=dash if feasible else "dot")
+
+
+def schedule_marker(index: int, **extra) -> dict:
+    """The marker of schedule ``index``: its line colour and a symbol of its own."""
+    return dict(
+        color=SCHEDULE_COLOURS[index % len(SCHEDULE_COLOURS)],
+        symbol=SCHEDULE_SYMBOLS[index % len(SCHEDULE_SYMBOLS)],
+        **extra,
+    )
+
+
 def hysteresis_figure(
     scenario,
     diagram: Diagram,
@@ -121,7 +159,7 @@ def hysteresis_figure(
                 mode="lines",
                 name=run.name,
                 legendgroup=run.name,
-                line=dict(color=colour(i), width=2),
+                line=schedule_line(i),
                 customdata=run.times,
                 hovertemplate="year %{customdata:.1f}<br>%{x:.3g}, %{y:.3g}<extra>"
                 + run.name
@@ -134,7 +172,12 @@ def hysteresis_figure(
                 x=run.control[marks],
                 y=run.states[k][marks],
                 mode="markers",
-                marker=dict(symbol="arrow", angleref="previous", size=11, color=colour(i)),
+                marker=dict(
+                    symbol="arrow",
+                    angleref="previous",
+                    size=11,
+                    color=schedule_line(i)["color"],
+                ),
                 legendgroup=run.name,
                 showlegend=False,
                 hoverinfo="skip",
@@ -194,7 +237,7 @@ def time_series_figure(comparison, *, names: Sequence[str] | None = None) -> go.
         if names is not None and outcome.name not in names:
             continue
         run = outcome.trajectory
-        style = dict(color=colour(i), width=2, dash="solid" if outcome.feasible else "dot")
+        style = schedule_line(i, feasible=outcome.feasible)
         fig.add_trace(
             go.Scatter(
                 x=run.times,
@@ -312,7 +355,7 @@ def small_multiples_figure(comparison, names: Sequence[str]) -> go.Figure:
                 x=run.control,
                 y=run.states[k],
                 mode="lines",
-                line=dict(color=colour(index), width=3),
+                line=schedule_line(index, width=3),
                 name=f"{outcome.name}: {verdict}",
                 showlegend=True,
             ),
@@ -777,9 +820,7 @@ def recovery_by_year_figure(ensemble) -> go.Figure:
     horizon = scenario.simulation.horizon
     fig = go.Figure()
     for i, summary in enumerate(ensemble.schedules):
-        style = dict(
-            color=colour(i), width=2, dash="solid" if summary.infeasible is None else "dot"
-        )
+        style = schedule_line(i, feasible=summary.infeasible is None)
         if summary.meets_target_by is not None:
             fig.add_trace(
                 go.Scatter(
@@ -798,7 +839,7 @@ def recovery_by_year_figure(ensemble) -> go.Figure:
                 x=[horizon],
                 y=[summary.p_recovered],
                 mode="markers",
-                marker=dict(color=colour(i), size=10, symbol="diamond"),
+                marker=schedule_marker(i, size=10),
                 error_y=dict(
                     type="data",
                     symmetric=False,
