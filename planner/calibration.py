@@ -267,8 +267,9 @@ def _state_columns(
             raise InputError(problems)
         mapping = [(v, states[v]) for v in variables if v in states]
     else:
-        mapping = [(v, v) for v in variables if record.has(v) and v != control_column]
-        others = [n for n in record.names if n != control_column]
+        load = record.find(control_column) if record.has(control_column) else -1
+        mapping = [(v, v) for v in variables if record.has(v) and record.find(v) != load]
+        others = [n for i, n in enumerate(record.names) if i != load]
         if not mapping and len(others) == 1:
             mapping = [(scenario.target.variable, others[0])]
     if not mapping:
@@ -282,8 +283,9 @@ def _state_columns(
                 )
             ]
         )
+    load = record.find(control_column) if record.has(control_column) else -1
     for variable, column in mapping:
-        if column == control_column:
+        if record.find(column) == load:  # the same column, however its header is spelled
             raise InputError(
                 [Problem(source, f"column {column}", "is the load column; it cannot be observed")]
             )

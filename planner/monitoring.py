@@ -7,7 +7,14 @@ File layout (comma separated, UTF-8):
   square brackets or parentheses, for example ``TP [g P / m2]`` or ``load (g P / m2 / yr)``;
 - every later line is one time: the time column (decimal years, default the first column) and
   the data columns. An empty cell (or ``NA``, ``N/A``, ``NaN``, ``-``) is a gap; gaps are allowed
-  in every column but the time column.
+  in every column but the time column. Values are any finite real numbers: a record may hold
+  anomalies or logarithms as well as loads and amounts. Reading a column as an amount (the
+  default of :meth:`Record.column`, which the fit uses) refuses its negative values.
+
+A column is looked up by its name alone (``TP``) or by its name and unit as the header writes them
+(``TP [g P / m2]``; ``TP (g P/m2)`` is the same: brackets or parentheses, spaces in the unit
+ignored). Two columns may share a name only when they state different units (``TP [g P / m2]``
+and ``TP [ug/L]``); the name alone is then ambiguous and the unit chooses.
 
 Rows in messages are the line numbers of the file (1 = the first line), which are the row
 numbers a spreadsheet shows. Every problem is an :class:`~planner.errors.InputError` whose field
@@ -24,7 +31,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from planner.errors import InputError, Problem
+from planner.errors import InputError, Problem, capped
 from planner.textfiles import read_user_text
 
 MAX_RECORD_BYTES = 5_000_000
@@ -56,31 +63,61 @@ class Record:
         for array in (self.times, self.rows, self.values):
             array.setflags(write=False)
 
-    def has(self, name: str) -> bool:
-        return name in self.names
+    @property
+    def headers(self) -> tuple[str, ...]:
+        """Each data column as a header writes it: ``TP [g P / m2]``, or the bare name."""
+        return tuple(_header(n, u) for n, u in zip(self.names, self.units, strict=True))
 
-    def column(self, name: str, *, option: str = "") -> np.ndarray:
-        """The values of column ``name`` (NaN for gaps); a missing column is an InputError that
-        lists the columns and, when given, the option that chooses another."""
-        if name not in self.names:
-            hint = f"; choose one with {option}" if option else ""
-            raise InputError(
-                [
-                    Problem(
+    def has(self, name: str) -> bool:
+        """Whether ``name`` (with or without its unit) designates at least one data column."""
+        return bool(_matching(name, self.names, self.units))
+
+    def find(self, name: str, *, option: str = "") -> int:
+        """Index of the data column that ``name`` designates (see the module docstring); a
+        missing or ambiguous name is an InputError that lists the columns and, when given, the
+        option that chooses another."""
+        return _find(self.source, name, self.names, self.units, option)
+
+    def label(self, index: int) -> str:
+        """How messages name data column ``index``: its name, or its header when another
+        column shares the name."""
+        return _labels(self.names, self.units)[index]
+
+    def column(self, name: str, *, option: str = "", amounts: bool = True) -> np.ndarray:
+        """The values of column ``name`` (NaN for gaps).
+
+        ``amounts=True`` reads the column as loads or amounts: a negative value is an
+        InputError naming its row. ``amounts=False`` accepts any real value (anomalies,
+        logarithms). A missing or ambiguous name is an InputError (see :meth:`find`).
+        """
+        index = self.find(name, option=option)
+        values = self.values[index]
+        if amounts:
+            negative = np.flatnonzero(values < 0)  # gaps (NaN) compare False
+            if negative.size:
+                column = self.label(index)
+                raise InputError(
+                    capped(
+                        [
+                            Problem(
+                                self.source,
+                                f"row {self.rows[i]}, column {column}",
+                                f"negative value {values[i]:g}: loads and amounts cannot be "
+                                "negative",
+                            )
+                            for i in negative
+                        ],
                         self.source,
-                        f"column {name}",
-                        f"not found (columns: {', '.join(self.names) or 'none'}){hint}",
                     )
-                ]
-            )
-        return self.values[self.names.index(name)]
+                )
+        return values
 
     def unit(self, name: str) -> str:
-        return self.units[self.names.index(name)]
+        return self.units[self.find(name)]
 
     def observed(self, name: str) -> int:
         """How many values (not gaps) column ``name`` holds."""
-        return int(np.count_nonzero(np.isfinite(self.column(name))))
+        return int(np.count_nonzero(np.isfinite(self.values[self.find(name)])))
 
     def row_of(self, index: int) -> int:
         """File row of the ``index``-th time."""
@@ -95,6 +132,53 @@ def split_unit(header: str) -> tuple[str, str]:
         return text, ""
     unit = match.group("bracket") if match.group("bracket") is not None else match.group("paren")
     return match.group("name").strip(), unit.strip()
+
+
+def _header(name: str, unit: str) -> str:
+    return f"{name} [{unit}]" if unit else name
+
+
+def _labels(names: tuple[str, ...], units: tuple[str, ...]) -> list[str]:
+    """How messages name each column: its name, or its header when the name is shared."""
+    return [_header(n, u) if names.count(n) > 1 else n for n, u in zip(names, units, strict=True)]
+
+
+def _matching(requested: str, names: tuple[str, ...], units: tuple[str, ...]) -> list[int]:
+    """Indices of the columns ``requested`` designates: same name and, when it states a unit,
+    the same stated unit."""
+    name, unit = split_unit(requested)
+    return [
+        i
+        for i, (n, u) in enumerate(zip(names, units, strict=True))
+        if n == name and (not unit or (u and same_unit(u, unit)))
+    ]
+
+
+def _find(
+    source: str,
+    requested: str,
+    names: tuple[str, ...],
+    units: tuple[str, ...],
+    option: str,
+    *,
+    what: str = "",
+) -> int:
+    """The one column ``requested`` designates, else an InputError whose reason starts with
+    ``what`` and lists the columns."""
+    matches = _matching(requested, names, units)
+    if len(matches) == 1:
+        return matches[0]
+    headers = [_header(n, u) for n, u in zip(names, units, strict=True)]
+    hint = f"; choose one with {option}" if option else ""
+    if not matches:
+        reason = f"{what}not found (columns: {', '.join(headers) or 'none'}){hint}"
+    else:
+        shared = ", ".join(headers[i] for i in matches)
+        reason = (
+            f"{what}ambiguous: {len(matches)} columns are named so ({shared}); "
+            f"add the unit, e.g. {headers[matches[0]]!r}{hint}"
+        )
+    raise InputError([Problem(source, f"column {requested.strip()}", reason)])
 
 
 def same_unit(a: str, b: str) -> bool:
@@ -131,26 +215,19 @@ def parse_record(text: str, source: str = "<text>", *, time_column: str | None =
         raise InputError([Problem(source, "(file)", "empty: expected a header and data rows")])
     header_row, header = lines[0]
     names, units = zip(*(split_unit(cell) for cell in header), strict=True)
-    problems = _header_problems(source, header_row, names)
+    problems = _header_problems(source, header_row, names, units)
     if problems:
         raise InputError(problems)
-    time_name = names[0] if time_column is None else time_column
-    if time_name not in names:
-        raise InputError(
-            [
-                Problem(
-                    source,
-                    f"column {time_name}",
-                    f"time column not found (columns: {', '.join(names)}); "
-                    "choose it with --time-column",
-                )
-            ]
-        )
-    time_index = names.index(time_name)
+    if time_column is None:
+        time_index = 0
+    else:
+        time_index = _find(source, time_column, names, units, "--time-column", what="time column ")
+    time_name = names[time_index]
     data_names = tuple(n for i, n in enumerate(names) if i != time_index)
     if not data_names:
         raise InputError([Problem(source, f"row {header_row}", "no data column besides the time")])
     data_units = tuple(u for i, u in enumerate(units) if i != time_index)
+    labels = _labels(data_names, data_units)
 
     problems = []
     times: list[float] = []
@@ -189,7 +266,7 @@ def parse_record(text: str, source: str = "<text>", *, time_column: str | None =
             first_row_of.setdefault(time, row)
         cells_out = []
         for name, cell in zip(
-            data_names, (c for i, c in enumerate(cells) if i != time_index), strict=True
+            labels, (c for i, c in enumerate(cells) if i != time_index), strict=True
         ):
             cells_out.append(_value_cell(source, row, name, cell, problems))
         if time is not None:
@@ -197,7 +274,7 @@ def parse_record(text: str, source: str = "<text>", *, time_column: str | None =
             rows.append(row)
             values.append(cells_out)
     if problems:
-        raise InputError(_capped(problems, source))
+        raise InputError(capped(problems, source, MAX_PROBLEMS))
     if len(times) < MIN_ROWS:
         raise InputError(
             [
@@ -220,21 +297,28 @@ def parse_record(text: str, source: str = "<text>", *, time_column: str | None =
     )
 
 
-def _header_problems(source: str, row: int, names: tuple[str, ...]) -> list[Problem]:
+def _header_problems(
+    source: str, row: int, names: tuple[str, ...], units: tuple[str, ...]
+) -> list[Problem]:
+    """Unnamed columns, and names shared by columns that do not state different units."""
     problems = []
-    seen: dict[str, int] = {}
-    for index, name in enumerate(names, start=1):
+    seen: dict[str, list[int]] = {}
+    for index, (name, unit) in enumerate(zip(names, units, strict=True), start=1):
         if not name:
             problems.append(Problem(source, f"row {row}, column {index}", "column without a name"))
-        elif name in seen:
+            continue
+        earlier = seen.setdefault(name, [])
+        clash = next((i for i in earlier if same_unit(units[i - 1], unit)), None)
+        if clash is not None:
             problems.append(
                 Problem(
                     source,
                     f"row {row}, column {name}",
-                    f"two columns are named {name!r} (columns {seen[name]} and {index})",
+                    f"two columns are named {name!r} (columns {clash} and {index}); rename one, "
+                    "or state their different units in brackets",
                 )
             )
-        seen.setdefault(name, index)
+        earlier.append(index)
     return problems
 
 
@@ -269,20 +353,6 @@ def _value_cell(source: str, row: int, column: str, cell: str, problems: list) -
             Problem(source, where, f"{text!r} is not a number (leave the cell empty for a gap)")
         )
         return float("nan")
-    if value < 0:
-        problems.append(
-            Problem(
-                source, where, f"negative value {value:g}: loads and amounts cannot be negative"
-            )
-        )
     return value
 
 
-def _capped(problems: list[Problem], source: str) -> list[Problem]:
-    if len(problems) <= MAX_PROBLEMS:
-        return problems
-    more = len(problems) - MAX_PROBLEMS
-    return [
-        *problems[:MAX_PROBLEMS],
-        Problem(source, "(file)", f"{more} more problem(s) not shown"),
-    ]

@@ -3,8 +3,15 @@
 Method (Dakos et al. 2012, PLoS ONE 7:e41010, "Methods for detecting early warnings of critical
 transitions in time series illustrated using simulated ecological data"):
 
-1. the series must be evenly spaced; missing values inside it are filled by linear
-   interpolation (and marked), leading and trailing gaps are cut off;
+1. the series must be evenly spaced: every spacing between the times of consecutive values,
+   divided by the number of grid steps it spans (a gap of one value spans two), lies within
+   GRID_TOLERANCE of the median spacing, and no time drifts further than that from the even
+   grid through the first and last values; values are placed on that grid (dated at its times);
+   missing values inside it are filled by linear interpolation (and marked), leading and
+   trailing gaps are cut off.
+   Values may be any finite real numbers (anomalies, logarithms, zeros): every indicator below
+   is defined for them, and variance, standard deviation, autocorrelation and skewness do not
+   change when a constant is added to the series (the kernel trend absorbs it);
 2. the slow trend is removed by Gaussian kernel smoothing (Nadaraya-Watson: a weighted mean
    with weights exp(-(t_i - t_j)^2 / (2 h^2)), bandwidth h in time units);
 3. in a rolling window of a fixed share of the series (default half), the residuals give:
@@ -41,7 +48,12 @@ MIN_POINTS = 10  # evenly spaced values needed at all
 MIN_WINDOW_POINTS = 5  # values in one window (lag-1 autocorrelation needs a few pairs)
 KERNEL_REACH = 8.0  # kernel cut at this many bandwidths (exp(-32) ~ 1e-14)
 MAX_FILLED_SHARE_FACTOR = 2  # refuse a grid with more than twice as many points as values
-GRID_TOLERANCE = 1e-6  # times within this share of the spacing count as on the regular grid
+GRID_TOLERANCE = 0.01
+"""Largest departure from even spacing, as a share of the spacing. Decimal years are written
+rounded: monthly samples to 4 decimals (2001.0833) are each off by up to 5e-5 year, so
+consecutive spacings differ by up to 1e-4 year, 0.12% of a month; 1% accepts that with room to
+spare and still refuses a sample taken days off a monthly grid (dates converted from the
+calendar, whose months last 28 to 31 days, differ by up to 10% and are refused)."""
 INDICATORS = ("variance", "standard deviation", "lag-1 autocorrelation", "skewness")
 
 
@@ -160,23 +172,29 @@ def early_warning(
     unit: str = "",
     source: str = "<data>",
     time_name: str = "time",
+    rows: np.ndarray | None = None,
 ) -> Signals:
-    """Indicators of an evenly spaced series (NaN for gaps); see the module docstring.
+    """Indicators of an evenly spaced series of any finite real values (NaN for gaps); see the
+    module docstring.
 
     ``window`` is the share of the series in each rolling window (0 < window <= 1; None: the
     default);
     ``bandwidth`` the kernel bandwidth in time units (default DEFAULT_BANDWIDTH_SHARE of the
-    record length).
+    record length);
+    ``rows`` the file row of each time, for messages (default: messages count points from 1).
     """
     times = np.asarray(times, dtype=float)
     values = np.asarray(values, dtype=float)
+    if times.shape != values.shape or times.ndim != 1:
+        raise ValueError("times and values must be 1-D arrays of the same length")
     column = f"column {variable}" if variable else "(series)"
+    places = _Places(source, column, time_name, rows)
     window = DEFAULT_WINDOW if window is None else float(window)
     if not 0 < window <= 1:
         raise InputError([Problem("--window", "window", "must be a share of the series in (0, 1]")])
     if bandwidth is not None and not (np.isfinite(bandwidth) and bandwidth > 0):
         raise InputError([Problem("--bandwidth", "bandwidth", "must be a positive time span")])
-    grid, series, filled = _regular(times, values, source, column)
+    grid, series, filled = _regular(times, values, places)
     if grid.size < MIN_POINTS:
         raise InputError(
             [
@@ -226,44 +244,98 @@ def early_warning(
     )
 
 
-def _regular(times: np.ndarray, values: np.ndarray, source: str, column: str):
-    """The series on its regular grid: the spacing is the median step between known values;
-    missing grid points and gaps are filled linearly; off-grid times are refused."""
-    known = np.isfinite(values)
-    if np.count_nonzero(known) < 2:
-        raise InputError([Problem(source, column, "fewer than two values")])
+@dataclass(frozen=True)
+class _Places:
+    """Where a problem with the ``index``-th time or value of a series is, for messages."""
+
+    source: str
+    column: str
+    time_name: str
+    rows: np.ndarray | None
+
+    def place(self, index: int) -> str:
+        return f"point {index + 1}" if self.rows is None else f"row {int(self.rows[index])}"
+
+    def at(self, index: int, *, time: bool = False) -> str:
+        where = f"column {self.time_name}" if time else self.column
+        return f"{self.place(index)}, {where}"
+
+    def problem(self, index: int, reason: str, *, time: bool = False) -> InputError:
+        return InputError([Problem(self.source, self.at(index, time=time), reason)])
+
+
+def _regular(times: np.ndarray, values: np.ndarray, places: _Places):
+    """The series on its even grid (times, values with gaps filled, which were filled).
+
+    Only times with a value count. The spacing is the median step between consecutive ones;
+    each step must be a whole number of spacings (a gap spans several) within GRID_TOLERANCE of
+    the spacing per grid step; the grid then runs evenly from the first to the last value, and
+    each time must lie within GRID_TOLERANCE of a spacing from its grid point (no slow drift).
+    Values are placed on their grid points and gaps interpolated linearly.
+    """
+    bad_value = np.flatnonzero(np.isinf(values))
+    if bad_value.size:
+        raise places.problem(bad_value[0], f"value {values[bad_value[0]]:g} is not finite")
+    known = np.flatnonzero(np.isfinite(values))
+    bad_time = known[~np.isfinite(times[known])]
+    if bad_time.size:
+        raise places.problem(bad_time[0], "time is not a finite number", time=True)
+    if known.size < 2:
+        raise InputError([Problem(places.source, places.column, "fewer than two values")])
     t, x = times[known], values[known]
-    spacing = float(np.median(np.diff(t)))
-    offsets = (t - t[0]) / spacing
-    steps = np.rint(offsets)
-    off = np.nonzero(np.abs(offsets - steps) > GRID_TOLERANCE * max(1.0, float(steps.max())))[0]
-    if off.size:
-        raise InputError(
-            [
-                Problem(
-                    source,
-                    column,
-                    f"time {t[off[0]]:g} is off the regular spacing {spacing:g}; the indicators "
-                    "need evenly spaced values (gaps are allowed)",
-                )
-            ]
+    steps = np.diff(t)
+
+    def refuse(j: int, reason: str) -> InputError:  # j: position among the known values
+        return places.problem(int(known[j]), reason, time=True)
+
+    backwards = np.flatnonzero(steps <= 0)
+    if backwards.size:
+        j = backwards[0] + 1
+        raise refuse(
+            j,
+            f"time {t[j]:.10g} does not come after {t[j - 1]:.10g} "
+            f"({places.place(known[j - 1])}); the times must increase",
         )
-    grid = t[0] + spacing * np.arange(int(steps[-1]) + 1)
-    if grid.size > MAX_FILLED_SHARE_FACTOR * t.size:
+    spacing = float(np.median(steps))
+    counts = np.maximum(np.rint(steps / spacing), 1.0)
+    uneven = np.flatnonzero(np.abs(steps / counts - spacing) > GRID_TOLERANCE * spacing)
+    if uneven.size:
+        j = uneven[0] + 1
+        raise refuse(
+            j,
+            f"time {t[j]:.10g} is {steps[j - 1]:.6g} after the previous value "
+            f"({places.place(known[j - 1])}), {steps[j - 1] / spacing:.4g} times the median "
+            f"spacing {spacing:.6g}; the indicators need evenly spaced times: each step a whole "
+            f"number of spacings (gaps are allowed) within {GRID_TOLERANCE:.0%} of the spacing",
+        )
+    index = np.concatenate([[0], np.cumsum(counts).astype(int)])
+    spacing = float((t[-1] - t[0]) / index[-1])
+    drift = np.abs(t - (t[0] + spacing * index)) / spacing
+    drifting = np.flatnonzero(drift > GRID_TOLERANCE)
+    if drifting.size:
+        j = drifting[0]
+        raise refuse(
+            j,
+            f"time {t[j]:.10g} is {drift[j]:.3g} of a spacing away from the even grid from "
+            f"{t[0]:.10g} in steps of {spacing:.6g}; the times drift (the indicators need "
+            f"evenly spaced times, within {GRID_TOLERANCE:.0%} of the spacing)",
+        )
+    if index[-1] + 1 > MAX_FILLED_SHARE_FACTOR * known.size:
         raise InputError(
             [
                 Problem(
-                    source,
-                    column,
-                    f"with the time step {spacing:g}, most of the {grid.size} evenly "
+                    places.source,
+                    places.column,
+                    f"with the time step {spacing:g}, most of the {index[-1] + 1} evenly "
                     "spaced values would be interpolated; check the times",
                 )
             ]
         )
-    series = np.interp(grid, t, x)
-    filled = np.ones(grid.size, dtype=bool)
-    filled[steps.astype(int)] = False
-    return grid, series, filled
+    grid_steps = np.arange(index[-1] + 1)
+    series = np.interp(grid_steps, index, x)
+    filled = np.ones(grid_steps.size, dtype=bool)
+    filled[index] = False
+    return t[0] + spacing * grid_steps, series, filled
 
 
 def record_signals(
@@ -274,7 +346,8 @@ def record_signals(
     bandwidth: float | None = None,
     before: float | None = None,
 ) -> Signals:
-    """Indicators of one column of a monitoring record (default: its only data column).
+    """Indicators of one column of a monitoring record (default: its only data column), named
+    with or without its unit (``TP`` or ``TP [g P / m2]``); its values may be any real numbers.
 
     ``before`` keeps the times strictly before it (e.g. the year of a transition, whose jump
     would otherwise dominate the indicators).
@@ -286,26 +359,28 @@ def record_signals(
                     Problem(
                         record.source,
                         "(columns)",
-                        f"several data columns ({', '.join(record.names)}); choose one with "
+                        f"several data columns ({', '.join(record.headers)}); choose one with "
                         "--column",
                     )
                 ]
             )
         column = record.names[0]
-    values = record.column(column, option="--column")
-    times = record.times
+    index = record.find(column, option="--column")
+    values = record.column(column, option="--column", amounts=False)
+    times, rows = record.times, record.rows
     if before is not None:
         keep = times < before
-        times, values = times[keep], values[keep]
+        times, values, rows = times[keep], values[keep], rows[keep]
     return early_warning(
         times,
         values,
         window=window,
         bandwidth=bandwidth,
-        variable=column,
-        unit=record.unit(column),
+        variable=record.label(index),
+        unit=record.units[index],
         source=record.source,
         time_name=record.time_name,
+        rows=rows,
     )
 
 

@@ -1,5 +1,7 @@
-"""Reading monitoring records: layout, units, gaps, and every malformed file rejected with exit
-code 2 and a message naming the row or the column (for `planner fit` and `planner signals`)."""
+"""Reading monitoring records: layout, units, gaps, columns named with or without their unit,
+any real values (negative ones refused where the fit reads amounts), and every malformed file
+rejected with exit code 2 and a message naming the row or the column (for `planner fit` and
+`planner signals`)."""
 
 from __future__ import annotations
 
@@ -17,6 +19,7 @@ from planner.monitoring import parse_record, read_record, same_unit, split_unit
 from planner.scenario import load_scenario
 
 ALDER = Path(__file__).resolve().parent.parent / "scenarios" / "alder-mere.toml"
+DEMO = ALDER.parent / "data" / "alder-mere-monitoring.csv"
 
 GOOD = """# invented test record
 year,load [g P / m2 / yr],TP [g P / m2],chlorophyll (ug/L)
@@ -80,9 +83,9 @@ MALFORMED = {
         "year,load,TP\n2000,2.0,1.0\n2002,2.1,1.1\n2001,2.2,1.2\n",
         "row 4, column year: time 2001 comes after 2002",
     ),
-    "negative value": (
-        "year,load,TP\n2000,2.0,1.0\n2001,2.1,-0.4\n2002,2.2,1.2\n",
-        "row 3, column TP: negative value -0.4",
+    "infinite value": (
+        "year,load,TP\n2000,2.0,1.0\n2001,2.1,-inf\n2002,2.2,1.2\n",
+        "row 3, column TP: '-inf' is not a number",
     ),
     "non-numeric value": (
         "year,load,TP\n2000,2.0,1.0\n2001,lots,1.1\n2002,2.2,1.2\n",
@@ -99,6 +102,10 @@ MALFORMED = {
     "duplicate column": (
         "year,TP,TP\n2000,2.0,1.0\n2001,2.1,1.1\n",
         "row 1, column TP: two columns are named 'TP'",
+    ),
+    "duplicate column in the same unit": (
+        "year,TP [g P / m2],TP [g P/m2]\n2000,2.0,1.0\n2001,2.1,1.1\n",
+        "row 1, column TP: two columns are named 'TP' (columns 2 and 3)",
     ),
     "only a header": ("year,load,TP\n", "(file): only 0 data row(s)"),
 }
@@ -173,3 +180,106 @@ def test_signals_record_problems_exit_2(tmp_path, argv_tail, text, expected):
     code, stderr = _run(["signals", str(path), *argv_tail])
     assert code == 2, stderr
     assert expected in stderr
+
+
+def _demo_header() -> list[str]:
+    lines = DEMO.read_text(encoding="utf-8").splitlines()
+    return next(line for line in lines if not line.startswith("#")).split(",")
+
+
+def test_the_demo_records_written_headers_name_its_columns():
+    """Each header cell the demo record writes (scenarios/data/make_demo_record.py), e.g.
+    `TP [g P / m2]`, names its column, as does the bare name and the same unit written with
+    parentheses or other spacing (common practice, no source)."""
+    record = read_record(DEMO)
+    header = _demo_header()
+    assert header == ["year", "load [g P / m2 / yr]", "TP [g P / m2]"]
+    assert record.headers == tuple(header[1:])
+    for index, written in enumerate(header[1:]):
+        name = record.names[index]
+        for spelling in (
+            written,
+            name,
+            written.replace(" ", ""),
+            f"{name} ({record.units[index]})",
+        ):
+            assert record.has(spelling)
+            assert record.find(spelling) == index
+            np.testing.assert_array_equal(record.column(spelling), record.values[index])
+            assert record.unit(spelling) == record.units[index]
+    assert read_record(DEMO, time_column="year").times.tolist() == record.times.tolist()
+
+
+def test_fit_takes_columns_by_their_written_headers():
+    """`observations_for` (the fit) accepts the demo's written headers for the load and the
+    observed column and reads the same observations as with the bare names (common practice,
+    no source)."""
+    record, scenario = read_record(DEMO), load_scenario(ALDER)
+    by_name = observations_for(record, scenario, control_column="load", states={"P": "TP"})
+    by_header = observations_for(
+        record,
+        scenario,
+        control_column="load [g P / m2 / yr]",
+        states={"P": "TP [g P / m2]"},
+    )
+    np.testing.assert_array_equal(by_header.values, by_name.values)
+    np.testing.assert_array_equal(by_header.rows, by_name.rows)
+    times = np.linspace(0.0, float(record.times[-1] - record.times[0]), 7)
+    np.testing.assert_array_equal(by_header.path(times), by_name.path(times))
+
+
+def test_missing_and_ambiguous_columns_list_the_columns():
+    """A name in another unit is not found; a name shared by columns in different units is
+    ambiguous until the unit is given; both messages list the columns (common practice, no
+    source)."""
+    text = "year,TP [g P / m2],TP [ug/L],load\n2000,1.0,30,2\n2001,1.1,33,2\n"
+    record = parse_record(text, "two.csv")
+    assert record.names == ("TP", "TP", "load")
+    assert record.find("TP [ug/L]") == 1 and record.find("TP (g P/m2)") == 0
+    with pytest.raises(InputError) as error:
+        record.column("TP", option="--column")
+    (problem,) = error.value.problems
+    assert (problem.source, problem.field) == ("two.csv", "column TP")
+    assert "ambiguous: 2 columns are named so (TP [g P / m2], TP [ug/L])" in problem.reason
+    assert problem.reason.endswith("choose one with --column")
+    with pytest.raises(InputError) as error:
+        record.column("TP [mg/L]")
+    columns = "(columns: TP [g P / m2], TP [ug/L], load)"
+    assert str(error.value) == f"two.csv: column TP [mg/L]: not found {columns}"
+    with pytest.raises(InputError) as error:
+        record.column("load [t/yr]")  # the column states no unit, so none can match
+    assert str(error.value) == f"two.csv: column load [t/yr]: not found {columns}"
+    with pytest.raises(InputError, match=r"column day: time column not found \(columns: year"):
+        parse_record(text, "two.csv", time_column="day")
+
+
+def test_negative_values_are_read_and_refused_only_as_amounts():
+    """Any finite value is read (anomalies and logarithms are negative); reading a column as
+    loads or amounts, as the fit does, refuses the negative ones naming each row (common
+    practice, no source)."""
+    text = "year,load,TP\n2000,2.0,1.0\n2001,2.1,-0.4\n2002,2.2,0\n2003,2.3,-1e-3\n"
+    record = parse_record(text, "signs.csv")
+    np.testing.assert_array_equal(record.column("TP", amounts=False), [1.0, -0.4, 0.0, -1e-3])
+    with pytest.raises(InputError) as error:
+        record.column("TP")
+    assert [str(p) for p in error.value.problems] == [
+        "signs.csv: row 3, column TP: negative value -0.4: loads and amounts cannot be negative",
+        "signs.csv: row 5, column TP: negative value -0.001: loads and amounts cannot be negative",
+    ]
+    np.testing.assert_array_equal(record.column("load"), [2.0, 2.1, 2.2, 2.3])
+
+
+def test_fit_refuses_a_negative_observation_and_signals_accepts_it(tmp_path):
+    """The fit reads loads and lake TP as amounts and refuses a negative value by row and
+    column (exit 2); `signals` reads any real value and computes the indicators (exit 0)
+    (common practice, no source)."""
+    values = [1.0 + 0.05 * i for i in range(12)]
+    values[4] = -0.4
+    lines = ["year,load,TP", *(f"{2000 + i},2.0,{v}" for i, v in enumerate(values))]
+    path = tmp_path / "record.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    code, stderr = _run(["fit", str(path), "--scenario", str(ALDER), "--bootstrap", "0"])
+    assert code == 2, stderr
+    assert f"{path}: row 6, column TP: negative value -0.4" in stderr
+    code, stderr = _run(["signals", str(path), "--column", "TP"])
+    assert code == 0, stderr

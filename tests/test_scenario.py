@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import datetime
 import math
 import pickle
 import tomllib
@@ -16,7 +17,7 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 from pydantic import ValidationError
 
-from planner.errors import InputError
+from planner.errors import MAX_PROBLEMS, InputError, Problem, quote
 from planner.models import BUILTIN_INFO, ModelInfo
 from planner.scenario import (
     Scenario,
@@ -25,6 +26,13 @@ from planner.scenario import (
     scenario_from_data,
     scenario_to_toml,
 )
+from planner.scenario._base import MAX_LABEL, MAX_YEARS
+from planner.scenario.blocks import MAX_MEASURES, MAX_SETTLE_YEARS
+from planner.scenario.io import MAX_NESTING, MAX_SCENARIO_BYTES
+from planner.scenario.model_block import MAX_FORMULA_PARAMETERS
+from planner.scenario.root import MAX_SCHEDULES
+from planner.scenario.schedule_blocks import MAX_ACTIONS
+from planner.scenario.uncertainty import MAX_MEMBERS
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 DEMOS = sorted(SCENARIOS.glob("*.toml"))
@@ -59,10 +67,10 @@ def _data(name: str) -> dict:
     return tomllib.loads((SCENARIOS / name).read_text(encoding="utf-8"))
 
 
-def _problems(data: object) -> list[tuple[str, str]]:
+def _problems(data: object, *, strict: bool = False) -> list[tuple[str, str]]:
     """(field, reason) of every problem; fails the test when the data is accepted."""
     with pytest.raises(InputError) as caught:
-        scenario_from_data(data, "case.toml")
+        scenario_from_data(data, "case.toml", strict=strict)
     return [(p.field, p.reason) for p in caught.value.problems]
 
 
@@ -445,6 +453,322 @@ def test_problem_text_names_source_field_and_reason():
 
 
 # --------------------------------------------------------------------------------------------
+# strict types: TOML v1.0.0 (https://toml.io/en/v1.0.0) has Boolean, Integer, Float and String as
+# distinct value types, so `true` is not a number and "40" is not a number
+
+
+def _set(data: dict, where: tuple, value: object) -> dict:
+    node = data
+    for key in where[:-1]:
+        node = node[key]
+    node[where[-1]] = value
+    return data
+
+
+@pytest.mark.parametrize(
+    ("where", "value", "field", "reason"),
+    [
+        (("simulation", "horizon"), True, "simulation.horizon", "expected a number, got true"),
+        (("state", "P"), False, "state.P", "expected a number, got false"),
+        (("control", "range", 1), True, "control.range.1", "expected a number, got true"),
+        (("model", "parameters", "q"), True, "model.parameters.q", "expected a number, got true"),
+        (("schedules", 0, "points", 1, 0), True, "schedules.0.points.1.0", "got true"),
+        (("costs", "measures", 0, "capacity"), True, "costs.measures.0.capacity", "got true"),
+        (("uncertainty", "members"), True, "uncertainty.members", "expected a whole number"),
+        (("uncertainty", "steps_per_year"), True, "uncertainty.steps_per_year", "got true"),
+        (("uncertainty", "priors", 0, "lower"), False, "uncertainty.priors.0.lower", "got false"),
+        (("target", "threshold"), True, "target.threshold", "expected a number, got true"),
+        (("target", "variable"), 1.0, "target.variable", "expected text in quotes, got 1.0"),
+        (("control",), [1.0], "control", "expected a table, got a list of 1 item"),
+        (("target", "regime"), "low", "target.regime", "expected 'lowest' or 'highest', got 'low'"),
+    ],
+)
+@pytest.mark.parametrize("strict", [True, False], ids=["file", "editor"])
+def test_a_value_of_another_type_is_refused(where, value, field, reason, strict):
+    problems = dict(_problems(_set(_data("alder-mere.toml"), where, value), strict=strict))
+    assert field in problems, problems
+    assert reason in problems[field]
+
+
+@pytest.mark.parametrize(
+    ("where", "value", "field", "reason"),
+    [
+        (("simulation", "horizon"), "40", "simulation.horizon", "expected a number, got '40'"),
+        (("state", "P"), "7.1", "state.P", "expected a number, got '7.1'"),
+        (
+            ("uncertainty", "members"),
+            2000.0,
+            "uncertainty.members",
+            "expected a whole number, got 2000.0",
+        ),
+    ],
+)
+def test_a_file_holds_numbers_as_numbers(where, value, field, reason):
+    problems = dict(_problems(_set(_data("alder-mere.toml"), where, value), strict=True))
+    assert problems == {field: reason}
+
+
+def test_the_editor_sends_numbers_as_typed_text():
+    """The web editor's fields hold text; outside files, text that reads as a number is one."""
+    data = _set(_data("alder-mere.toml"), ("simulation", "horizon"), "40")
+    _set(data, ("schedules", 0, "points"), [["0", "2.6"], ["3", "1.2"]])
+    scenario = scenario_from_data(data)
+    assert scenario.simulation.horizon == 40.0
+    assert scenario.schedules[0].points == ((0.0, 2.6), (3.0, 1.2))
+
+
+def test_true_as_the_horizon_in_a_file():
+    """The case of the hardening report: `horizon = true` once meant one year."""
+    text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        parse_scenario(text.replace("horizon = 40.0", "horizon = true"), "lake.toml")
+    assert [str(p) for p in caught.value.problems] == [
+        "lake.toml: simulation.horizon: expected a number, got true"
+    ]
+
+
+def test_whole_numbers_are_numbers():
+    """TOML v1.0.0 writes 40 as an integer; where a number is expected, it is one."""
+    data = _set(_data("alder-mere.toml"), ("simulation", "horizon"), 40)
+    _set(data, ("control", "range"), [0, 5])
+    scenario = scenario_from_data(data)
+    assert scenario.simulation.horizon == 40.0
+    assert scenario.control.range == (0.0, 5.0)
+
+
+def test_a_kind_of_another_type_is_refused_by_name():
+    data = _set(_data("alder-mere.toml"), ("schedules", 0, "kind"), True)
+    problems = dict(_problems(data))
+    assert "unknown kind true" in problems["schedules.0"]
+    assert "'path', 'staircase', 'overshoot'" in problems["schedules.0"]
+
+
+def test_a_missing_kind_lists_the_kinds():
+    data = _data("alder-mere.toml")
+    del data["schedules"][0]["kind"]
+    assert dict(_problems(data)) == {
+        "schedules.0": "kind is missing; give one of path, staircase, overshoot"
+    }
+
+
+# --------------------------------------------------------------------------------------------
+# a byte-order mark: the Unicode Standard (section 2.6, Encoding Schemes) says a BOM is neither
+# required nor recommended for UTF-8 but may be met in UTF-8 data (editors on Windows write one)
+
+
+def test_a_byte_order_mark_is_ignored_in_text():
+    text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
+    assert parse_scenario("\ufeff" + text) == parse_scenario(text)
+
+
+def test_a_byte_order_mark_is_ignored_in_a_file(tmp_path):
+    original = SCENARIOS / "alder-mere.toml"
+    marked = tmp_path / "marked.toml"
+    marked.write_text(original.read_text(encoding="utf-8"), encoding="utf-8-sig")
+    assert marked.read_bytes().startswith(b"\xef\xbb\xbf")
+    assert load_scenario(marked) == load_scenario(original)
+
+
+def test_only_a_leading_byte_order_mark_is_ignored():
+    text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        parse_scenario("\ufeff\ufeff" + text, "twice.toml")
+    assert [p.field for p in caught.value.problems] == ["(file)"]
+
+
+# --------------------------------------------------------------------------------------------
+# messages never repeat a huge value (common practice, no source)
+
+LONG = 900_000
+
+
+def test_a_long_value_is_cut_short_in_the_message():
+    data = _set(_data("alder-mere.toml"), ("control", "parameter"), "L" * LONG)
+    ((field, reason),) = _problems(data)
+    assert field == "control.parameter"
+    assert reason.startswith(f"{'L' * 60!r}... ({LONG} characters) is not a model parameter")
+    assert len(reason) < 200
+
+
+def test_a_long_kind_is_cut_short_in_the_message():
+    data = _set(_data("alder-mere.toml"), ("schedules", 0, "kind"), "p" * LONG)
+    ((_, reason),) = _problems(data)
+    assert f"({LONG} characters)" in reason
+    assert len(reason) < 250
+
+
+def test_a_long_key_is_cut_short_in_the_field():
+    data = _set(_data("alder-mere.toml"), ("simulation", "h" * LONG), 1.0)
+    ((field, _),) = _problems(data)
+    assert field == f"simulation.{'h' * 60}... ({LONG} characters)"
+
+
+def test_an_odd_key_is_quoted_in_the_field():
+    data = _set(_data("alder-mere.toml"), ("simulation", "a\nb"), 1.0)
+    _set(data, ("simulation", "c.d"), 1.0)
+    assert set(_fields(data)) == {"simulation.'a\\nb'", "simulation.'c.d'"}
+
+
+@pytest.mark.parametrize(
+    ("value", "shown"),
+    [
+        (True, "true"),
+        (False, "false"),
+        ("L", "'L'"),
+        ("x" * 61, f"{'x' * 60!r}... (61 characters)"),
+        # str() of it would raise (so pytest gets an id for it)
+        pytest.param(10**5000, "an integer of about 5001 digits", id="5001 digits"),
+        (-7, "-7"),
+        (1e308, "1e+308"),
+        (math.nan, "nan"),
+        ([], "[]"),
+        ([1, 2], "a list of 2 items"),
+        ({"a": 1}, "a table of 1 key"),
+        (datetime.date(1979, 5, 27), "the date or time 1979-05-27"),
+    ],
+)
+def test_quote_spells_values_as_toml_and_cuts_them_short(value, shown):
+    assert quote(value) == shown
+
+
+def test_a_problem_cuts_a_long_reason_short():
+    """A last guard for messages built elsewhere that quote a value in full."""
+    problem = Problem("f.toml", "a" * 5000, "b" * 5000)
+    assert len(str(problem)) < 1000
+    assert problem.reason.endswith("... (5000 characters)")
+
+
+def test_problems_are_capped_with_a_count_of_the_rest():
+    data = _data("alder-mere.toml")
+    for k in range(100):
+        data["state"][f"Z{k}"] = 1.0
+    problems = _problems(data)
+    assert len(problems) == MAX_PROBLEMS + 1
+    assert problems[-1] == (
+        "(file)",
+        f"{100 - MAX_PROBLEMS} more problems not shown; fix the ones above first",
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# nesting and size (common practice, no source)
+
+
+@pytest.mark.parametrize("depth", [MAX_NESTING + 5, 400, 5000])
+@pytest.mark.parametrize("kind", ["array", "table"])
+def test_deeply_nested_text_is_refused_naming_the_file(depth, kind):
+    text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
+    value = "[" * depth + "]" * depth if kind == "array" else "{a = " * depth + "1" + " }" * depth
+    with pytest.raises(InputError) as caught:
+        parse_scenario(f"deep = {value}\n{text}", "deep.toml")
+    (problem,) = caught.value.problems
+    assert problem.source == "deep.toml"
+    assert "nested" in problem.reason
+    assert problem.field == "(file)" or problem.field.startswith("deep.")
+
+
+def test_deeply_nested_data_names_where():
+    nested: object = 1.0
+    for _ in range(MAX_NESTING + 3):
+        nested = [nested]
+    data = _set(_data("alder-mere.toml"), ("state", "P"), nested)
+    ((field, reason),) = _problems(data)
+    assert field.startswith("state.P.0.0.0")
+    assert f"more than {MAX_NESTING} levels" in reason
+
+
+def test_an_integer_too_long_for_python_is_refused():
+    """TOML v1.0.0: integers are 64-bit; Python itself refuses to read one of 5000 digits."""
+    text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        parse_scenario(text.replace("P = 7.1", f"P = {'9' * 5000}"), "digits.toml")
+    assert [(p.field, p.reason) for p in caught.value.problems] == [
+        ("(file)", "not usable: an integer has too many digits")
+    ]
+
+
+def test_an_integer_too_large_for_a_number_is_refused_by_field():
+    data = _set(_data("alder-mere.toml"), ("state", "P"), 10**400)
+    assert _problems(data) == [
+        ("state.P", "an integer of about 401 digits is too large for a number")
+    ]
+
+
+def test_text_over_the_size_limit_is_refused():
+    with pytest.raises(InputError) as caught:
+        parse_scenario("#" * (MAX_SCENARIO_BYTES + 1), "big.toml")
+    assert [p.field for p in caught.value.problems] == ["(file)"]
+
+
+# --------------------------------------------------------------------------------------------
+# limits (common practice, no source): each is refused at its field, and its value is allowed
+
+
+@pytest.mark.parametrize(
+    ("where", "allowed", "refused", "field"),
+    [
+        (("simulation", "horizon"), MAX_YEARS, MAX_YEARS * 1.001, "simulation.horizon"),
+        (("simulation", "horizon"), 1e-9, 0.0, "simulation.horizon"),
+        (("simulation", "settle_cap"), MAX_SETTLE_YEARS, 1e308, "simulation.settle_cap"),
+        (("schedules", 0, "points", 1, 0), MAX_YEARS, 1e308, "schedules.0.points.1.0"),
+        (("schedules", 1, "hold_years"), MAX_YEARS, 1e308, "schedules.1.hold_years"),
+        (("schedules", 2, "step_years"), MAX_YEARS, 1e308, "schedules.2.step_years"),
+        (
+            ("schedules", 3, "actions", 0, "duration"),
+            MAX_YEARS,
+            1e308,
+            "schedules.3.actions.0.duration",
+        ),
+        (("uncertainty", "members"), MAX_MEMBERS, MAX_MEMBERS + 1, "uncertainty.members"),
+        (("uncertainty", "steps_per_year"), 10_000, 10_001, "uncertainty.steps_per_year"),
+        (("control", "label"), "x" * MAX_LABEL, "x" * (MAX_LABEL + 1), "control.label"),
+        (("state_units", "P"), "g" * MAX_LABEL, "g" * (MAX_LABEL + 1), "state_units.P"),
+    ],
+)
+def test_a_limit_is_refused_at_its_field(where, allowed, refused, field):
+    scenario_from_data(_set(_data("alder-mere.toml"), where, allowed))
+    assert field in _fields(_set(_data("alder-mere.toml"), where, refused))
+
+
+def _schedules(count: int) -> list[dict]:
+    return [{"name": f"s{k}", "kind": "path", "points": [[0.0, 1.0]]} for k in range(count)]
+
+
+def _measures(count: int) -> list[dict]:
+    return [{"name": f"m{k}", "capacity": 0.1, "unit_cost": 1.0} for k in range(count)]
+
+
+def _actions(count: int) -> list[dict]:
+    return [
+        {"kind": "parameter-pulse", "parameter": "r", "factor": 0.5, "start": 1.0, "duration": 1.0}
+    ] * count
+
+
+@pytest.mark.parametrize(
+    ("where", "make", "limit", "field"),
+    [
+        (("schedules",), _schedules, MAX_SCHEDULES, "schedules"),
+        (("costs", "measures"), _measures, MAX_MEASURES, "costs.measures"),
+        (("schedules", 3, "actions"), _actions, MAX_ACTIONS, "schedules.3.actions"),
+    ],
+)
+def test_a_count_limit_is_refused_at_its_field(where, make, limit, field):
+    scenario_from_data(_set(_data("alder-mere.toml"), where, make(limit)))
+    problems = dict(_problems(_set(_data("alder-mere.toml"), where, make(limit + 1))))
+    assert f"at most {limit} items" in problems[field]
+
+
+def test_formula_parameters_are_limited():
+    data = tomllib.loads(FORMULA_SCENARIO)
+    parameters = data["model"]["parameters"]
+    while len(parameters) < MAX_FORMULA_PARAMETERS:
+        parameters[f"p{len(parameters)}"] = 1.0
+    scenario_from_data(data)
+    parameters["extra"] = 1.0
+    assert "model.parameters" in _fields(data)
+
+
+# --------------------------------------------------------------------------------------------
 # malformed scenarios never escape as anything but InputError
 
 BASES = [_data(path.name) for path in DEMOS] + [tomllib.loads(FORMULA_SCENARIO)]
@@ -473,8 +797,8 @@ ODD_VALUES = st.one_of(
     st.text(max_size=12),
     st.lists(st.one_of(st.integers(-5, 5), st.floats(allow_nan=True), st.text(max_size=3))),
     st.dictionaries(st.text(max_size=6), st.one_of(st.integers(), st.text(max_size=4)), max_size=3),
-    st.just({}),
-    st.just([]),
+    st.builds(dict),  # a fresh container each time: st.just({}) would share one that the
+    st.builds(list),  # "add" mutation fills, so later examples would start from a changed value
     st.none(),
     st.booleans(),
     st.sampled_from([1e308, -1e308, 10**400, -(10**30), -1.0, -1e-300, 0.0, 5e-324]),

@@ -515,7 +515,7 @@ def test_frontier_view_draws_the_frontier_and_explains_an_irreversible_lake():
     working = run_recompute(draft_of())["working"]
     reported = []
     depths = [0.1, 0.3, 0.5]
-    figure, message = frontier_view.run_frontier(reported.append, 1, working, depths)
+    figure, message = frontier_view.run_frontier(reported.append, 1, working, depths=depths)
     assert message == "" and len(figure.data) > 0
     assert reported and all(0 <= int(value) <= 100 for value, _ in reported)
     expected = recovery_frontier(compute.scenario_of(working["data"]), depths=depths)
@@ -525,8 +525,28 @@ def test_frontier_view_draws_the_frontier_and_explains_an_irreversible_lake():
         for p in expected.points
     )
     tarnby = run_recompute(draft_of("tarnby-water.toml"))["working"]
-    _, refused = frontier_view.run_frontier(reported.append, 1, tarnby, [0.1])
-    assert "irreversible" in refused and "Traceback" not in refused
+    _, refused = frontier_view.run_frontier(reported.append, 1, tarnby, depths=[0.1])
+    assert "not reachable by load cuts alone" in refused and "Traceback" not in refused
+
+
+def test_frontier_takes_the_ramp_and_start_year_typed():
+    """The typed ramp years reach the planner (the least hold equals the planner's frontier
+    with that ramp); a word where a number belongs is refused naming the field."""
+    from planner.frontier import recovery_frontier
+
+    working = run_recompute(draft_of())["working"]
+    figure, message = frontier_view.run_frontier(
+        lambda *_: None, 1, working, "1", "5", depths=[0.3]
+    )
+    assert message == ""
+    expected = recovery_frontier(
+        compute.scenario_of(working["data"]), depths=[0.3], start_year=1.0, ramp_years=5.0
+    )
+    drawn = [y for trace in figure.data for y in (trace.y or ()) if y]
+    assert any(abs(expected.points[0].hold_years - y) < 1e-12 for y in drawn)
+    assert "5" in figure.layout.title.subtitle.text
+    _, refused = frontier_view.run_frontier(lambda *_: None, 1, working, "", "soon", depths=[0.3])
+    assert "ramp years" in refused and "not a number" in refused
 
 
 def test_add_found_appends_a_schedule_with_a_unique_name():
@@ -868,3 +888,25 @@ def test_two_worker_processes_serve_pages_and_recomputes(folders):
     finally:
         server.terminate()
         server.wait(timeout=20)
+
+
+def test_summary_says_an_unreachable_threshold_in_words():
+    """The Tarnby Water demo's recovery fold lies at a negative load: the app says "not
+    reachable by load cuts alone" and never shows that negative number as a threshold."""
+    working = run_recompute(draft_of("tarnby-water.toml"))["working"]
+    text = text_of(diagram.describe(working).children)
+    assert "Recovery threshold not reachable by load cuts alone" in text
+    assert "-0.66" not in text.split("Full summary")[0]
+
+
+def test_a_deeply_nested_file_in_the_folder_does_not_stop_the_app(folders, tmp_path):
+    """One file nested thousands of levels deep (or with a byte-order mark) among the scenarios:
+    the app starts and lists it by its file name."""
+    scenarios, saved = folders
+    (scenarios / "deep.toml").write_text("deep = " + "[" * 3000 + "]" * 3000 + "\n")
+    (scenarios / "marked.toml").write_text("\ufeff" + (DEMOS / ALDER).read_text(encoding="utf-8"))
+    app = create_app(scenarios, save_dir=saved, cache_dir=tmp_path / "cache")
+    assert app.server.test_client().get("/").status_code == 200
+    labels = {o["value"]: o["label"] for o in files.picker_options([files.Folder("S", scenarios)])}
+    assert labels["0/deep.toml"] == "deep.toml"
+    assert "Alder Mere" in labels["0/marked.toml"]

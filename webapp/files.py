@@ -9,14 +9,13 @@ from __future__ import annotations
 import base64
 import binascii
 import re
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
 import planner
 from planner.errors import InputError, Problem
 from planner.scenario import Scenario, load_scenario, parse_scenario, save_scenario
-from planner.scenario.io import MAX_SCENARIO_BYTES
+from planner.scenario.io import MAX_SCENARIO_BYTES, toml_data
 
 SUFFIX = ".toml"
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._-]{0,79}$")
@@ -54,9 +53,9 @@ def scenario_title(path: Path) -> str:
     try:
         if path.stat().st_size > MAX_SCENARIO_BYTES:
             return ""
-        name = tomllib.loads(path.read_text(encoding="utf-8")).get("name", "")
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
-        return ""
+        name = toml_data(path.read_text(encoding="utf-8"), str(path)).get("name", "")
+    except (OSError, UnicodeDecodeError, InputError):
+        return ""  # a broken file is listed by its name; loading it says what is wrong
     return name if isinstance(name, str) else ""
 
 

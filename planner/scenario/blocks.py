@@ -7,13 +7,21 @@ from typing import Literal
 from pydantic import Field, model_validator
 
 from planner.scenario._base import (
+    MAX_YEARS,
     FrozenList,
+    Label,
     Name,
     NonNegative,
+    Pair,
     Positive,
+    PositiveYears,
     Strict,
     raise_problems,
 )
+
+MAX_SETTLE_YEARS = 1_000_000.0
+"""Longest wait for the state to settle (years); the default is far below it."""
+MAX_MEASURES = 100
 
 
 class Control(Strict):
@@ -24,9 +32,9 @@ class Control(Strict):
     """
 
     parameter: str
-    label: str = ""
-    unit: str = ""
-    range: tuple[float, float]
+    label: Label = ""
+    unit: Label = ""
+    range: Pair[float, float]
     lowest_achievable: float | None = None
     max_change_per_year: Positive | None = None
 
@@ -69,9 +77,12 @@ class Target(Strict):
 class Simulation(Strict):
     """Time settings, in years."""
 
-    horizon: Positive = 50.0
+    horizon: PositiveYears = Field(
+        default=50.0, description=f"Years simulated under each schedule (at most {MAX_YEARS:g})."
+    )
     settle_cap: Positive = Field(
         default=20000.0,
+        le=MAX_SETTLE_YEARS,
         description="Most years to wait, control held, for the state to settle before the verdict.",
     )
     state_limit: Positive = Field(
@@ -95,11 +106,11 @@ class Costs(Strict):
     are used cheapest first. ``damage_per_year`` accrues while the target is not met.
     """
 
-    currency: str = "EUR"
+    currency: Label = "EUR"
     discount_rate: float = Field(default=0.03, ge=0.0, lt=1.0)
     baseline: float | None = None
     damage_per_year: NonNegative = 0.0
-    measures: FrozenList[Measure] = ()
+    measures: FrozenList[Measure] = Field(default=(), max_length=MAX_MEASURES)
 
     @property
     def cheapest_first(self) -> list[Measure]:

@@ -8,13 +8,15 @@ from typing import TYPE_CHECKING, Annotated, Literal
 
 from pydantic import Field, model_validator
 
-from planner.errors import FormulaError
+from planner.errors import FormulaError, listing
 from planner.models.info import MAX_FORMULA_VARIABLES, ModelInfo, formula_info
 from planner.models.kinds import BUILTIN_INFO
 from planner.scenario._base import FrozenDict, Loc, Strict, raise_problems
 
 if TYPE_CHECKING:
     from planner.models.base import ModelSpec
+
+MAX_FORMULA_PARAMETERS = 50
 
 
 def _parameter_problems(spec: ModelInfo, parameters: Mapping[str, float]) -> list[tuple[Loc, str]]:
@@ -29,7 +31,7 @@ def _parameter_problems(spec: ModelInfo, parameters: Mapping[str, float]) -> lis
     known = set(spec.parameter_names)
     for name in parameters:
         if name not in known:
-            allowed = ", ".join(spec.parameter_names)
+            allowed = listing(spec.parameter_names)
             problems.append(((name,), f"not a parameter of model {spec.kind!r} (it has {allowed})"))
     return [(("parameters", *loc), reason) for loc, reason in problems]
 
@@ -63,7 +65,7 @@ class FormulaModel(Strict):
 
     kind: Literal["formula"]
     equations: FrozenDict[str, str] = Field(min_length=1, max_length=MAX_FORMULA_VARIABLES)
-    parameters: FrozenDict[str, float] = Field(min_length=1)
+    parameters: FrozenDict[str, float] = Field(min_length=1, max_length=MAX_FORMULA_PARAMETERS)
 
     @model_validator(mode="after")
     def _check_formulas(self) -> FormulaModel:

@@ -6,10 +6,12 @@ from typing import TYPE_CHECKING, Any
 
 from pydantic import Field, model_validator
 
+from planner.errors import listing, quote
 from planner.models.info import ModelInfo
 from planner.scenario._base import (
     FrozenDict,
     FrozenList,
+    Label,
     Loc,
     Name,
     Strict,
@@ -31,6 +33,9 @@ if TYPE_CHECKING:
     import numpy as np
 
     from planner.models.base import ModelSpec, System
+
+MAX_SCHEDULES = 100
+"""Most candidate schedules one scenario may list."""
 
 
 def schedule_control_values(schedule: Schedule) -> list[tuple[Loc, float]]:
@@ -54,10 +59,10 @@ class Scenario(Strict):
     state: FrozenDict[str, float] = Field(min_length=1)
     target: Target
     simulation: Simulation = Simulation()
-    schedules: FrozenList[Schedule] = ()
+    schedules: FrozenList[Schedule] = Field(default=(), max_length=MAX_SCHEDULES)
     costs: Costs | None = None
     uncertainty: Uncertainty | None = None
-    state_units: FrozenDict[str, str] = Field(
+    state_units: FrozenDict[str, Label] = Field(
         default={},
         validate_default=True,
         description="Unit of each state variable, for axes and tables.",
@@ -76,7 +81,7 @@ class Scenario(Strict):
         if control not in parameters:
             yield (
                 ("control", "parameter"),
-                f"{control!r} is not a model parameter (parameters: {', '.join(parameters)})",
+                f"{quote(control)} is not a model parameter (parameters: {listing(parameters)})",
             )
             return
         low, high = self.control.range
@@ -96,14 +101,14 @@ class Scenario(Strict):
                 yield (("state", name), "must be at least 0 (an amount of phosphorus)")
         for name in self.state:
             if name not in variables:
-                yield (("state", name), f"not a model variable (variables: {', '.join(variables)})")
+                yield (("state", name), f"not a model variable (variables: {listing(variables)})")
         for name in self.state_units:
             if name not in variables:
-                yield (("state_units", name), f"not a model variable ({', '.join(variables)})")
+                yield (("state_units", name), f"not a model variable ({listing(variables)})")
         if self.target.variable not in variables:
             yield (
                 ("target", "variable"),
-                f"{self.target.variable!r} is not a model variable ({', '.join(variables)})",
+                f"{quote(self.target.variable)} is not a model variable ({listing(variables)})",
             )
         seen: dict[str, int] = {}
         for index, schedule in enumerate(self.schedules):
@@ -132,12 +137,12 @@ class Scenario(Strict):
     def _action_problems(self, where: Loc, action: ScaleState | ParameterPulse):
         if isinstance(action, ScaleState):
             if action.variable not in self.model_info.variables:
-                yield ((*where, "variable"), f"{action.variable!r} is not a model variable")
+                yield ((*where, "variable"), f"{quote(action.variable)} is not a model variable")
             return
         if action.parameter == self.control.parameter:
             yield ((*where, "parameter"), "the control is moved by the schedule itself")
         elif action.parameter not in self.model.parameters:
-            yield ((*where, "parameter"), f"{action.parameter!r} is not a model parameter")
+            yield ((*where, "parameter"), f"{quote(action.parameter)} is not a model parameter")
 
     # Derived views used by the numerical modules.
     @property

@@ -8,20 +8,28 @@ from pydantic import Field, model_validator
 
 from planner.scenario._base import (
     FrozenList,
+    Label,
     Name,
     NonNegative,
-    Positive,
+    Pair,
+    PositiveYears,
     Strict,
+    Years,
     raise_problems,
 )
+
+MAX_ACTIONS = 50
+"""Most in-lake actions one schedule may carry."""
+MAX_POINTS = 500
+MAX_LEVELS = 200
 
 
 class ScaleState(Strict):
     """At ``time`` multiply a state variable by ``factor`` (P inactivation, dredging)."""
 
     kind: Literal["scale-state"]
-    name: str = ""
-    time: NonNegative
+    name: Label = ""
+    time: Years
     variable: str
     factor: NonNegative
     cost: NonNegative = 0.0
@@ -35,12 +43,12 @@ class ParameterPulse(Strict):
     """
 
     kind: Literal["parameter-pulse"]
-    name: str = ""
+    name: Label = ""
     parameter: str
     factor: NonNegative
-    start: NonNegative
-    duration: Positive
-    decay_years: NonNegative = 0.0
+    start: Years
+    duration: PositiveYears
+    decay_years: Years = 0.0
     cost: NonNegative = 0.0
 
 
@@ -49,14 +57,14 @@ Action = Annotated[ScaleState | ParameterPulse, Field(discriminator="kind")]
 
 class _Schedule(Strict):
     name: Name
-    actions: FrozenList[Action] = ()
+    actions: FrozenList[Action] = Field(default=(), max_length=MAX_ACTIONS)
 
 
 class PathSchedule(_Schedule):
     """Piecewise-linear (time, control) points; the first value before, the last value after."""
 
     kind: Literal["path"]
-    points: FrozenList[tuple[NonNegative, float]] = Field(min_length=1, max_length=500)
+    points: FrozenList[Pair[Years, float]] = Field(min_length=1, max_length=MAX_POINTS)
 
     @model_validator(mode="after")
     def _check_times(self) -> PathSchedule:
@@ -76,10 +84,10 @@ class StaircaseSchedule(_Schedule):
     """
 
     kind: Literal["staircase"]
-    start: NonNegative = 0.0
-    levels: FrozenList[float] = Field(min_length=1, max_length=200)
-    step_years: Positive
-    ramp_years: NonNegative = 0.0
+    start: Years = 0.0
+    levels: FrozenList[float] = Field(min_length=1, max_length=MAX_LEVELS)
+    step_years: PositiveYears
+    ramp_years: Years = 0.0
 
     @model_validator(mode="after")
     def _check_ramp(self) -> StaircaseSchedule:
@@ -95,12 +103,12 @@ class OvershootSchedule(_Schedule):
     ramp up to ``relax_to`` over ``up_years``, then hold ``relax_to``."""
 
     kind: Literal["overshoot"]
-    start: NonNegative = 0.0
+    start: Years = 0.0
     floor: float
-    down_years: NonNegative
-    hold_years: NonNegative
+    down_years: Years
+    hold_years: Years
     relax_to: float
-    up_years: NonNegative
+    up_years: Years
 
     @model_validator(mode="after")
     def _check_order(self) -> OvershootSchedule:

@@ -60,6 +60,7 @@ from typing import Annotated, Literal
 
 from pydantic import Field, model_validator
 
+from planner.errors import listing, quote
 from planner.scenario._base import (
     FrozenDict,
     FrozenList,
@@ -338,8 +339,8 @@ class JointPrior(Strict):
                     problems.append(
                         (
                             ("centre", index),
-                            f"must be greater than 0: {self.parameters[index]!r} is on the log "
-                            "scale (its centre is the median of a positive value)",
+                            f"must be greater than 0: {quote(self.parameters[index])} is on "
+                            "the log scale (its centre is the median of a positive value)",
                         )
                     )
         return problems
@@ -428,11 +429,11 @@ def _not_drawable(name: str, parameters: Mapping[str, float], control: str) -> s
     """Why a prior cannot be on parameter ``name`` (None when it can)."""
     if name == control:
         return (
-            f"{name!r} is the control, set by each schedule; describe its year-to-year swings "
+            f"{quote(name)} is the control, set by each schedule; describe its year-to-year swings "
             "with [uncertainty.load_variability]"
         )
     if name not in parameters:
-        return f"{name!r} is not a model parameter (parameters: {', '.join(parameters)})"
+        return f"{quote(name)} is not a model parameter (parameters: {listing(parameters)})"
     return None
 
 
@@ -478,12 +479,13 @@ def prior_problems(
             if prior.point is not None:
                 field = next(f for f in ("mean", "median", "low") if f in type(prior).model_fields)
                 reason = (
-                    f"a point mass at {prior.point:g}, but {name!r} must be {relation} {lowest:g}"
+                    f"a point mass at {prior.point:g}, but {quote(name)} must be "
+                    f"{relation} {lowest:g}"
                 )
                 problems.append(((*where, field), reason))
             else:
                 reason = (
-                    f"the prior reaches below {lowest:g}, the physical bound of {name!r}; "
+                    f"the prior reaches below {lowest:g}, the physical bound of {quote(name)}; "
                     f"set lower to {lowest:g} or more (values outside [lower, upper] are never "
                     "drawn)"
                 )
@@ -519,7 +521,8 @@ def _joint_problems(
             problems.append(
                 (
                     (*where, "parameters", index),
-                    f"{name!r} also has its own prior (uncertainty.priors.{independent[name]}); "
+                    f"{quote(name)} also has its own prior "
+                    f"(uncertainty.priors.{independent[name]}); "
                     "give each parameter one prior: remove one of them",
                 )
             )
@@ -534,7 +537,7 @@ def _joint_problems(
             problems.append(
                 (
                     (*where, "centre", index),
-                    f"{centre:g}, but {name!r} must be {relation} {lowest:g}",
+                    f"{centre:g}, but {quote(name)} must be {relation} {lowest:g}",
                 )
             )
             continue
@@ -544,7 +547,7 @@ def _joint_problems(
                 (
                     (*where, "centre", index),
                     f"the joint prior puts {mass:.2g} of its probability below {lowest:g}, the "
-                    f"physical bound of {name!r} (at most {MAX_JOINT_OUTSIDE:g} allowed); "
+                    f"physical bound of {quote(name)} (at most {MAX_JOINT_OUTSIDE:g} allowed); "
                     + (
                         "move the centre further above the bound or shrink the variance"
                         if joint.scales[index] == "log"

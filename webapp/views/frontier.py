@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from dash import Input, Output, State, dcc, html, no_update
 
-from planner.errors import InputError
+from planner.errors import InputError, Problem
 from planner.figures import frontier_figure, pareto_figure
 from webapp import compute, ids
 from webapp.settings import Settings
@@ -34,6 +34,26 @@ def _progress_box(box: str, bar: str, text: str, label: str) -> html.Div:
     )
 
 
+def _number_field(field_id: str, label: str) -> html.Span:
+    return html.Span(
+        [
+            html.Label(label, htmlFor=field_id, className="field-label"),
+            dcc.Input(id=field_id, type="text", value="", className="text-input short"),
+        ]
+    )
+
+
+def _optional_number(text: str | None, field: str) -> float | None:
+    """A typed number, None when blank; InputError naming the field when not a number."""
+    text = (text or "").strip()
+    if not text:
+        return None
+    try:
+        return float(text)
+    except ValueError:
+        raise InputError([Problem("frontier", field, f"{text[:40]!r} is not a number")]) from None
+
+
 def _graph(graph_id: str, text: str) -> dcc.Graph:
     return dcc.Graph(id=graph_id, figure=placeholder_figure(text), config={"displaylogo": False})
 
@@ -48,6 +68,11 @@ def layout() -> html.Div:
             ),
             html.Div(
                 [
+                    _number_field(ids.FRONTIER_START_YEAR, "Descent starts in year (blank: 0)"),
+                    _number_field(
+                        ids.FRONTIER_RAMP_YEARS,
+                        "Ramp years (blank: the rate limit, else 2; 0: instant)",
+                    ),
                     html.Button(
                         "Draw the frontier", id=ids.FRONTIER_RUN, className="button primary"
                     ),
@@ -89,8 +114,9 @@ def _reporter(set_progress):
     return compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
 
 
-def run_frontier(set_progress, _clicks, working, depths=None):
-    """Background worker -> (figure, message). ``depths`` (control units) only for tests."""
+def run_frontier(set_progress, _clicks, working, start_text=None, ramp_text=None, depths=None):
+    """Background worker -> (figure, message). ``depths`` (control units) only for tests;
+    the start year and ramp years as typed (blank: the planner's defaults)."""
     scenario = working_scenario(working)
     if scenario is None:
         return no_update, "Choose a scenario first."
@@ -98,8 +124,15 @@ def run_frontier(set_progress, _clicks, working, depths=None):
 
     diagram, _ = compute.diagram_of(scenario)
     try:
+        options = {}
+        start_year = _optional_number(start_text, "start year")
+        ramp_years = _optional_number(ramp_text, "ramp years")
+        if start_year is not None:
+            options["start_year"] = start_year
+        if ramp_years is not None:
+            options["ramp_years"] = ramp_years
         frontier = recovery_frontier(
-            scenario, diagram=diagram, depths=depths, progress=_reporter(set_progress)
+            scenario, diagram=diagram, depths=depths, progress=_reporter(set_progress), **options
         )
     except InputError as error:
         return placeholder_figure("No frontier for this scenario"), _problems(error)
@@ -173,6 +206,8 @@ def register(callback, settings: Settings) -> None:
         Output(ids.FRONTIER_MESSAGE, "children"),
         Input(ids.FRONTIER_RUN, "n_clicks"),
         State(ids.WORKING, "data"),
+        State(ids.FRONTIER_START_YEAR, "value"),
+        State(ids.FRONTIER_RAMP_YEARS, "value"),
         background=True,
         interval=400,
         progress=[
