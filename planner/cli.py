@@ -7,17 +7,28 @@ error (a bug: please report it with the traceback).
 from __future__ import annotations
 
 import argparse
+import importlib
 import json
+import logging
 import os
+import re
 import sys
 import traceback
-from collections.abc import Callable, Sequence
-from pathlib import Path
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+from functools import partial
 
+from planner import __version__
 from planner.errors import InputError, Problem
+from planner.progress import ProgressReport, is_terminal
 
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT = 0, 1, 2
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {}
+LOG = logging.getLogger("planner.cli")  # by name: run as `python -m planner.cli`, too
+LOGGERS = ("planner", "webapp")
+"""Loggers whose messages the command shows on standard error (files written, warnings, progress
+lines away from a terminal); their level follows -q / -v."""
+TIME_FORMAT = "%Y-%m-%d %H:%M:%S"
 
 
 def command(name: str):
@@ -39,7 +50,7 @@ def _write(args: argparse.Namespace, option: str, text: str) -> None:
 
     path = getattr(args, option)
     write_user_text(path, text, overwrite=args.force)
-    print(f"wrote {path}", file=sys.stderr)
+    LOG.info("wrote %s", path)
 
 
 def _check_outputs(args: argparse.Namespace) -> None:
@@ -64,10 +75,46 @@ def _add_force(sub: argparse._SubParsersAction) -> None:
             )
 
 
-def _progress():
-    from planner.progress import TerminalProgress
+class MessageFormatter(logging.Formatter):
+    """A log message as plain text: ``wrote briefing.html`` on a terminal; elsewhere (a log file,
+    CI output) preceded by the date and time, which a log needs. Warnings and errors start with
+    their level (``warning: ...``)."""
 
-    return TerminalProgress()
+    def __init__(self, *, stamped: bool):
+        super().__init__(datefmt=TIME_FORMAT)
+        self.stamped = stamped
+
+    def format(self, record: logging.LogRecord) -> str:
+        text = super().format(record)  # the message, and a traceback when one is attached
+        if record.levelno >= logging.WARNING:
+            text = f"{record.levelname.lower()}: {text}"
+        if self.stamped:
+            text = f"{self.formatTime(record, self.datefmt)} {text}"
+        return text
+
+
+@contextmanager
+def _messages_to_stderr(*, quiet: bool, verbose: bool) -> Iterator[None]:
+    """Show the planner's log messages on standard error while a command runs: warnings only
+    with ``quiet``, debugging messages too with ``verbose``. The loggers are restored afterwards,
+    so that ``main`` called from a script or a notebook leaves their logging as it was."""
+    level = logging.DEBUG if verbose else logging.WARNING if quiet else logging.INFO
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(MessageFormatter(stamped=not is_terminal(sys.stderr)))
+    saved = []
+    for name in LOGGERS:
+        logger = logging.getLogger(name)
+        saved.append((logger, logger.level, logger.propagate))
+        logger.setLevel(level)
+        logger.propagate = False  # shown once, here, even when the caller configured logging
+        logger.addHandler(handler)
+    try:
+        yield
+    finally:
+        for logger, old_level, propagate in saved:
+            logger.removeHandler(handler)
+            logger.setLevel(old_level)
+            logger.propagate = propagate
 
 
 @command("check")
@@ -96,7 +143,7 @@ def _diagram(args: argparse.Namespace) -> int:
     from planner.scenario import load_scenario
 
     scenario = load_scenario(args.file)
-    diagram = diagram_for(scenario, progress=_progress())
+    diagram = diagram_for(scenario, progress=args.progress)
     standing = locate(diagram, scenario.initial_state, scenario.current_control)
     if args.json:
         print(json.dumps(diagram_json(scenario, diagram, standing), indent=2))
@@ -119,23 +166,94 @@ def _diagram(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+_CONSTANT = re.compile(r"\{(planner(?:\.\w+)*):(\w+(?:\.\w+)*)\}")
+"""``{planner.module:NAME}`` in a help text: a default that lives in a planner module."""
+
+
+def _constant_text(match: re.Match[str]) -> str:
+    """The value of ``{planner.module:NAME}`` (or ``Model.field``, a scenario field's default)."""
+    value = importlib.import_module(match.group(1))
+    for name in match.group(2).split("."):
+        fields = getattr(value, "model_fields", None)
+        value = fields[name].default if fields and name in fields else getattr(value, name)
+    return f"{value:g}" if isinstance(value, float) else str(value)
+
+
+def _shows_no_default(default: object) -> bool:
+    """Defaults argparse should not print: absent (None), a flag's False, a repeatable's []."""
+    return default is None or default is False or default == [] or default == argparse.SUPPRESS
+
+
+class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter):
+    """Help that states every option's default. A plain value is added by argparse as
+    ``(default: VALUE)``; where the planner decides (the option's value is None until then), the
+    help text says how in its own ``(default: ...)``, or ``(repeatable; default: ...)`` after
+    another note. A ``{planner.module:NAME}`` in it is the constant NAME of that module, read
+    only when help is shown: parsing imports nothing heavy, and the help never repeats a number
+    kept elsewhere."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = _CONSTANT.sub(_constant_text, action.help or "")
+        if re.search(r"(\(|; )default: ", text) or _shows_no_default(action.default):
+            return text
+        return f"{text} (default: %(default)s)"
+
+
+def _add_verbosity(parser: argparse.ArgumentParser, *, top: bool) -> None:
+    """``-q/--quiet`` and ``-v/--verbose``, before the command or after it. Only the top-level
+    parser has defaults: a sub-command's would overwrite what was given before the command."""
+    defaults = {} if top else {"default": argparse.SUPPRESS}
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument(
+        "-q",
+        "--quiet",
+        action="store_true",
+        help="no progress and no notes (files written): only warnings and errors",
+        **defaults,
+    )
+    group.add_argument(
+        "-v", "--verbose", action="store_true", help="also debugging messages", **defaults
+    )
+
+
+def _add_scenario_file(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("file", metavar="FILE", help="the scenario (TOML)")
+
+
+def _add_json_and_html(parser: argparse.ArgumentParser, html: str) -> None:
+    """``--json`` and ``--html OUT``, alike on every command that has them."""
+    parser.add_argument(
+        "--json", action="store_true", help="print one JSON object instead of the text summary"
+    )
+    parser.add_argument("--html", metavar="OUT", help=f"write {html}")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="planner",
         description="Plan load-reduction paths that bring a hysteretic lake back to clear water.",
         epilog="Screening tool: defer to local regulations and licensed professionals.",
+        formatter_class=HelpFormatter,
     )
-    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    _add_verbosity(parser, top=True)
+    sub = parser.add_subparsers(
+        dest="command",
+        required=True,
+        metavar="COMMAND",
+        parser_class=partial(argparse.ArgumentParser, formatter_class=HelpFormatter),
+    )
     p = sub.add_parser("check", help="validate a scenario file and summarise it")
-    p.add_argument("file")
+    _add_scenario_file(p)
     sub.add_parser("schema", help="print the JSON Schema of scenario files (for editors)")
     p = sub.add_parser("diagram", help="equilibria, folds, thresholds and where the lake stands")
-    p.add_argument("file")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML hysteresis diagram")
+    _add_scenario_file(p)
+    _add_json_and_html(p, "an HTML hysteresis diagram")
     for extend in EXTENSIONS:
         extend(sub)
     _add_force(sub)
+    for command_parser in sub.choices.values():
+        _add_verbosity(command_parser, top=False)
     return parser
 
 
@@ -146,9 +264,20 @@ EXTENSIONS: list[Callable[[argparse._SubParsersAction], None]] = []
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    if args.quiet and args.verbose:
+        parser.error("-q/--quiet and -v/--verbose exclude each other; give one")
+    with _messages_to_stderr(quiet=args.quiet, verbose=args.verbose):
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
+    """Run the command; exit code and messages for what the user can fix, and for bugs."""
     try:
         _check_outputs(args)
-        return COMMANDS[args.command](args)
+        # The bar is closed (where it stands) before any error below is printed.
+        args.progress = ProgressReport(args.command, quiet=args.quiet)
+        with args.progress:
+            return COMMANDS[args.command](args)
     except InputError as error:
         for problem in error.problems:
             print(str(problem), file=sys.stderr)
@@ -176,7 +305,7 @@ def _compare(args: argparse.Namespace) -> int:
     from planner.scenario import load_scenario
 
     scenario = load_scenario(args.file)
-    comparison = compare(scenario, progress=_progress())
+    comparison = compare(scenario, progress=args.progress)
     if args.json:
         print(json.dumps(comparison_json(comparison), indent=2))
     else:
@@ -199,7 +328,7 @@ def _sweep(args: argparse.Namespace) -> int:
     scenario = load_scenario(args.file)
     from planner.sweep import sweep_for
 
-    sweep = sweep_for(scenario, step=args.step, progress=_progress())
+    sweep = sweep_for(scenario, step=args.step, progress=args.progress)
     print(
         json.dumps(sweep_json(scenario, sweep), indent=2)
         if args.json
@@ -223,15 +352,18 @@ def _sweep(args: argparse.Namespace) -> int:
 
 def _more_commands(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("compare", help="run every schedule: verdicts, metrics, costs, briefing")
-    p.add_argument("file")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write the HTML briefing")
+    _add_scenario_file(p)
+    _add_json_and_html(p, "the HTML briefing")
     p.add_argument("--csv", metavar="OUT", help="write the comparison table as CSV")
     p = sub.add_parser("sweep", help="dial the control slowly up and down; find the jumps")
-    p.add_argument("file")
-    p.add_argument("--step", type=float, help="control step (default: range width / 200)")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML figure of the loop")
+    _add_scenario_file(p)
+    p.add_argument(
+        "--step",
+        type=float,
+        metavar="X",
+        help="control step (default: the control range's width / {planner.sweep:DEFAULT_STEPS})",
+    )
+    _add_json_and_html(p, "an HTML figure of the loop")
 
 
 EXTENSIONS.append(_more_commands)
@@ -256,14 +388,15 @@ def _app(args: argparse.Namespace) -> int:
     if remote:
         if args.host not in ("0.0.0.0", "::"):
             allowed += (args.host,)
-        print(
-            f"Warning: serving on {args.host}, beyond this machine; requests naming hosts other "
-            f"than {', '.join(allowed)} are refused (add names with --host-name).",
-            file=sys.stderr,
+        LOG.warning(
+            "serving on %s, beyond this machine; requests naming hosts other than %s are refused "
+            "(add names with --host-name).",
+            args.host,
+            ", ".join(allowed),
         )
 
     def ready(port: int) -> None:
-        print(f"Lake recovery planner: http://{args.host}:{port}/ (Ctrl+C stops)", file=sys.stderr)
+        LOG.info("Lake recovery planner: http://%s:%s/ (Ctrl+C stops)", args.host, port)
 
     serve(
         args.dir,
@@ -278,10 +411,20 @@ def _app(args: argparse.Namespace) -> int:
 
 def _app_command(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("app", help="start the web app (loopback only unless --host says otherwise)")
-    p.add_argument("dir", nargs="?", help="folder of scenario files (default: the bundled demos)")
-    p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
-    p.add_argument("--port", type=int, default=8050, help="port to listen on (default 8050)")
-    p.add_argument("--workers", type=int, help="worker processes (default: one per core, up to 4)")
+    p.add_argument(
+        "dir",
+        nargs="?",
+        metavar="DIR",
+        help="folder of scenario files (default: the bundled demos)",
+    )
+    p.add_argument("--host", default="127.0.0.1", metavar="H", help="address to listen on")
+    p.add_argument("--port", type=int, default=8050, metavar="P", help="port to listen on")
+    p.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        help="worker processes (default: one per core, up to 4, on Linux; 1 elsewhere)",
+    )
     p.add_argument(
         "--allow-remote",
         action="store_true",
@@ -332,7 +475,7 @@ def _frontier(args: argparse.Namespace) -> int:
         start_year=args.start_year,
         ramp_years=args.ramp_years,
         source=args.file,
-        progress=_progress(),
+        progress=args.progress,
     )
     print(json.dumps(frontier_json(frontier), indent=2) if args.json else frontier_text(frontier))
     if args.html:
@@ -357,23 +500,23 @@ def _search(args: argparse.Namespace) -> int:
     from planner.figures import frontier_figure, pareto_figure
     from planner.frontier import recovery_frontier
     from planner.scenario import load_scenario
-    from planner.search import save_found, search, search_json, search_text
+    from planner.search import FAMILY_KINDS, save_found, search, search_json, search_text
 
     scenario = load_scenario(args.file)
     result = search(
         scenario,
         relax_to=args.relax_to,
         by_year=args.by_year,
-        families=args.family or ("overshoot", "staircase"),
+        families=args.family or FAMILY_KINDS,
         source=args.file,
-        progress=_progress(),
+        progress=args.progress,
     )
     print(json.dumps(search_json(result), indent=2) if args.json else search_text(result))
     if args.save_to:
         if result.cheapest is None:
             raise InputError([Problem(args.file, "schedules", "no admissible schedule to save")])
         _, saved = save_found(scenario, result.cheapest, args.save_to, overwrite=args.force)
-        print(f"wrote {args.save_to} with the schedule {saved.name!r}", file=sys.stderr)
+        LOG.info("wrote %s with the schedule %r", args.save_to, saved.name)
     if args.html:
         frontier = recovery_frontier(scenario, relax_to=result.relax_to, source=args.file)
         _write(
@@ -393,10 +536,20 @@ def _search(args: argparse.Namespace) -> int:
 
 
 def _frontier_commands(sub: argparse._SubParsersAction) -> None:
+    relax_to = (
+        "control value after the hold (default: the relax_to of the first overshoot schedule "
+        "inside the bistable window, else the window's middle)"
+    )
     p = sub.add_parser("frontier", help="least hold below the recovery threshold, for each depth")
-    p.add_argument("file")
-    p.add_argument("--relax-to", type=float, metavar="X", help="control value after the hold")
-    p.add_argument("--depths", metavar="D1,D2,...", help="depths below the recovery threshold")
+    _add_scenario_file(p)
+    p.add_argument("--relax-to", type=float, metavar="X", help=relax_to)
+    p.add_argument(
+        "--depths",
+        metavar="D1,D2,...",
+        help="depths below the recovery threshold (default: {planner.frontier:DEFAULT_DEPTHS} "
+        "depths spaced evenly in logarithm, from {planner.frontier:SMALLEST_DEPTH} of the control "
+        "range's width to the deepest achievable cut)",
+    )
     p.add_argument(
         "--hold-years",
         "--durations",
@@ -404,33 +557,49 @@ def _frontier_commands(sub: argparse._SubParsersAction) -> None:
         metavar="Y1,Y2,...",
         help="holds at the floor (years): the least depth for each (--durations: old name)",
     )
-    p.add_argument("--family", choices=("overshoot", "staircase"), default="overshoot")
+    p.add_argument(
+        "--family",
+        choices=("overshoot", "staircase"),
+        default="overshoot",
+        help="the family of schedules whose frontier is drawn",
+    )
     p.add_argument(
         "--start-year",
         type=float,
         default=0.0,
         metavar="Y",
-        help="year the descent to the floor begins (default 0)",
+        help="year the descent to the floor begins",
     )
     p.add_argument(
         "--ramp-years",
         type=float,
         metavar="R",
         help="years of each ramp, down and up; 0 for instant jumps (default: at the scenario's "
-        "largest yearly change, or 2 yr each when it sets none)",
+        "largest yearly change, or {planner.frontier:DEFAULT_RAMP_YEARS} yr each when it sets "
+        "none)",
     )
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML figure of the frontier")
+    _add_json_and_html(p, "an HTML figure of the frontier")
     p = sub.add_parser("search", help="cheapest recovering schedule; money against time")
-    p.add_argument("file")
-    p.add_argument("--by-year", type=float, metavar="Y", help="the target must be met by year Y")
-    p.add_argument("--relax-to", type=float, metavar="X", help="control value after the hold")
+    _add_scenario_file(p)
     p.add_argument(
-        "--family", action="append", choices=("overshoot", "staircase"), help="(repeatable)"
+        "--by-year",
+        type=float,
+        metavar="Y",
+        help="the target must be met by year Y (default: no deadline)",
     )
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
-    p.add_argument("--save-to", metavar="NEW.toml", help="write the scenario plus the cheapest")
+    p.add_argument("--relax-to", type=float, metavar="X", help=relax_to)
+    p.add_argument(
+        "--family",
+        action="append",
+        choices=("overshoot", "staircase"),
+        help="a family of schedules to search (repeatable; default: every family)",
+    )
+    _add_json_and_html(p, "an HTML page with the figures")
+    p.add_argument(
+        "--save-to",
+        metavar="NEW.toml",
+        help="write the scenario plus the cheapest schedule (a new file)",
+    )
 
 
 EXTENSIONS.append(_frontier_commands)
@@ -462,8 +631,6 @@ def _fit(args: argparse.Namespace) -> int:
     from planner.monitoring import read_record
     from planner.scenario import load_scenario, save_scenario
 
-    if args.out and Path(args.out).exists():  # say so before a long fit, not after
-        raise InputError([Problem(args.out, "(file)", "exists already; choose another name")])
     scenario = load_scenario(args.scenario)
     record = read_record(args.data, time_column=args.time_column)
     observations = observations_for(
@@ -479,12 +646,12 @@ def _fit(args: argparse.Namespace) -> int:
         log=args.log,
         bootstrap=args.bootstrap,
         seed=args.seed,
-        progress=_progress(),
+        progress=args.progress,
     )
     print(json.dumps(fit_json(fit), indent=2) if args.json else fit_text(fit))
     if args.out:
         save_scenario(fit.fitted_scenario, args.out, overwrite=args.force)
-        print(f"wrote {args.out} (the fitted scenario). {fit.priors_note}", file=sys.stderr)
+        LOG.info("wrote %s (the fitted scenario). %s", args.out, fit.priors_note)
     if args.html:
         _write(
             args,
@@ -529,31 +696,80 @@ def _signals(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _add_record_file(parser: argparse.ArgumentParser, columns: str) -> None:
+    """The monitoring record and its time column, alike on every command that reads one."""
+    parser.add_argument(
+        "data",
+        metavar="DATA.csv",
+        help=f"monitoring CSV: {columns}; a column is named as in its header, with or without "
+        'its unit (TP or "TP [g P / m2]")',
+    )
+    parser.add_argument(
+        "--time-column", metavar="NAME", help="the time column (default: the first column)"
+    )
+
+
 def _monitoring_commands(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("fit", help="fit the model to a monitoring record; thresholds, intervals")
-    p.add_argument("data", help="monitoring CSV: time, load and observed columns")
-    p.add_argument("--scenario", required=True, metavar="BASE.toml", help="model and first guess")
-    p.add_argument("--fit", metavar="s,r,m", help="parameters to fit (default: all but q)")
-    p.add_argument("--out", metavar="FITTED.toml", help="write the fitted scenario (new file)")
-    p.add_argument("--log", action="store_true", help="fit the logarithms of the observations")
-    p.add_argument("--bootstrap", type=int, metavar="N", help="bootstrap replicates (0: none)")
-    p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap draws")
-    p.add_argument("--time-column", metavar="NAME", help="time column (default: the first)")
-    p.add_argument("--control-column", metavar="NAME", help="load column (default: L or load)")
+    _add_record_file(p, "time, load and observed columns")
     p.add_argument(
-        "--state", action="append", metavar="VARIABLE=COLUMN", help="observed column (repeatable)"
+        "--scenario", required=True, metavar="BASE.toml", help="the model and the first guess"
     )
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+    p.add_argument(
+        "--fit",
+        metavar="P1,P2,...",
+        help="parameters to fit, e.g. s,r,m (default: every parameter but the control and, in "
+        "the built-in recycling models, the steepness q)",
+    )
+    p.add_argument("--out", metavar="FITTED.toml", help="write the fitted scenario (a new file)")
+    p.add_argument("--log", action="store_true", help="fit the logarithms of the observations")
+    p.add_argument(
+        "--bootstrap",
+        type=int,
+        metavar="N",
+        help="bootstrap replicates; 0 for none (default: {planner.calibration:DEFAULT_BOOTSTRAP})",
+    )
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the bootstrap draws")
+    p.add_argument(
+        "--control-column",
+        metavar="NAME",
+        help="the load column (default: the one named like the control parameter, else "
+        "{planner.calibration:DEFAULT_CONTROL_COLUMN})",
+    )
+    p.add_argument(
+        "--state",
+        action="append",
+        metavar="VARIABLE=COLUMN",
+        help="the column observing a model variable (repeatable; default: the column named like "
+        "the variable, or the only data column left for the target variable)",
+    )
+    _add_json_and_html(p, "an HTML page with the figures")
     p = sub.add_parser("signals", help="early-warning indicators of one monitored series")
-    p.add_argument("data", help="monitoring CSV: time and one or more data columns")
-    p.add_argument("--column", metavar="NAME", help="the series (needed if several columns)")
-    p.add_argument("--window", type=float, metavar="F", help="window share (default: half)")
-    p.add_argument("--bandwidth", type=float, metavar="YEARS", help="kernel bandwidth")
-    p.add_argument("--before", type=float, metavar="TIME", help="use only times before this")
-    p.add_argument("--time-column", metavar="NAME", help="time column (default: the first)")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+    _add_record_file(
+        p, "time and one or more data columns of any real values (anomalies and logs too)"
+    )
+    p.add_argument("--column", metavar="NAME", help="the series (default: the only data column)")
+    p.add_argument(
+        "--window",
+        type=float,
+        metavar="F",
+        help="share of the series in each rolling window "
+        "(default: {planner.signals:DEFAULT_WINDOW})",
+    )
+    p.add_argument(
+        "--bandwidth",
+        type=float,
+        metavar="YEARS",
+        help="bandwidth of the Gaussian detrending kernel (default: "
+        "{planner.signals:DEFAULT_BANDWIDTH_SHARE} of the record's length)",
+    )
+    p.add_argument(
+        "--before",
+        type=float,
+        metavar="TIME",
+        help="use only times before this (default: the whole record)",
+    )
+    _add_json_and_html(p, "an HTML page with the figures")
 
 
 EXTENSIONS.append(_monitoring_commands)
@@ -572,7 +788,7 @@ def _ensemble(args: argparse.Namespace) -> int:
         seed=args.seed,
         scheduler=args.scheduler,
         chunk_size=DEFAULT_CHUNK if args.chunk is None else args.chunk,
-        progress=_progress(),
+        progress=args.progress,
     )
     print(json.dumps(ensemble_json(ensemble), indent=2) if args.json else ensemble_text(ensemble))
     if args.html:
@@ -584,19 +800,36 @@ def _ensemble_command(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "ensemble", help="chance of recovery under uncertain parameters and noisy loads"
     )
-    p.add_argument("file")
-    p.add_argument("--members", type=int, metavar="N", help="members (default: [uncertainty])")
-    p.add_argument("--seed", type=int, metavar="S", help="seed (default: [uncertainty])")
+    _add_scenario_file(p)
+    p.add_argument(
+        "--members",
+        type=int,
+        metavar="N",
+        help="ensemble members (default: the scenario's [uncertainty] members, "
+        "{planner.scenario.uncertainty:Uncertainty.members} when it sets none)",
+    )
+    p.add_argument(
+        "--seed",
+        type=int,
+        metavar="S",
+        help="seed of the random draws (default: the scenario's [uncertainty] seed, "
+        "{planner.scenario.uncertainty:Uncertainty.seed} when it sets none)",
+    )
     p.add_argument(
         "--scheduler",
         default="local",
         metavar="local|processes|tcp://HOST:PORT",
-        help="where to run: this process (default), 2 local Dask worker processes, or a "
-        "running Dask scheduler",
+        help="where to run: local (this process), processes (2 local Dask worker processes) or "
+        "the address of a running Dask scheduler",
     )
-    p.add_argument("--chunk", type=int, metavar="M", help="members simulated together")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--html", metavar="OUT", help="write an HTML page with the figures")
+    p.add_argument(
+        "--chunk",
+        type=int,
+        metavar="M",
+        help="members simulated together, which bounds memory "
+        "(default: {planner.ensemble:DEFAULT_CHUNK})",
+    )
+    _add_json_and_html(p, "an HTML page with the figures")
 
 
 EXTENSIONS.append(_ensemble_command)

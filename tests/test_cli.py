@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import argparse
 import contextlib
 import io
 import json
+import logging
 import os
+import re
 import subprocess
 import sys
 import tomllib
@@ -16,7 +19,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from planner.cli import main
+from planner.cli import build_parser, main
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 ALDER = SCENARIOS / "alder-mere.toml"
@@ -235,3 +238,165 @@ def test_a_reader_that_stops_early_is_no_error():
     err = done.stderr.decode()
     assert done.returncode == 0, err
     assert "Traceback" not in err and "internal error" not in err
+
+
+# ---------------------------------------------------------------------------------------------
+# version, verbosity, messages and help
+
+MONITORING = SCENARIOS / "data" / "alder-mere-monitoring.csv"
+STAMP = r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d"
+
+
+def _run_main(argv: list[str]) -> tuple[int, str, str]:
+    """Run the command in this process with stdout and stderr captured (neither a terminal)."""
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(argv)
+    return code, out.getvalue(), err.getvalue()
+
+
+def test_version_is_the_package_version(capsys):
+    from importlib.metadata import version
+
+    import planner
+
+    with pytest.raises(SystemExit) as stopped:
+        main(["--version"])
+    assert stopped.value.code == 0
+    assert capsys.readouterr().out.strip() == f"planner {planner.__version__}"
+    assert planner.__version__ == version("regime-planner")  # the installed metadata agrees
+
+
+def test_progress_away_from_a_terminal_is_log_lines_and_quiet_silences_them(tmp_path):
+    csv = tmp_path / "table.csv"
+    code, out, err = _run_main(["compare", str(ALDER), "--csv", str(csv)])
+    assert code == 0, err
+    assert "Caution" in out  # the summary stays on stdout
+    lines = err.splitlines()
+    assert re.fullmatch(rf"{STAMP} compare:   0% \[\d+ s\] .+", lines[0]), lines
+    assert re.fullmatch(rf"{STAMP} compare: 100% \[\d+ s\] done", lines[-2]), lines
+    assert re.fullmatch(rf"{STAMP} wrote {re.escape(str(csv))}", lines[-1]), lines
+    assert "\r" not in err  # no bar drawn into a log
+    for argv in (["-q", "compare", str(ALDER)], ["compare", str(ALDER), "--quiet"]):
+        code, quiet_out, quiet_err = _run_main([*argv, "--csv", str(csv), "--force"])
+        assert code == 0 and quiet_err == ""
+        assert quiet_out == out
+
+
+def test_quiet_and_verbose_exclude_each_other(capsys):
+    for argv in (["-q", "-v", "check", str(ALDER)], ["-q", "check", str(ALDER), "-v"]):
+        with pytest.raises(SystemExit) as stopped:
+            main(argv)
+        assert stopped.value.code == 2
+        assert "-q/--quiet" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "quiet, verbose, shown",
+    [
+        (False, False, ["note", "warning: careful"]),
+        (True, False, ["warning: careful"]),
+        (False, True, ["detail", "note", "warning: careful"]),
+    ],
+)
+def test_messages_follow_quiet_and_verbose_and_are_put_back(quiet, verbose, shown):
+    from planner.cli import _messages_to_stderr
+
+    logger = logging.getLogger("planner.anything")
+    parent = logging.getLogger("planner")
+    before = (parent.level, parent.propagate, list(parent.handlers))
+    err = io.StringIO()
+    with contextlib.redirect_stderr(err), _messages_to_stderr(quiet=quiet, verbose=verbose):
+        logger.debug("detail")
+        logger.info("note")
+        logger.warning("careful")
+    assert [line.split(" ", 2)[2] for line in err.getvalue().splitlines()] == shown  # stamped
+    assert (parent.level, parent.propagate, list(parent.handlers)) == before
+
+
+def test_messages_on_a_terminal_carry_no_time():
+    from planner.cli import MessageFormatter
+
+    record = logging.LogRecord("planner.cli", logging.INFO, __file__, 1, "wrote %s", ("a",), None)
+    assert MessageFormatter(stamped=False).format(record) == "wrote a"
+    assert re.fullmatch(rf"{STAMP} wrote a", MessageFormatter(stamped=True).format(record))
+
+
+def test_fit_with_stderr_to_a_pipe_shows_progress_lines(tmp_path):
+    """`planner fit ... 2>log`: standard error is no terminal, yet the fit reports progress;
+    --force replaces the --out file as it does for every output option."""
+    out = tmp_path / "fitted.toml"
+    out.write_text("old", encoding="utf-8")
+    argv = ["fit", str(MONITORING), "--scenario", str(ALDER), "--bootstrap", "10"]
+    done = subprocess.run(
+        [sys.executable, "-m", "planner.cli", *argv, "--out", str(out), "--force"],
+        capture_output=True,  # stderr is a pipe, as with 2>log
+        text=True,
+        timeout=300,
+    )
+    assert done.returncode == 0, done.stderr
+    progress = [line for line in done.stderr.splitlines() if re.match(rf"{STAMP} fit: ", line)]
+    assert len(progress) >= 2, done.stderr
+    assert re.search(r" fit:   0% \[", progress[0]) and re.search(r" fit: 100% \[", progress[-1])
+    assert f"wrote {out}" in done.stderr
+    assert out.read_text(encoding="utf-8") != "old"
+    assert "Traceback" not in done.stderr and done.stdout.strip()
+
+
+def _option_help(parser: argparse.ArgumentParser) -> dict[str, str]:
+    """Each option's help as printed (one line), by its first option string."""
+    text = parser.format_help().split("options:", 1)[1]
+    blocks = re.split(r"\n(?=  -)", text)
+    return {block.split()[0].rstrip(","): " ".join(block.split()) for block in blocks[1:]}
+
+
+NO_DEFAULT = {"--html", "--csv", "--out", "--save-to", "--hold-years", "--scenario"}
+"""Options with nothing to default to: files written only when asked, a required option, the
+converse holds (none unless asked)."""
+
+
+def test_help_states_every_default():
+    """Every option that takes a value says what happens without it, as "(default: ...)" or,
+    after another note, "(...; default: ...)"; argparse's own wording for plain values."""
+    sub = next(a for a in build_parser()._actions if isinstance(a, argparse._SubParsersAction))
+    for name, parser in sub.choices.items():
+        shown = _option_help(parser)
+        for action in parser._actions:
+            option = action.option_strings[0] if action.option_strings else None
+            if option in (None, "-h") or action.nargs == 0 or option in NO_DEFAULT:
+                continue
+            assert re.search(r"(\(|; )default: ", shown[option]), (name, option, shown[option])
+            if action.default not in (None, []):  # a value: argparse's own wording
+                assert f"(default: {action.default})" in shown[option], (name, option)
+
+
+def test_help_reads_defaults_from_where_they_live(capsys):
+    from planner.calibration import DEFAULT_BOOTSTRAP
+    from planner.ensemble import DEFAULT_CHUNK
+    from planner.scenario.uncertainty import Uncertainty
+
+    members = Uncertainty.model_fields["members"].default
+    with pytest.raises(SystemExit):
+        main(["ensemble", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert f"[uncertainty] members, {members} when it sets none" in text
+    assert f"(default: {DEFAULT_CHUNK})" in text
+    assert "(default: local)" in text
+    with pytest.raises(SystemExit):
+        main(["fit", "--help"])
+    assert f"(default: {DEFAULT_BOOTSTRAP})" in " ".join(capsys.readouterr().out.split())
+
+
+def test_the_same_option_reads_the_same_on_every_command():
+    """--json, --html OUT, --seed S, --time-column NAME...: one spelling and metavar each."""
+    sub = next(a for a in build_parser()._actions if isinstance(a, argparse._SubParsersAction))
+    seen: dict[str, set] = {}
+    for parser in sub.choices.values():
+        for action in parser._actions:
+            for option in action.option_strings:
+                seen.setdefault(option, set()).add(action.metavar)
+    assert {option: metavars for option, metavars in seen.items() if len(metavars) > 1} == {}
+    assert seen["--html"] == {"OUT"} and seen["--seed"] == {"S"}
+    for parser in sub.choices.values():
+        if any(a.dest == "json" for a in parser._actions):
+            assert any(a.dest == "html" for a in parser._actions)
