@@ -5,12 +5,17 @@ The CLI prints these and the web app shows them; neither computes anything itsel
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING, Any
+
+from planner.units import TP_UNIT
 
 if TYPE_CHECKING:  # `planner check` prints from here and must not load the numerical stack
     import numpy as np
 
     from planner.equilibria import Branch, Diagram, Standing, Threshold
+    from planner.limnology import TrophicState
+    from planner.units import LakeConversion
 
 CAUTION = (
     "Caution: this is a screening tool. Results are estimates from simplified models of "
@@ -114,6 +119,9 @@ def diagram_json(scenario, diagram: Diagram, standing: Standing | None = None) -
     }
     if standing is not None:
         out["current"] = standing_json(variables, standing)
+    lake = lake_json(scenario, diagram, standing)
+    if lake is not None:
+        out["lake"] = lake
     return out
 
 
@@ -210,7 +218,9 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: boo
     count = diagram.most_stable_states
     lines = [scenario.name, "", f"Lake verdict: {lake_verdict_words(scenario, diagram)}"]
     if diagram.classification == "irreversible" and count > 2:
-        lines.append(f"{_COUNT_WORDS.get(count, str(count)).capitalize()} stable states coexist.")
+        lines.append(
+            f"{stable_states_words(diagram)[:1].upper()}{stable_states_words(diagram)[1:]} coexist."
+        )
     lines.append(f"Collapse threshold: {threshold_words(diagram.collapse, unit)}")
     lines.append(f"Recovery threshold: {threshold_words(diagram.recovery, unit)}")
     shown = {diagram.recovery_threshold, diagram.collapse_threshold}
@@ -273,6 +283,7 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: boo
             "  The lake is already in the undesired regime: the collapse threshold matters "
             "again once it has recovered."
         )
+    lines += lake_lines(scenario, diagram, standing)
     lines += ["", CAUTION]
     return "\n".join(lines)
 
@@ -391,7 +402,7 @@ def outcome_json(scenario, outcome) -> dict[str, Any]:
 def comparison_json(comparison) -> dict[str, Any]:
     """The `planner compare --json` object (DESIGN.md section 5 contract, plus extras)."""
     scenario, diagram = comparison.scenario, comparison.diagram
-    return {
+    out = {
         "scenario": scenario.name,
         "control": scenario.control.parameter,
         "unit": scenario.control.unit,
@@ -409,6 +420,13 @@ def comparison_json(comparison) -> dict[str, Any]:
         "schedules": [outcome_json(scenario, outcome) for outcome in comparison.outcomes],
         "caution": CAUTION,
     }
+    lake = lake_json(scenario, diagram)
+    if lake is not None:
+        out["lake"] = lake
+        conversion = _lake_conversion(scenario)
+        for entry, outcome in zip(out["schedules"], comparison.outcomes, strict=True):
+            entry["lake"] = outcome_lake_json(scenario, conversion, outcome)
+    return out
 
 
 def _cell_text(value: object) -> str:
@@ -475,8 +493,260 @@ def comparison_text(comparison) -> str:
     for outcome in comparison.outcomes:
         if outcome.infeasible is not None:
             lines.append(f"Infeasible - {outcome.name}: {outcome.infeasible.message}")
+    lines += comparison_lake_lines(comparison)
     lines += ["", CAUTION]
     return "\n".join(lines)
+
+
+# ---------------------------------------------------------------------------------------------
+# The lake in the trade's units (scenarios with a [lake] block)
+
+
+def _lake_conversion(scenario) -> LakeConversion | None:
+    """The scenario's conversions (pint, loaded here on first use), None without [lake]."""
+    if getattr(scenario, "lake", None) is None:
+        return None
+    from planner.units import scenario_lake_conversion
+
+    return scenario_lake_conversion(scenario)
+
+
+def _trophic(conversion: LakeConversion, value: float) -> TrophicState | None:
+    """The trophic state of a value of the target variable; None when TP cannot be shown or the
+    value is not a concentration (negative, not finite)."""
+    from planner.limnology import trophic_state
+
+    if conversion.tp_per_state is None or not math.isfinite(value):
+        return None
+    tp = conversion.tp(value)
+    return trophic_state(tp) if tp >= 0 else None
+
+
+def trophic_json(conversion: LakeConversion, value: float | None) -> dict[str, Any] | None:
+    """A value of the target variable with its lake TP (ug/L) and trophic state."""
+    if value is None:
+        return None
+    state = _trophic(conversion, float(value))
+    return {"state": float(value), **({} if state is None else state.as_json())}
+
+
+def load_json(conversion: LakeConversion, value: float | None) -> dict[str, Any] | None:
+    """A control value and, when the control is a load, the same load in the lake's units."""
+    if value is None:
+        return None
+    converted = None if conversion.load_per_control is None else conversion.load(value)
+    return {"control": float(value), "load": converted, "load_unit": conversion.load_unit}
+
+
+def _threshold_lake_json(conversion, threshold: Threshold | None, k: int) -> dict | None:
+    if threshold is None or threshold.value is None:
+        return None
+    state = None if threshold.state is None else float(threshold.state[k])
+    return {
+        **load_json(conversion, threshold.value),  # type: ignore[dict-item]
+        "regime_lost": threshold.lost,
+        "tp": trophic_json(conversion, state),
+    }
+
+
+def lake_json(scenario, diagram: Diagram, standing: Standing | None = None) -> dict | None:
+    """The ``lake`` object of the diagram and comparison JSON (None without a [lake] block):
+    morphometry, the conversions (factors worked out by pint, and in words), lake TP with its
+    trophic state for the current state, the attractors and the thresholds' states, and loads
+    in kg/yr or t/yr."""
+    conversion = _lake_conversion(scenario)
+    if conversion is None:
+        return None
+    k = scenario.target_index
+    state_unit, tp_ok = conversion.state_unit, conversion.tp_per_state is not None
+    threshold = scenario.target.threshold
+    out: dict[str, Any] = {
+        "area": conversion.area.text,
+        "area_km2": conversion.area_km2,
+        "mean_depth": conversion.mean_depth.text,
+        "mean_depth_m": conversion.mean_depth_m,
+        "volume_m3": conversion.volume_m3,
+        "residence_time_yr": conversion.residence_time_yr,
+        "variable": conversion.variable,
+        "tp_conversion": {
+            "from": state_unit,
+            "to": TP_UNIT,
+            "per_unit": conversion.tp_per_state,
+            "words": conversion.tp_words(1.0),
+        }
+        if tp_ok
+        else None,
+        "tp_unavailable": conversion.tp_unavailable,
+        "load_conversion": {
+            "from": conversion.control_unit,
+            "to": conversion.load_unit,
+            "per_unit": conversion.load_per_control,
+            "words": conversion.load_words(1.0),
+        }
+        if conversion.load_per_control is not None
+        else None,
+        "load_unavailable": conversion.load_unavailable,
+        "current": {
+            **load_json(conversion, scenario.current_control),  # type: ignore[dict-item]
+            "tp": trophic_json(conversion, float(scenario.initial_state[k])),
+        },
+        "thresholds": {
+            "recovery": _threshold_lake_json(conversion, diagram.recovery, k),
+            "collapse": _threshold_lake_json(conversion, diagram.collapse, k),
+        },
+        "target": None if threshold is None else trophic_json(conversion, threshold),
+    }
+    if standing is not None:
+        desired = diagram.desired_attractor(standing.control)
+        out["attractor"] = (
+            None if standing.attractor is None else trophic_json(conversion, standing.attractor[k])
+        )
+        out["desired_at_current_load"] = (
+            None if desired is None else trophic_json(conversion, desired.state[k])
+        )
+    return out
+
+
+def _lake_header(conversion: LakeConversion) -> list[str]:
+    lines = ["", f"The lake in the trade's units ({conversion.morphometry_words()}):"]
+    said = []
+    if conversion.tp_per_state is not None:
+        said.append(conversion.tp_words(1.0))
+    if conversion.load_per_control is not None:
+        said.append(conversion.load_words(1.0))
+    if said:
+        lines.append(f"  Conversions (pint): {'; '.join(said)}.")
+    if conversion.tp_unavailable is not None:
+        lines.append(f"  Lake TP not shown: {conversion.tp_unavailable}.")
+    if conversion.load_unavailable is not None:
+        lines.append(f"  Loads not converted: {conversion.load_unavailable}.")
+    return lines
+
+
+def _load_text(conversion: LakeConversion, value: float) -> str:
+    """ "2.6 g P / m2 / yr (6,240 kg P/yr)": the control and, when it is a load, the load."""
+    from planner.units import significant
+
+    text = f"{significant(value)} {conversion.control_unit}".strip()
+    if conversion.load_per_control is not None:
+        text += f" ({significant(conversion.load(value))} {conversion.load_unit})"
+    return text
+
+
+def _state_text(conversion: LakeConversion, value: float) -> str:
+    from planner.units import significant
+
+    return f"{conversion.variable} = {significant(value)} {conversion.state_unit}".rstrip()
+
+
+def _trophic_line(conversion: LakeConversion, what: str, value: float) -> str | None:
+    from planner.limnology import trophic_words
+
+    state = _trophic(conversion, value)
+    if state is None:
+        return None
+    return f"  {what} ({_state_text(conversion, value)}): {trophic_words(state)}"
+
+
+def _threshold_line(conversion, name: str, threshold: Threshold | None, k: int) -> str | None:
+    if threshold is None or threshold.value is None:
+        return None
+    regime = {"undesired": "the undesired state", "desired": "the desired state"}[threshold.lost]
+    text = f"  At the {name} threshold, {_load_text(conversion, threshold.value)}"
+    state = None if threshold.state is None else _trophic(conversion, float(threshold.state[k]))
+    if state is None:
+        return text + "."
+    from planner.limnology import trophic_words
+
+    value = float(threshold.state[k])  # type: ignore[index]
+    return f"{text}, {regime} there ({_state_text(conversion, value)}): {trophic_words(state)}"
+
+
+def _target_line(scenario, conversion: LakeConversion) -> str | None:
+    threshold = scenario.target.threshold
+    if threshold is None:
+        return None
+    from planner.limnology import trophic_words
+    from planner.units import significant
+
+    state = _trophic(conversion, threshold)
+    if state is None:
+        return None
+    sign = "<=" if scenario.target.regime == "lowest" else ">="
+    wanted = f"{conversion.variable} {sign} {significant(threshold)} {conversion.state_unit}"
+    return f"  Water-quality target {wanted.rstrip()}: {trophic_words(state)}"
+
+
+def lake_lines(scenario, diagram: Diagram, standing: Standing) -> list[str]:
+    """The diagram text's lake section (nothing without a [lake] block)."""
+    conversion = _lake_conversion(scenario)
+    if conversion is None:
+        return []
+    k = scenario.target_index
+    lines = _lake_header(conversion)
+    lines.append(f"  Load now: {_load_text(conversion, standing.control)}")
+    desired = diagram.desired_attractor(standing.control)
+    found = [
+        _trophic_line(conversion, "Now", float(standing.state[k])),
+        None
+        if standing.attractor is None
+        else _trophic_line(conversion, "Settles, load held", float(standing.attractor[k])),
+        None
+        if desired is None or standing.desired is True
+        else _trophic_line(conversion, "Desired state at this load", float(desired.state[k])),
+        _threshold_line(conversion, "recovery", diagram.recovery, k),
+        _threshold_line(conversion, "collapse", diagram.collapse, k),
+        _target_line(scenario, conversion),
+    ]
+    return lines + [line for line in found if line is not None]
+
+
+def outcome_lake_json(scenario, conversion: LakeConversion, outcome) -> dict[str, Any]:
+    """One schedule's loads in the lake's units and its lake TP at the horizon and settled."""
+    k = scenario.target_index
+    settled = outcome.settled_state
+    return {
+        "min_control": load_json(conversion, outcome.min_control),
+        "final_control": load_json(conversion, outcome.final_control),
+        "at_horizon": trophic_json(conversion, float(outcome.trajectory.final_state[k])),
+        "settled": None if settled is None else trophic_json(conversion, float(settled[k])),
+    }
+
+
+def comparison_lake_lines(comparison) -> list[str]:
+    """The comparison text's lake section (nothing without a [lake] block)."""
+    from planner.limnology import trophic_brief
+
+    scenario, diagram = comparison.scenario, comparison.diagram
+    conversion = _lake_conversion(scenario)
+    if conversion is None:
+        return []
+    k = scenario.target_index
+    lines = _lake_header(conversion)
+    lines.append(f"  Load now: {_load_text(conversion, scenario.current_control)}")
+    now = _trophic_line(conversion, "Now", float(scenario.initial_state[k]))
+    for line in (
+        now,
+        _threshold_line(conversion, "recovery", diagram.recovery, k),
+        _threshold_line(conversion, "collapse", diagram.collapse, k),
+        _target_line(scenario, conversion),
+    ):
+        if line is not None:
+            lines.append(line)
+    for outcome in comparison.outcomes:
+        parts = [f"lowest load {_load_text(conversion, outcome.min_control)}"]
+        horizon = _trophic(conversion, float(outcome.trajectory.final_state[k]))
+        if horizon is not None:
+            parts.append(f"at the horizon {trophic_brief(horizon)}")
+        settled = (
+            None
+            if outcome.settled_state is None
+            else _trophic(conversion, float(outcome.settled_state[k]))
+        )
+        if settled is not None:
+            parts.append(f"settled {trophic_brief(settled)}")
+        lines.append(f"  {outcome.name}: {'; '.join(parts)}")
+    return lines
 
 
 def sweep_json(scenario, sweep) -> dict[str, Any]:

@@ -896,6 +896,7 @@ def test_summary_says_an_unreachable_threshold_in_words():
     working = run_recompute(draft_of("tarnby-water.toml"))["working"]
     text = text_of(diagram.describe(working).children)
     assert "Recovery threshold not reachable by load cuts alone" in text
+    assert "External P load (0 g P / m2 / yr)" in text  # units keep their case
     assert "-0.66" not in text.split("Full summary")[0]
 
 

@@ -60,12 +60,17 @@ def diagram_figure(scenario: Scenario, comparison: Comparison | None, shown: lis
     return figure
 
 
+def _sentence(text: str) -> str:
+    """A capital first letter and a full stop; the rest as written (units keep their case)."""
+    return text[:1].upper() + text[1:] + "."
+
+
 def summary(scenario: Scenario) -> html.Div:
     """Where the lake stands, in a few lines; the planner's full text in a fold-out."""
     diagram, standing = compute.diagram_of(scenario)
     unit = scenario.control.unit
     name = scenario.control.label or scenario.control.parameter
-    lines = [html.P(html.Strong(lake_verdict_words(scenario, diagram).capitalize() + "."))]
+    lines = [html.P(html.Strong(_sentence(lake_verdict_words(scenario, diagram))))]
     lines.append(
         html.P(
             f"Recovery threshold {threshold_words(diagram.recovery, unit)}; "
