@@ -9,16 +9,24 @@
 - Expected summer chlorophyll-a from TP: log10 Chl = 1.449 log10 TP - 1.136, both in ug/L
   (Dillon & Rigler 1974, The phosphorus-chlorophyll relationship in lakes, Limnology and
   Oceanography 19:767-773; coefficients from memory). An expectation across lakes: one lake may
-  differ several-fold (light, nitrogen, grazing).
+  differ several-fold (light, nitrogen, grazing). Above about 100 ug/L TP chlorophyll rises
+  more slowly than this straight line (the relation across lakes is sigmoid: McCauley, Downing
+  & Watson 1989, Canadian Journal of Fisheries and Aquatic Sciences 46:1171-1175; Brown et al.
+  2000, same journal 57:1574-1583, a lessening of slope above 100 ug/L), so there the line's
+  value is flagged as an extrapolation that overstates chlorophyll.
 
 Every function takes concentrations in ug/L (= mg/m3) and works on floats or numpy arrays.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import asdict, dataclass
+from typing import Any
 
 import numpy as np
+
+from planner.units import significant
 
 OECD_CLASSES = ("oligotrophic", "mesotrophic", "eutrophic", "hypertrophic")
 OECD_UPPER_TP = (10.0, 35.0, 100.0)  # ug/L: the upper boundary of each class but the last
@@ -26,6 +34,8 @@ CARLSON_TP = (14.42, 4.15)
 CARLSON_CHL = (9.81, 30.6)
 CARLSON_SECCHI = (60.0, 14.41)
 DILLON_RIGLER = (1.449, -1.136)
+CHLOROPHYLL_LINE_UPPER_TP = 100.0
+"""ug/L of TP above which the log-log chlorophyll line overstates chlorophyll (see above)."""
 
 
 def oecd_class(tp_ug_l: float) -> str:
@@ -72,6 +82,15 @@ class TrophicState:
     tsi_tp: float
     chlorophyll_ug_l: float
     tsi_chlorophyll: float
+    chlorophyll_extrapolated: bool = False
+    """True above CHLOROPHYLL_LINE_UPPER_TP, where the line overstates chlorophyll."""
+
+    def as_json(self) -> dict[str, Any]:
+        """Plain data for JSON output; an index that does not exist (TP 0) is null."""
+        return {
+            key: None if isinstance(value, float) and not math.isfinite(value) else value
+            for key, value in asdict(self).items()
+        }
 
 
 def trophic_state(tp_ug_l: float) -> TrophicState:
@@ -84,14 +103,31 @@ def trophic_state(tp_ug_l: float) -> TrophicState:
         tsi_tp=float(tsi_tp(tp)) if tp > 0 else float("-inf"),
         chlorophyll_ug_l=chlorophyll,
         tsi_chlorophyll=float(tsi_chlorophyll(chlorophyll)) if chlorophyll > 0 else float("-inf"),
+        chlorophyll_extrapolated=tp > CHLOROPHYLL_LINE_UPPER_TP,
     )
+
+
+def _index(value: float) -> str:
+    return f"{value:.0f}" if math.isfinite(value) else "undefined"
 
 
 def trophic_words(state: TrophicState) -> str:
-    """One line: "TP 120 ug/L: hypertrophic (OECD 1982); TSI(TP) 73; expected chlorophyll-a
-    46 ug/L, TSI(Chl) 68"."""
-    return (
-        f"TP {state.tp_ug_l:.3g} ug/L: {state.oecd_class} (OECD 1982); "
-        f"TSI(TP) {state.tsi_tp:.0f}; expected chlorophyll-a {state.chlorophyll_ug_l:.2g} ug/L, "
-        f"TSI(Chl) {state.tsi_chlorophyll:.0f} (Carlson 1977)"
+    """One line: "TP 24 ug/L: mesotrophic (OECD 1982); TSI(TP) 50; expected chlorophyll-a
+    7.3 ug/L, TSI(Chl) 50 (Carlson 1977)", saying when the chlorophyll is an extrapolation."""
+    beyond = (
+        f" (extrapolated above {CHLOROPHYLL_LINE_UPPER_TP:.0f} ug/L TP: an overestimate)"
+        if state.chlorophyll_extrapolated
+        else ""
     )
+    return (
+        f"TP {significant(state.tp_ug_l)} ug/L: {state.oecd_class} (OECD 1982); "
+        f"TSI(TP) {_index(state.tsi_tp)}; expected chlorophyll-a "
+        f"{significant(state.chlorophyll_ug_l, 2)} ug/L{beyond}, "
+        f"TSI(Chl) {_index(state.tsi_chlorophyll)} (Carlson 1977)"
+    )
+
+
+def trophic_brief(state: TrophicState) -> str:
+    """Short form for tables and lists: "TP 24 ug/L, mesotrophic, TSI(TP) 50"."""
+    tp = significant(state.tp_ug_l)
+    return f"TP {tp} ug/L, {state.oecd_class}, TSI(TP) {_index(state.tsi_tp)}"

@@ -567,6 +567,7 @@ def lake_json(scenario, diagram: Diagram, standing: Standing | None = None) -> d
         "mean_depth_m": conversion.mean_depth_m,
         "volume_m3": conversion.volume_m3,
         "residence_time_yr": conversion.residence_time_yr,
+        "outflow": scenario.lake.outflow,
         "variable": conversion.variable,
         "tp_conversion": {
             "from": state_unit,
@@ -608,14 +609,14 @@ def lake_json(scenario, diagram: Diagram, standing: Standing | None = None) -> d
 
 
 def _lake_header(conversion: LakeConversion) -> list[str]:
-    lines = ["", f"The lake in the trade's units ({conversion.morphometry_words()}):"]
+    lines = ["The lake in the trade's units", f"  Morphometry: {conversion.morphometry_words()}."]
     said = []
     if conversion.tp_per_state is not None:
         said.append(conversion.tp_words(1.0))
     if conversion.load_per_control is not None:
         said.append(conversion.load_words(1.0))
     if said:
-        lines.append(f"  Conversions (pint): {'; '.join(said)}.")
+        lines.append(f"  Conversions: {'; '.join(said)}.")
     if conversion.tp_unavailable is not None:
         lines.append(f"  Lake TP not shown: {conversion.tp_unavailable}.")
     if conversion.load_unavailable is not None:
@@ -649,8 +650,10 @@ def _trophic_line(conversion: LakeConversion, what: str, value: float) -> str | 
 
 
 def _threshold_line(conversion, name: str, threshold: Threshold | None, k: int) -> str | None:
-    if threshold is None or threshold.value is None:
+    if threshold is None:
         return None
+    if threshold.value is None:
+        return f"  The {name} threshold is {NOT_REACHABLE[threshold.lost]}."
     regime = {"undesired": "the undesired state", "desired": "the desired state"}[threshold.lost]
     text = f"  At the {name} threshold, {_load_text(conversion, threshold.value)}"
     state = None if threshold.state is None else _trophic(conversion, float(threshold.state[k]))
@@ -690,7 +693,7 @@ def lake_lines(scenario, diagram: Diagram, standing: Standing) -> list[str]:
         _trophic_line(conversion, "Now", float(standing.state[k])),
         None
         if standing.attractor is None
-        else _trophic_line(conversion, "Settles, load held", float(standing.attractor[k])),
+        else _trophic_line(conversion, "Where it settles, load held", float(standing.attractor[k])),
         None
         if desired is None or standing.desired is True
         else _trophic_line(conversion, "Desired state at this load", float(desired.state[k])),
@@ -698,7 +701,7 @@ def lake_lines(scenario, diagram: Diagram, standing: Standing) -> list[str]:
         _threshold_line(conversion, "collapse", diagram.collapse, k),
         _target_line(scenario, conversion),
     ]
-    return lines + [line for line in found if line is not None]
+    return ["", *lines, *(line for line in found if line is not None)]
 
 
 def outcome_lake_json(scenario, conversion: LakeConversion, outcome) -> dict[str, Any]:
@@ -746,7 +749,7 @@ def comparison_lake_lines(comparison) -> list[str]:
         if settled is not None:
             parts.append(f"settled {trophic_brief(settled)}")
         lines.append(f"  {outcome.name}: {'; '.join(parts)}")
-    return lines
+    return ["", *lines]
 
 
 def sweep_json(scenario, sweep) -> dict[str, Any]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -10,8 +11,10 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from planner.limnology import (
+    CHLOROPHYLL_LINE_UPPER_TP,
     expected_chlorophyll,
     oecd_class,
+    trophic_brief,
     trophic_state,
     trophic_words,
     tsi_chlorophyll,
@@ -80,3 +83,33 @@ def test_the_trophic_state_agrees_with_its_parts(tp):
     assert state.tsi_tp == pytest.approx(float(tsi_tp(tp)))
     assert state.tsi_chlorophyll == pytest.approx(float(tsi_chlorophyll(state.chlorophyll_ug_l)))
     assert state.oecd_class in trophic_words(state)
+
+
+@pytest.mark.parametrize("tp, extrapolated", [(24.0, False), (100.0, False), (100.5, True)])
+def test_chlorophyll_beyond_the_line_is_flagged(tp, extrapolated):
+    """Above about 100 ug/L TP chlorophyll rises more slowly than the log-log line (Brown,
+    Hoyer, Bachmann & Canfield 2000, Canadian Journal of Fisheries and Aquatic Sciences
+    57:1574-1583, abstract: a lessening of slope above 100 ug/L; McCauley, Downing & Watson 1989,
+    same journal 46:1171-1175: the relation is sigmoid)."""
+    assert CHLOROPHYLL_LINE_UPPER_TP == 100.0
+    state = trophic_state(tp)
+    assert state.chlorophyll_extrapolated is extrapolated
+    assert ("extrapolated" in trophic_words(state)) is extrapolated
+
+
+def test_the_words_give_large_concentrations_in_full():
+    """TP 2290.3 ug/L reads "2,290", never "2.29e+03"; TSI(TP) = 14.42 ln 2290.3 + 4.15 = 115.7
+    (Carlson 1977), shown as 116."""
+    words = trophic_words(trophic_state(2290.3))
+    assert words.startswith("TP 2,290 ug/L: hypertrophic (OECD 1982); TSI(TP) 116;")
+    assert "e+" not in words
+    assert trophic_brief(trophic_state(24.0)) == "TP 24 ug/L, mesotrophic, TSI(TP) 50"
+
+
+def test_no_phosphorus_has_no_index_and_dumps_as_strict_json():
+    """ln 0 is undefined: TSI(TP) of TP 0 does not exist; JSON shows it as null."""
+    state = trophic_state(0.0)
+    data = state.as_json()
+    assert data["tsi_tp"] is None and data["tsi_chlorophyll"] is None
+    json.dumps(data, allow_nan=False)
+    assert "TSI(TP) undefined" in trophic_words(state)

@@ -9,6 +9,7 @@ from planner.scenario.io import (
     scenario_from_data,
     scenario_to_toml,
 )
+from planner.scenario.lake import Lake
 from planner.scenario.model_block import BuiltinModel, FormulaModel
 from planner.scenario.root import Scenario, schedule_control_values
 from planner.scenario.schedule_blocks import (
@@ -42,6 +43,7 @@ __all__ = [
     "JointPrior",
     "Costs",
     "FormulaModel",
+    "Lake",
     "LoadVariability",
     "LognormalPrior",
     "Measure",

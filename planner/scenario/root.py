@@ -1,4 +1,11 @@
-"""The whole scenario file and the rules that tie its blocks together."""
+"""The whole scenario file and the rules that tie its blocks together.
+
+Blocks: ``name``, ``description``, ``[model]``, ``[control]``, ``[state]``, ``[target]``,
+``[simulation]``, ``[[schedules]]``, ``[costs]``, ``[uncertainty]``, ``[state_units]`` and the
+optional ``[lake]`` (surface area, mean depth, residence time or outflow: see
+:mod:`planner.scenario.lake`), with which reports also give the target variable as lake TP
+(ug/L) with its trophic state and loads lake-wide (kg/yr or t/yr).
+"""
 
 from __future__ import annotations
 
@@ -18,6 +25,7 @@ from planner.scenario._base import (
     raise_problems,
 )
 from planner.scenario.blocks import Control, Costs, Simulation, Target
+from planner.scenario.lake import Lake
 from planner.scenario.model_block import ModelBlock
 from planner.scenario.schedule_blocks import (
     OvershootSchedule,
@@ -50,7 +58,8 @@ def schedule_control_values(schedule: Schedule) -> list[tuple[Loc, float]]:
 
 
 class Scenario(Strict):
-    """A lake, its model, the control the manager moves, the candidate schedules and the costs."""
+    """A lake, its model, the control the manager moves, the candidate schedules and the costs;
+    optionally the lake's morphometry (``lake``), to read results in the trade's units."""
 
     name: Name
     description: str = ""
@@ -67,6 +76,7 @@ class Scenario(Strict):
         validate_default=True,
         description="Unit of each state variable, for axes and tables.",
     )
+    lake: Lake | None = None
 
     @model_validator(mode="after")
     def _check_links(self) -> Scenario:
