@@ -6,22 +6,42 @@ run arbitrary code). Instead the text is split into a syntax tree with :func:`as
 parsing, nothing runs) and the tree is walked here; each node is either translated into the
 matching sympy object or refused with a message that says what is wrong and what is allowed.
 
-Besides the whitelist, a few guards keep a hostile or mistyped formula from exhausting time or
-memory: a length limit, a nesting limit, a limit on constant exponents (``9**9**9`` would
-otherwise ask for a number with hundreds of millions of digits), a bound on the size of
-numbers that powers and functions may produce, and a refusal of formulas that are undefined
-(``1/0``) or complex-valued (``sqrt(-1)``), which no real-valued lake model can use.
+Besides the whitelist, guards keep a hostile or mistyped formula from exhausting time or memory,
+or from meaning something other than what it shows:
+
+- Plain ASCII only. Python folds look-alike letters (a full-width or a mathematical bold x) into
+  ASCII names, so such a letter would silently stand for a declared name; it is refused instead,
+  with the character named.
+- Limits on length and on nesting (brackets, function calls, nested exponentials).
+- Constant folding. Every part of a formula without names is computed once, as a number, while
+  the formula is read (exact fractions stay exact; anything else becomes a double). A constant
+  that overflows or underflows (beyond 1e300, nonzero below 1e-300), is undefined (``1/0``,
+  ``log(0)``) or is complex (``sqrt(-1)``) is refused with the part quoted. sympy therefore
+  never holds a symbolic constant such as ``exp(exp(exp(100)))``, which it would otherwise try
+  to compare (``max``) or cancel (differences) to ever higher precision, without end.
+- Limits on constant exponents (``9**9**9`` would ask for hundreds of millions of digits), on
+  the numbers anywhere in the result, and on how strongly an oscillating or exponential function
+  scales its argument (``sin(1e300*x)`` is rounding noise that numerical methods chase forever).
+- A limit on the estimated size of the first and second derivatives that compiling the formula
+  builds (a product of n factors has second derivatives of n**3 terms).
+
+The functions are built from classes of this module rather than sympy's own: sympy takes
+symbols as complex, so ``Abs`` and ``Max`` differentiate into forms (``Derivative(re(x), x)``,
+``DiracDelta``) that no numeric code can be printed from, and asking whether ``tanh(tanh(...))``
+is real or zero takes time exponential in the depth. Every model here is real-valued and needs
+Jacobians and Hessians; the classes print as sympy's functions.
 """
 
 from __future__ import annotations
 
 import ast
 import math
-import operator
+import unicodedata
 import warnings
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Collection, Mapping
+from functools import reduce
 from types import MappingProxyType
-from typing import NamedTuple
+from typing import Any, ClassVar, NamedTuple
 
 import mpmath
 import sympy
@@ -33,55 +53,356 @@ MAX_FORMULA_LENGTH = 500
 
 MAX_EXPONENT = 64
 """Largest |exponent| allowed when an exponent is a numeric constant, also after sympy merges
-nested powers such as ``(x**8)**8`` into one."""
+nested powers such as ``(x**8)**8`` or products such as ``x**40*x**40`` into one."""
 
 MAX_DEPTH = 40
 """Deepest nesting of brackets or of syntax-tree nodes; keeps every recursion shallow."""
 
 MAX_CONSTANT = 1e300
-"""Largest magnitude of a number written in a formula; beyond it floats stop being useful."""
+"""Largest magnitude of a number written in a formula or computed from its constant parts;
+beyond it doubles (which overflow near 1.8e308) stop being useful."""
+
+MIN_CONSTANT = 1e-300
+"""Smallest magnitude of a nonzero number written or computed; below it doubles lose precision
+(subnormals) and then round to zero, which would silently change the formula."""
 
 MAX_NUMBER_DIGITS = 300
 """Largest decimal order of magnitude (either way, large or tiny) of a number that a power may
-produce or that may be passed to a function. Keeps exact integer powers and arbitrary-precision
-function evaluations cheap."""
+produce. Checked before sympy multiplies out a power, which it does exactly for integers."""
+
+MAX_ARGUMENT_SCALE = 1e15
+"""Largest factor by which the argument of sin, cos, tanh, exp, sinh or cosh may scale a name
+(or largest number it may hold). Near 1e15 the rounding error of the argument (about 0.1 for
+1e15*x at x = 1) approaches a period of sin, so sin(1e300*x) is rounding noise, and exp(1e20*x)
+overflows for any x above 7e-18; continuation and integration would chase such a function with
+ever smaller steps. Common practice, no source."""
+
+MAX_EXPONENTIAL_NESTING = 3
+"""Deepest nesting of exponentials: exp, sinh, cosh and powers with a non-constant exponent.
+Four nested exponentials overflow doubles for every argument above about 0.63; a tower is also
+what makes derivatives grow fastest. Common practice, no source."""
+
+MAX_DERIVATIVE_WORK = 25_000
+"""Largest estimated size (nodes of the expression trees) of the first and second derivatives
+that compiling a formula builds (:func:`derivative_work`). A product of n factors has second
+derivatives of about n**3 nodes, which sympy needs minutes to build for n near 40; near this
+limit compiling one formula took one to three seconds on a laptop core, while lake models
+written by hand stay below a tenth of it. Common practice, no source."""
 
 _SEGMENT_CHARS = 40
 """How much of the offending formula text a refusal message quotes."""
 
-_LOG10_2 = math.log10(2.0)
+
+def _power_of_ten(value: float) -> str:
+    """A power of ten as written in formulas: 1e300, 1e-300, 1e15."""
+    return f"1e{round(math.log10(value))}"
+
+
+_LIMIT_RANGE = (
+    f"0 or between {_power_of_ten(MIN_CONSTANT)} and {_power_of_ten(MAX_CONSTANT)} in magnitude"
+)
 _DIGITS_RANGE = f"outside 1e-{MAX_NUMBER_DIGITS} .. 1e{MAX_NUMBER_DIGITS} in magnitude"
+_MAX_FRACTION_BITS = 1000
+"""Largest numerator or denominator (in bits, about 300 digits) of an exact fraction."""
+_UNDEFINED = "formula is undefined (division by zero or log of zero?)"
+_COMPLEX = "formula is complex-valued (root or log of a negative?)"
+
+_MP = mpmath.MPContext()
+"""A private mpmath context at double precision (53 bits) for folding constants: its numbers
+never overflow, so a too-large result is seen and refused rather than turned into inf, and the
+global context (which other code may change) is left alone."""
+
+_ASCII_HINTS: Mapping[str, str] = MappingProxyType(
+    {
+        "\u2212": "-",  # minus sign
+        "\u2013": "-",  # en dash
+        "\u00d7": "*",  # multiplication sign
+        "\u00b7": "*",  # middle dot
+        "\u22c5": "*",  # dot operator
+        "\u00f7": "/",  # division sign
+        "\u00b2": "**2",  # superscript two
+        "\u00b3": "**3",  # superscript three
+        "\u03c0": "pi",  # Greek small letter pi
+    }
+)
+"""What to type instead of common non-ASCII symbols pasted from documents."""
+
+
+# --------------------------------------------------------------------------------------------
+# real-valued functions
+
+
+class _RealFunction(sympy.Function):
+    """A function of real arguments printed to numeric code as a plain sympy primitive.
+
+    Code printers (numpy, math) call ``_numpycode`` / ``_pythoncode`` and so on; each prints
+    :meth:`primitive`, e.g. ``Max(a, b)``, which every printer knows. Primitives are built
+    unevaluated: sympy's Max would otherwise insist on comparing a constant argument such as
+    exp(0.5) (a parameter value the engine substituted) and refuse it. Plain text shows the
+    name a formula author writes (``max(a, b)``).
+    """
+
+    display: ClassVar[str] = ""
+
+    def primitive(self) -> sympy.Expr:  # pragma: no cover - every subclass overrides it
+        raise NotImplementedError
+
+    def _print_primitive(self, printer: Any, **settings: Any) -> str:
+        # Bracketed: the printer took this for a function call, which binds tighter than any
+        # operator, while the primitive may be a sum ((sign(u) + 1)/2).
+        return f"({printer._print(self.primitive(), **settings)})"
+
+    _pythoncode = _numpycode = _mpmathcode = _lambdacode = _print_primitive
+
+    def _sympystr(self, printer: Any) -> str:
+        return f"{self.display}({', '.join(printer._print(arg) for arg in self.args)})"
+
+
+class RealSign(_RealFunction):
+    """sign(u): -1, 0 or 1; its derivative is zero (wherever it exists)."""
+
+    nargs = 1
+    display = "sign"
+
+    @classmethod
+    def eval(cls, value: sympy.Expr) -> sympy.Expr | None:
+        return sympy.sign(value) if value.is_Number else None
+
+    def fdiff(self, argindex: int = 1) -> sympy.Expr:
+        return sympy.Integer(0)
+
+    def primitive(self) -> sympy.Expr:
+        return sympy.sign(self.args[0], evaluate=False)
+
+
+class UnitStep(_RealFunction):
+    """step(u): 0 below zero, 1/2 at zero, 1 above; its derivative is zero (wherever it exists)."""
+
+    nargs = 1
+    display = "step"
+
+    @classmethod
+    def eval(cls, value: sympy.Expr) -> sympy.Expr | None:
+        return (sympy.sign(value) + 1) / 2 if value.is_Number else None
+
+    def fdiff(self, argindex: int = 1) -> sympy.Expr:
+        return sympy.Integer(0)
+
+    def primitive(self) -> sympy.Expr:
+        return (sympy.sign(self.args[0], evaluate=False) + 1) / 2
+
+
+class RealAbs(_RealFunction):
+    """|u| for real u; derivative sign(u)."""
+
+    nargs = 1
+    display = "abs"
+
+    @classmethod
+    def eval(cls, value: sympy.Expr) -> sympy.Expr | None:
+        return abs(value) if value.is_Number else None
+
+    def fdiff(self, argindex: int = 1) -> sympy.Expr:
+        return RealSign(self.args[0])
+
+    def primitive(self) -> sympy.Expr:
+        return sympy.Abs(self.args[0], evaluate=False)
+
+
+class _Extreme(_RealFunction):
+    """The larger (``direction`` 1) or smaller (-1) of two real values; the derivative in each
+    argument is a step, 1/2 at a tie."""
+
+    nargs = 2
+    direction: ClassVar[int] = 1
+    sympy_function: ClassVar[Any] = None
+
+    @classmethod
+    def eval(cls, first: sympy.Expr, second: sympy.Expr) -> sympy.Expr | None:
+        if first == second:
+            return first
+        if first.is_Number and second.is_Number:
+            if sympy.nan in (first, second):
+                return sympy.nan
+            return first if bool(cls.direction * (first - second) >= 0) else second
+        return None
+
+    def fdiff(self, argindex: int = 1) -> sympy.Expr:
+        first, second = self.args
+        lead = first - second if argindex == 1 else second - first
+        return UnitStep(self.direction * lead)
+
+    def primitive(self) -> sympy.Expr:
+        return type(self).sympy_function(*self.args, evaluate=False)
+
+
+class RealMax(_Extreme):
+    """max(a, b)."""
+
+    display, direction, sympy_function = "max", 1, sympy.Max
+
+
+class RealMin(_Extreme):
+    """min(a, b)."""
+
+    display, direction, sympy_function = "min", -1, sympy.Min
+
+
+class _Elementary(_RealFunction):
+    """A real function of one real argument: sympy's function of the same name without its
+    automatic rewriting and assumption queries. Asked whether ``tanh(tanh(...(x)))`` is real
+    or zero, sympy splits every level into real and imaginary parts, which costs time
+    exponential in the depth (ten levels took nine seconds, each further level three times
+    longer). Nothing is evaluated here either: a constant argument is folded by the parser, and
+    one that appears later (a parameter value substituted by the engine) is left to numpy.
+    """
+
+    nargs = 1
+    sympy_function: ClassVar[Any] = None
+    derivative: ClassVar[Callable[[sympy.Expr], sympy.Expr]]
+
+    def fdiff(self, argindex: int = 1) -> sympy.Expr:
+        return type(self).derivative(self.args[0])
+
+    def primitive(self) -> sympy.Expr:
+        return type(self).sympy_function(self.args[0], evaluate=False)
+
+
+class RealExp(_Elementary):
+    """exp(u)."""
+
+    display, sympy_function = "exp", sympy.exp
+    derivative = staticmethod(lambda u: RealExp(u))
+
+
+class RealLog(_Elementary):
+    """log(u), the natural logarithm."""
+
+    display, sympy_function = "log", sympy.log
+    derivative = staticmethod(lambda u: 1 / u)
+
+
+class RealTanh(_Elementary):
+    """tanh(u)."""
+
+    display, sympy_function = "tanh", sympy.tanh
+    derivative = staticmethod(lambda u: 1 - RealTanh(u) ** 2)
+
+
+class RealSinh(_Elementary):
+    """sinh(u)."""
+
+    display, sympy_function = "sinh", sympy.sinh
+    derivative = staticmethod(lambda u: RealCosh(u))
+
+
+class RealCosh(_Elementary):
+    """cosh(u)."""
+
+    display, sympy_function = "cosh", sympy.cosh
+    derivative = staticmethod(lambda u: RealSinh(u))
+
+
+class RealSin(_Elementary):
+    """sin(u)."""
+
+    display, sympy_function = "sin", sympy.sin
+    derivative = staticmethod(lambda u: RealCos(u))
+
+
+class RealCos(_Elementary):
+    """cos(u)."""
+
+    display, sympy_function = "cos", sympy.cos
+    derivative = staticmethod(lambda u: -RealSin(u))
+
+
+def _extreme(kind: type[_Extreme], *arguments: sympy.Expr) -> sympy.Expr:
+    """max or min of any number of arguments as a balanced tree of two-argument functions (a
+    chain would nest as deep as there are arguments, and compiling recurses that deep); the
+    numbers among the arguments are combined first and repeated arguments count once."""
+    numbers = [argument for argument in arguments if argument.is_Number]
+    level = list(dict.fromkeys(argument for argument in arguments if not argument.is_Number))
+    if numbers:
+        level.append(reduce(kind, numbers))
+    while len(level) > 1:
+        paired = [kind(*level[i : i + 2]) for i in range(0, len(level) - 1, 2)]
+        level = paired + level[len(paired) * 2 :]
+    return level[0]
+
+
+def real_max(*arguments: sympy.Expr) -> sympy.Expr:
+    """max(a, b, ...) of real values."""
+    return _extreme(RealMax, *arguments)
+
+
+def real_min(*arguments: sympy.Expr) -> sympy.Expr:
+    """min(a, b, ...) of real values."""
+    return _extreme(RealMin, *arguments)
+
+
+# --------------------------------------------------------------------------------------------
+# the whitelist
+
+
+def _analytic(function: Callable[..., Any]) -> Callable[..., Any]:
+    """``function`` of the private mpmath context, applied to checked sympy Numbers."""
+    return lambda *numbers: function(*(_to_mpf(number) for number in numbers))
+
+
+def _to_mpf(number: sympy.Expr) -> Any:
+    """A checked sympy Number (at most 1e300 in magnitude) as an mpf of the private context."""
+    return _MP.mpf(float(number))
 
 
 class FunctionSpec(NamedTuple):
-    """A function a formula may call: the sympy callable and how many arguments it takes.
+    """A function a formula may call.
 
-    ``max_args`` is None when any number of arguments from ``min_args`` upward is accepted.
+    ``function`` builds the sympy expression; ``value`` computes the result when every argument
+    is a number (returning an mpmath number of the private context, or an exact sympy Number);
+    ``max_args`` is None when any number of arguments from ``min_args`` upward is accepted;
+    ``scaled`` marks functions whose argument scale is limited (:data:`MAX_ARGUMENT_SCALE`).
     """
 
     function: Callable[..., sympy.Expr]
     min_args: int
     max_args: int | None
+    value: Callable[..., Any]
+    scaled: bool = False
 
 
 ALLOWED_FUNCTIONS: Mapping[str, FunctionSpec] = MappingProxyType(
     {
-        "exp": FunctionSpec(sympy.exp, 1, 1),
-        "log": FunctionSpec(sympy.log, 1, 1),
-        "sqrt": FunctionSpec(sympy.sqrt, 1, 1),
-        "tanh": FunctionSpec(sympy.tanh, 1, 1),
-        "sinh": FunctionSpec(sympy.sinh, 1, 1),
-        "cosh": FunctionSpec(sympy.cosh, 1, 1),
-        "sin": FunctionSpec(sympy.sin, 1, 1),
-        "cos": FunctionSpec(sympy.cos, 1, 1),
-        "abs": FunctionSpec(sympy.Abs, 1, 1),
-        "min": FunctionSpec(sympy.Min, 2, None),
-        "max": FunctionSpec(sympy.Max, 2, None),
+        "exp": FunctionSpec(RealExp, 1, 1, _analytic(_MP.exp), scaled=True),
+        "log": FunctionSpec(RealLog, 1, 1, _analytic(_MP.log)),
+        "sqrt": FunctionSpec(sympy.sqrt, 1, 1, _analytic(_MP.sqrt)),
+        "tanh": FunctionSpec(RealTanh, 1, 1, _analytic(_MP.tanh), scaled=True),
+        "sinh": FunctionSpec(RealSinh, 1, 1, _analytic(_MP.sinh), scaled=True),
+        "cosh": FunctionSpec(RealCosh, 1, 1, _analytic(_MP.cosh), scaled=True),
+        "sin": FunctionSpec(RealSin, 1, 1, _analytic(_MP.sin), scaled=True),
+        "cos": FunctionSpec(RealCos, 1, 1, _analytic(_MP.cos), scaled=True),
+        "abs": FunctionSpec(RealAbs, 1, 1, RealAbs),
+        "min": FunctionSpec(real_min, 2, None, real_min),
+        "max": FunctionSpec(real_max, 2, None, real_max),
     }
 )
 """Every function a formula may call, by the name the user writes."""
 
-_CONSTANTS: Mapping[str, sympy.Expr] = MappingProxyType({"pi": sympy.pi})
+_VALUE_OF: Mapping[type, Callable[..., Any]] = MappingProxyType(
+    {
+        **{
+            spec.function: spec.value
+            for spec in ALLOWED_FUNCTIONS.values()
+            if isinstance(spec.function, type)
+        },
+        RealMax: real_max,
+        RealMin: real_min,
+    }
+)
+"""Numeric value of each function class sympy may leave in a built expression (for folding
+constants that appear only once sympy combines terms)."""
+
+_CONSTANTS: Mapping[str, float] = MappingProxyType({"pi": math.pi})
 """Named constants usable without declaring them (a declared name of the same spelling wins)."""
 
 _ADDITIVE = (ast.Add, ast.Sub)
@@ -132,14 +453,23 @@ _REFUSED_CONSTRUCTS: Mapping[type[ast.AST], str] = MappingProxyType(
 """Python constructs that are never part of a formula, with the message naming each."""
 
 
-def parse_formula(text: str, symbols: Mapping[str, sympy.Symbol]) -> sympy.Expr:
+# --------------------------------------------------------------------------------------------
+# entry point and text checks
+
+
+def parse_formula(
+    text: str, symbols: Mapping[str, sympy.Symbol], states: Collection[str] | None = None
+) -> sympy.Expr:
     """Parse one right-hand-side formula into a sympy expression using only a whitelist.
 
     ``symbols`` maps every name the formula may use (state variables and parameters) to its
-    sympy symbol. Allowed are numbers, declared names, the constant ``pi``, the operators
-    ``+ - * / **`` (and unary ``+``/``-``) and calls to :data:`ALLOWED_FUNCTIONS`. Anything
-    else raises :class:`FormulaError` with a message that says what was refused and why, so
-    the user can fix the scenario file without reading code.
+    sympy symbol; ``states`` names the state variables among them (None: every name), which
+    the model library differentiates, once and twice, besides one parameter (the control).
+    Allowed are numbers, declared names, the constant ``pi``, the operators ``+ - * / **``
+    (and unary ``+``/``-``) and calls to :data:`ALLOWED_FUNCTIONS`. Anything else raises
+    :class:`FormulaError` with a message that says what was refused and why, so the user can
+    fix the scenario file without reading code. Constant parts come back as numbers (exact
+    fractions or doubles).
     """
     if not isinstance(text, str):
         raise FormulaError(f"formula must be text, got {type(text).__name__}")
@@ -150,9 +480,66 @@ def parse_formula(text: str, symbols: Mapping[str, sympy.Symbol]) -> sympy.Expr:
         raise FormulaError(
             f"formula is too long ({len(source)} characters; the limit is {MAX_FORMULA_LENGTH})"
         )
+    if (problem := unusual_character(source)) is not None:
+        raise FormulaError(f"not a valid formula: {problem}")
     _check_bracket_depth(source)
     tree = _syntax_tree(source)
-    return _Builder(source, symbols).build(tree)
+    try:
+        result = _Builder(source, symbols).build(tree)
+    except RecursionError:  # pragma: no cover - the depth limits keep recursion shallow
+        raise FormulaError("formula is nested too deeply or too complex") from None
+    names = symbols if states is None else [name for name in states if name in symbols]
+    differentiated = {symbols[name] for name in names}
+    work = derivative_work(result, differentiated)
+    if work > MAX_DERIVATIVE_WORK:
+        raise FormulaError(
+            f"formula is too complex to differentiate: its derivatives would hold about "
+            f"{work:,.0f} terms (the limit is {MAX_DERIVATIVE_WORK:,}); use fewer factors in "
+            "long products or fewer nested functions"
+        )
+    return result
+
+
+def unusual_character(text: str) -> str | None:
+    """Why ``text`` cannot be part of a formula or a name because of one of its characters, or
+    None when every character is printable ASCII (or a tab or line break).
+
+    Python reads identifiers after Unicode NFKC normalisation, so a full-width ``ｘ`` or a
+    mathematical bold ``𝐱`` would silently become the name ``x``; invisible characters (zero
+    width spaces) would hide what a formula says. The message names the first such character,
+    its code point and column, and what to type instead.
+    """
+    for column, char in enumerate(text, start=1):
+        if " " <= char <= "~" or char in "\t\n\r":
+            continue
+        code = f"U+{ord(char):04X}"
+        name = unicodedata.name(char, "")
+        label = f"{code} {name}" if name else code
+        where = f"({label}, column {column})"
+        category = unicodedata.category(char)
+        if category == "Cc":
+            return f"a control character {where} is not allowed; delete it"
+        if category in ("Cf", "Zs", "Zl", "Zp"):
+            return (
+                f"an invisible or non-ASCII space character {where} is not allowed; delete it "
+                "or type a plain space"
+            )
+        if char in _ASCII_HINTS:
+            return (
+                f"the character {char!r} {where} is not allowed; "
+                f"type {_ASCII_HINTS[char]!r} instead"
+            )
+        folded = unicodedata.normalize("NFKC", char)
+        if folded != char and folded.isascii() and folded.isprintable():
+            return (
+                f"the character {char!r} {where} looks like {folded!r} but is a different "
+                f"character; formulas and names use plain ASCII, type {folded!r} instead"
+            )
+        return (
+            f"the character {char!r} {where} is not allowed; formulas and names use plain "
+            "ASCII letters, digits, operators and brackets"
+        )
+    return None
 
 
 def _check_bracket_depth(source: str) -> None:
@@ -177,21 +564,30 @@ def _syntax_tree(source: str) -> ast.Expression:
     except SyntaxError as error:
         where = f" (column {error.offset})" if error.offset else ""
         raise FormulaError(f"not a valid formula: {error.msg}{where}") from None
-    except ValueError as error:  # e.g. NUL characters in the text
+    except ValueError as error:  # pragma: no cover - unusual_character refuses NUL first
         raise FormulaError(f"not a valid formula: {error}") from None
     except (RecursionError, MemoryError):
         raise FormulaError("formula is nested too deeply or too complex to parse") from None
 
 
+# --------------------------------------------------------------------------------------------
+# the tree walker
+
+
 class _Builder:
-    """Walks one syntax tree and builds the sympy expression, refusing anything off the list."""
+    """Walks one syntax tree and builds the sympy expression, refusing anything off the list.
+
+    Invariant: every constant part of an expression built here is a sympy Number within
+    :data:`MIN_CONSTANT` .. :data:`MAX_CONSTANT` (or zero); sympy never sees a symbolic constant.
+    """
 
     def __init__(self, source: str, symbols: Mapping[str, sympy.Symbol]) -> None:
         self._source = source
         self._symbols = symbols
+        self._heights: dict[sympy.Expr, int] = {}
 
     def build(self, tree: ast.Expression) -> sympy.Expr:
-        """Translate the whole tree and check the result is a defined, real-valued expression."""
+        """Translate the whole tree into one expression."""
         if not isinstance(tree, ast.Expression):  # pragma: no cover - ast.parse in eval mode
             raise FormulaError("not a valid formula: expected a single expression")
         result = self._node(tree.body, 0)
@@ -207,22 +603,19 @@ class _Builder:
         if depth > MAX_DEPTH:
             raise FormulaError(f"formula is nested too deeply (more than {MAX_DEPTH} levels)")
         if isinstance(node, ast.Constant):
-            result = self._constant(node)
-        elif isinstance(node, ast.Name):
-            result = self._name(node)
-        elif isinstance(node, ast.BinOp):
-            result = self._binary(node, depth)
-        elif isinstance(node, ast.UnaryOp):
-            result = self._unary(node, depth)
-        elif isinstance(node, ast.Call):
-            result = self._call(node, depth)
-        else:
-            reason = _REFUSED_CONSTRUCTS.get(
-                type(node), f"{type(node).__name__} expressions are not allowed"
-            )
-            raise self._refuse(reason, node)
-        self._check_defined(result, node)
-        return result
+            return self._constant(node)
+        if isinstance(node, ast.Name):
+            return self._name(node)
+        if isinstance(node, ast.BinOp):
+            return self._binary(node, depth)
+        if isinstance(node, ast.UnaryOp):
+            return self._unary(node, depth)
+        if isinstance(node, ast.Call):
+            return self._call(node, depth)
+        reason = _REFUSED_CONSTRUCTS.get(
+            type(node), f"{type(node).__name__} expressions are not allowed"
+        )
+        raise self._refuse(reason, node)
 
     # ----------------------------------------------------------------------------------------
     # leaves
@@ -241,15 +634,27 @@ class _Builder:
                 raise self._refuse(self._constant_range_message(), node)
             return sympy.Integer(value)
         if isinstance(value, float):
-            if not math.isfinite(value) or abs(value) > MAX_CONSTANT:
+            written_as_zero = value == 0.0 and not any(
+                digit in "123456789" for digit in self._mantissa(node)
+            )
+            if (
+                not math.isfinite(value)
+                or abs(value) > MAX_CONSTANT
+                or (abs(value) < MIN_CONSTANT and not written_as_zero)
+            ):
                 raise self._refuse(self._constant_range_message(), node)
             return sympy.Float(value)
         raise self._refuse(f"the literal {value!r} is not allowed", node)
 
+    def _mantissa(self, node: ast.Constant) -> str:
+        """The digits of a float literal before its exponent (``1.5`` of ``1.5e-400``)."""
+        text = ast.get_source_segment(self._source, node) or ""
+        return text.lower().partition("e")[0]
+
     @staticmethod
     def _constant_range_message() -> str:
         """The one message for every out-of-range literal, so users see the same limit."""
-        return f"numbers must be finite and at most {MAX_CONSTANT:g} in magnitude"
+        return f"numbers must be finite and {_LIMIT_RANGE}"
 
     def _name(self, node: ast.Name) -> sympy.Expr:
         """A name is a declared symbol or a known constant; anything else is a user mistake."""
@@ -258,7 +663,7 @@ class _Builder:
         if name in self._symbols:
             return self._symbols[name]
         if name in _CONSTANTS:
-            return _CONSTANTS[name]
+            return sympy.Float(_CONSTANTS[name])
         declared = ", ".join(sorted(self._symbols)) or "(none)"
         hint = ""
         if name == "e":
@@ -302,14 +707,15 @@ class _Builder:
         result = self._node(current, depth + 1)
         for op, right in reversed(pending):
             operand = self._node(right, depth + 1)
-            result = self._apply(_BINARY_ACTIONS[type(op)], node, result, operand)
-            self._check_defined(result, node)
+            if isinstance(op, ast.Div) and operand.is_Number and operand.is_zero:
+                raise self._refuse("formula is undefined (division by zero)", node)
+            result = self._combine(_BINARY_ACTIONS[type(op)], node, result, operand)
         return result
 
     def _unary(self, node: ast.UnaryOp, depth: int) -> sympy.Expr:
         """Unary minus negates, unary plus is a no-op; other unary operators are refused."""
         if isinstance(node.op, ast.USub):
-            return -self._node(node.operand, depth + 1)
+            return self._combine(_negate, node, self._node(node.operand, depth + 1))
         if isinstance(node.op, ast.UAdd):
             return self._node(node.operand, depth + 1)
         reason = _REFUSED_OPERATORS.get(
@@ -320,7 +726,6 @@ class _Builder:
     def _power(self, base: sympy.Expr, exponent: sympy.Expr, node: ast.AST) -> sympy.Expr:
         """Build ``base**exponent`` after checking it cannot create a gigantic number.
 
-        Only constant exponents are checked: a symbolic exponent leaves the power unevaluated.
         The checks run before sympy sees the power, because sympy evaluates integer powers of
         numbers exactly and merges nested powers, and either could take unbounded time.
         """
@@ -341,7 +746,16 @@ class _Builder:
                 )
             if _number_digits(base) * size > MAX_NUMBER_DIGITS:
                 raise self._refuse(f"the power would produce a number {_DIGITS_RANGE}", node)
-        return self._apply(sympy.Pow, node, base, exponent)
+        elif base.is_Number and not base.is_positive:
+            raise self._refuse(
+                f"a power with a variable exponent needs a positive base (got {_short(base)})",
+                node,
+            )
+        if base.is_Number and exponent.is_Number:
+            return self._fold(lambda: _constant_power(base, exponent), node)
+        result = self._combine(sympy.Pow, node, base, exponent)
+        self._check_nesting(result, node)
+        return result
 
     # ----------------------------------------------------------------------------------------
     # function calls
@@ -358,10 +772,20 @@ class _Builder:
         if count < spec.min_args or (spec.max_args is not None and count > spec.max_args):
             raise self._refuse(f"{name} takes {_arity(spec)} (got {count})", node)
         arguments = [self._node(arg, depth + 1) for arg in node.args]
-        for argument in arguments:
-            if _number_digits(argument) > MAX_NUMBER_DIGITS:
-                raise self._refuse(f"the argument of {name} is a number {_DIGITS_RANGE}", node)
-        return self._apply(spec.function, node, *arguments)
+        if all(argument.is_Number for argument in arguments):
+            return self._fold(lambda: spec.value(*arguments), node)
+        if spec.scaled:
+            scale = _scale_log10(arguments[0])
+            if scale > math.log10(MAX_ARGUMENT_SCALE):
+                raise self._refuse(
+                    f"the argument of {name} multiplies a name by, or adds, a number of about "
+                    f"1e{scale:.0f} (the limit is {_power_of_ten(MAX_ARGUMENT_SCALE)}); "
+                    f"{name} of it would be rounding noise or overflow",
+                    node,
+                )
+        result = self._combine(spec.function, node, *arguments)
+        self._check_nesting(result, node)
+        return result
 
     def _function_name(self, node: ast.Call) -> str:
         """Return the called function's name, refusing anything but a whitelisted plain name."""
@@ -385,51 +809,195 @@ class _Builder:
         raise FormulaError(f"unknown function {func.id!r}; allowed functions: {allowed}{hint}")
 
     # ----------------------------------------------------------------------------------------
-    # helpers
+    # building, folding and checking
 
-    def _apply(
+    def _combine(
         self, action: Callable[..., sympy.Expr], node: ast.AST, *args: sympy.Expr
     ) -> sympy.Expr:
-        """Run one sympy constructor, turning sympy's own refusals into FormulaError.
-
-        sympy raises e.g. ValueError for ``min(sqrt(-1), 1)``; callers of the parser should
-        only ever see FormulaError for bad input.
-        """
+        """Apply one operation: folded to a number when every operand is one, else built by
+        sympy and checked (numbers in range, no merged huge exponent, constants folded)."""
+        if all(arg.is_Number for arg in args):
+            return self._fold(lambda: action(*args), node)
         try:
-            return action(*args)
-        except FormulaError:  # pragma: no cover - sympy never raises it, kept for clarity
-            raise
-        except (ArithmeticError, TypeError, ValueError, RecursionError) as error:
+            result = action(*args)
+        except (ArithmeticError, TypeError, ValueError) as error:
+            raise self._refuse(f"cannot be computed ({error})", node) from None
+        return self._checked(result, node)
+
+    def _fold(self, compute: Callable[[], Any], node: ast.AST) -> sympy.Expr:
+        """Compute a constant part and return it as a checked sympy Number."""
+        try:
+            value = compute()
+        except ZeroDivisionError:
+            raise self._refuse("formula is undefined (division by zero)", node) from None
+        except (ArithmeticError, TypeError, ValueError) as error:
+            raise self._refuse(f"cannot be computed ({error})", node) from None
+        return self._number(value, node)
+
+    def _number(self, value: Any, node: ast.AST) -> sympy.Expr:
+        """A folded value (an mpmath number of the private context or a sympy Number) as a
+        sympy Number, refused when undefined, complex or out of range."""
+        if isinstance(value, _MP.mpc):
+            if value.imag != 0:
+                raise self._refuse(_COMPLEX, node)
+            value = value.real
+        if isinstance(value, _MP.mpf):
+            if not _MP.isfinite(value):
+                raise self._refuse(_UNDEFINED, node)
+            if value != 0:
+                self._check_magnitude(abs(value), node)
+            return sympy.Float(float(value))
+        if value is sympy.I:
+            raise self._refuse(_COMPLEX, node)
+        if not (value.is_Rational or value.is_Float):  # nan (0/0), oo, zoo (1/0)
+            raise self._refuse(_UNDEFINED, node)
+        if not value.is_zero:
+            self._check_magnitude(_magnitude(value), node)
+        if value.is_Rational and max(value.p.bit_length(), value.q.bit_length()) > (
+            _MAX_FRACTION_BITS
+        ):
+            raise self._refuse(
+                "the exact fraction has more than 300 digits; write it as a decimal", node
+            )
+        return value
+
+    def _check_magnitude(self, size: Any, node: ast.AST) -> None:
+        """Refuse a nonzero constant part whose magnitude ``size`` is out of range."""
+        if size > MAX_CONSTANT:
+            raise FormulaError(
+                f"the constant part {self._segment(node)!r} is too large (beyond "
+                f"{_power_of_ten(MAX_CONSTANT)} in magnitude)"
+            )
+        if size < MIN_CONSTANT:
+            raise FormulaError(
+                f"the constant part {self._segment(node)!r} is too small (nonzero but below "
+                f"{_power_of_ten(MIN_CONSTANT)} in magnitude)"
+            )
+
+    def _evaluate(self, expr: sympy.Expr, node: ast.AST) -> sympy.Expr:
+        """Value of a constant expression that sympy formed from checked numbers, computed
+        bottom-up with every intermediate number checked."""
+        if expr.is_Number or (expr.is_Atom and not expr.is_NumberSymbol):
+            return self._number(expr, node)
+        if expr.is_NumberSymbol:
+            return self._number(_MP.mpf(float(expr)), node)
+        values = [self._evaluate(arg, node) for arg in expr.args]
+        if expr.is_Add:
+            return reduce(lambda a, b: self._fold(lambda: a + b, node), values)
+        if expr.is_Mul:
+            return reduce(lambda a, b: self._fold(lambda: a * b, node), values)
+        if expr.is_Pow:
+            return self._fold(lambda: _constant_power(*values), node)
+        value = _VALUE_OF.get(expr.func)
+        if value is None:
+            raise self._refuse(f"cannot be computed as a number ({expr.func})", node)
+        return self._fold(lambda: value(*values), node)
+
+    def _checked(self, expr: sympy.Expr, node: ast.AST) -> sympy.Expr:
+        """Check an expression sympy built from checked parts; fold constants it formed."""
+        if not expr.free_symbols:
+            return self._evaluate(expr, node)
+        constants: dict[sympy.Expr, sympy.Expr] = {}
+        stack = [expr]
+        while stack:
+            part = stack.pop()
+            if part.is_Atom:
+                if not part.is_Symbol:
+                    self._evaluate(part, node)
+            elif not part.free_symbols:
+                constants[part] = self._evaluate(part, node)
+            else:
+                if part.is_Pow and part.exp.is_Number and abs(part.exp) > MAX_EXPONENT:
+                    raise self._refuse(
+                        f"powers combine to an exponent of {_short(part.exp)}, more than the "
+                        f"limit {MAX_EXPONENT}",
+                        node,
+                    )
+                stack.extend(part.args)
+        if not constants:
+            return expr
+        try:
+            return expr.xreplace(constants)
+        except (ArithmeticError, TypeError, ValueError) as error:  # pragma: no cover
             raise self._refuse(f"cannot be computed ({error})", node) from None
 
-    def _check_defined(self, expr: sympy.Expr, node: ast.AST) -> None:
-        """Refuse undefined (1/0, log(0)) or complex-valued (sqrt(-1)) parts as soon as built."""
-        if expr.has(sympy.zoo, sympy.nan, sympy.oo, -sympy.oo):
-            raise self._refuse("formula is undefined (division by zero?)", node)
-        if expr.has(sympy.I) or (not expr.free_symbols and expr.is_extended_real is False):
-            raise self._refuse("formula is complex-valued (root or log of a negative?)", node)
+    def _check_nesting(self, expr: sympy.Expr, node: ast.AST) -> None:
+        """Refuse exponentials nested deeper than MAX_EXPONENTIAL_NESTING."""
+        height = self._exponential_height(expr)
+        if height > MAX_EXPONENTIAL_NESTING:
+            raise self._refuse(
+                f"exponentials are nested {height} deep, more than {MAX_EXPONENTIAL_NESTING} "
+                "(exp, sinh, cosh and powers with a variable exponent count)",
+                node,
+            )
+
+    def _exponential_height(self, expr: sympy.Expr) -> int:
+        """How many exponentials are nested in ``expr`` (remembered per sub-expression)."""
+        if expr.is_Atom:
+            return 0
+        known = self._heights.get(expr)
+        if known is not None:
+            return known
+        inner = max(self._exponential_height(arg) for arg in expr.args)
+        exponential = isinstance(expr, (RealExp, RealSinh, RealCosh)) or (
+            expr.is_Pow and not expr.exp.is_Number
+        )
+        height = inner + 1 if exponential else inner
+        self._heights[expr] = height
+        return height
+
+    def _segment(self, node: ast.AST) -> str:
+        """The formula text of ``node``, shortened for a message."""
+        segment = ast.get_source_segment(self._source, node) or self._source
+        if len(segment) > _SEGMENT_CHARS:
+            segment = segment[: _SEGMENT_CHARS - 3] + "..."
+        return segment
 
     def _refuse(self, reason: str, node: ast.AST) -> FormulaError:
         """Build the error for ``reason``, quoting the offending part of the formula."""
-        segment = ast.get_source_segment(self._source, node)
-        if not segment:
-            return FormulaError(reason)
-        if len(segment) > _SEGMENT_CHARS:
-            segment = segment[: _SEGMENT_CHARS - 3] + "..."
-        return FormulaError(f"{reason}, in {segment!r}")
+        return FormulaError(f"{reason}, in {self._segment(node)!r}")
+
+
+def _negate(value: sympy.Expr) -> sympy.Expr:
+    return -value
 
 
 _BINARY_ACTIONS: Mapping[type[ast.operator], Callable[[sympy.Expr, sympy.Expr], sympy.Expr]] = (
     MappingProxyType(
         {
-            ast.Add: operator.add,
-            ast.Sub: operator.sub,
-            ast.Mult: operator.mul,
-            ast.Div: operator.truediv,
+            ast.Add: lambda a, b: a + b,
+            ast.Sub: lambda a, b: a - b,
+            ast.Mult: lambda a, b: a * b,
+            ast.Div: lambda a, b: a / b,
         }
     )
 )
 """The sympy operation for each operator of a sum or product chain."""
+
+
+def _constant_power(base: sympy.Expr, exponent: sympy.Expr) -> Any:
+    """``base**exponent`` of two checked numbers: exact for a rational base and an integer
+    exponent (the power guards bound its size), else in double precision (mpmath)."""
+    if base.is_zero and exponent.is_negative:
+        raise ZeroDivisionError
+    if base.is_Rational and exponent.is_Integer:
+        return base**exponent
+    return _MP.power(_to_mpf(base), _to_mpf(exponent))
+
+
+def _scale_log10(expr: sympy.Expr) -> float:
+    """log10 of the largest factor by which ``expr`` scales its names, or of the largest number
+    it holds: 20 for 1e20*x, for x + 1e20 and for (1e10*x)**2. Numbers inside other functions
+    do not count; each function's own argument is checked when it is built."""
+    if expr.is_Number:
+        return math.log10(abs(float(expr))) if not expr.is_zero else -math.inf
+    if expr.is_Add:
+        return max(_scale_log10(term) for term in expr.args)
+    if expr.is_Mul:
+        return sum(_scale_log10(factor) for factor in expr.args)
+    if expr.is_Pow and expr.exp.is_Number:
+        return _scale_log10(expr.base) * float(expr.exp)
+    return 0.0
 
 
 def _refuse_private(name: str) -> None:
@@ -509,3 +1077,149 @@ def _exponent_reach(expr: sympy.Expr) -> float:
     if expr.is_Pow and expr.exp.is_Number:
         return _magnitude(expr.exp) * _exponent_reach(expr.base)
     return 1.0
+
+
+# --------------------------------------------------------------------------------------------
+# how much work differentiating a formula takes
+
+
+_TERM_OVERHEAD = 2.0
+"""Nodes each product-rule or chain-rule term adds besides its factors (the product itself and a
+numeric coefficient)."""
+
+
+class _DerivativeSizes(NamedTuple):
+    """Estimated node counts of an expression and of its derivatives: ``first[v]`` of d/dv,
+    ``second[(v, w)]`` of d2/dv dw (only pairs with a differentiated name come up)."""
+
+    size: float
+    first: dict[sympy.Symbol, float]
+    second: dict[tuple[sympy.Symbol, sympy.Symbol], float]
+
+
+def derivative_work(expr: sympy.Expr, states: Collection[sympy.Symbol]) -> float:
+    """Estimated total size of the derivatives the model library builds from ``expr``.
+
+    Those are d/ds and d2/ds ds' for the states s, d/du and d2/ds du for the control u (any
+    other name: the worst one counts). The estimate follows the product rule and the chain
+    rule: the derivative of a product of n factors is n products of n factors, each further
+    derivative multiplies by n again; it ignores cancellation, so it is an upper estimate.
+    """
+    sizes = _derivative_sizes(expr, frozenset(states), {})
+    controls = [name for name in sizes.first if name not in states] or [None]
+    state_work = sum(sizes.first.get(s, 0.0) for s in states) + sum(
+        (1.0 if v == w else 2.0) * size
+        for (v, w), size in sizes.second.items()
+        if v in states and w in states
+    )
+    control_work = max(
+        sizes.first.get(u, 0.0)
+        + sum(size for (v, w), size in sizes.second.items() if u in (v, w) and v != w)
+        for u in controls
+    )
+    return state_work + control_work
+
+
+def _derivative_sizes(
+    expr: sympy.Expr, states: frozenset[sympy.Symbol], memo: dict[sympy.Expr, _DerivativeSizes]
+) -> _DerivativeSizes:
+    """Sizes of ``expr`` and its derivatives, bottom-up (see :func:`derivative_work`)."""
+    known = memo.get(expr)
+    if known is not None:
+        return known
+    if expr.is_Symbol:
+        result = _DerivativeSizes(1.0, {expr: 1.0}, {})
+    elif expr.is_Atom:
+        result = _DerivativeSizes(1.0, {}, {})
+    else:
+        parts = [_derivative_sizes(arg, states, memo) for arg in expr.args]
+        if expr.is_Add:
+            result = _sum_sizes(parts)
+        elif expr.is_Mul:
+            result = _product_sizes(parts, states)
+        else:
+            if expr.is_Pow and expr.exp.is_Number:
+                parts = parts[:1]  # a constant exponent is no argument to differentiate
+            piecewise_linear = isinstance(expr, (RealAbs, RealMax, RealMin))
+            growth = 2.0 if expr.is_Pow and len(parts) == 2 else 1.0
+            result = _function_sizes(parts, states, not piecewise_linear, growth)
+    memo[expr] = result
+    return result
+
+
+def _ordered(v: sympy.Symbol, w: sympy.Symbol) -> tuple[sympy.Symbol, sympy.Symbol]:
+    """The pair (v, w) in one fixed order, so d2/dv dw and d2/dw dv share an entry."""
+    return (v, w) if v.name <= w.name else (w, v)
+
+
+def _add_cross_terms(
+    second: dict[tuple[sympy.Symbol, sympy.Symbol], float],
+    left: _DerivativeSizes,
+    right: _DerivativeSizes,
+    states: frozenset[sympy.Symbol],
+    base: float,
+) -> None:
+    """Count the terms d(left)/dv * d(right)/dw (``base`` nodes besides the two derivatives)
+    into the second derivatives d2/dv dw, for every pair of names with a state among them."""
+    for v, left_size in left.first.items():
+        for w, right_size in right.first.items():
+            if v in states or w in states:
+                key = _ordered(v, w)
+                second[key] = second.get(key, 0.0) + base + left_size + right_size
+
+
+def _sum_sizes(parts: list[_DerivativeSizes]) -> _DerivativeSizes:
+    """A sum differentiates term by term."""
+    first: dict[sympy.Symbol, float] = {}
+    second: dict[tuple[sympy.Symbol, sympy.Symbol], float] = {}
+    for part in parts:
+        for name, size in part.first.items():
+            first[name] = first.get(name, 1.0) + size
+        for pair, size in part.second.items():
+            second[pair] = second.get(pair, 1.0) + size
+    return _DerivativeSizes(1.0 + sum(part.size for part in parts), first, second)
+
+
+def _product_sizes(
+    parts: list[_DerivativeSizes], states: frozenset[sympy.Symbol]
+) -> _DerivativeSizes:
+    """Product rule: d(f g h) = f' g h + f g' h + f g h'; each term is nearly the whole."""
+    whole = 1.0 + sum(part.size for part in parts)
+    first: dict[sympy.Symbol, float] = {}
+    for part in parts:
+        for name, size in part.first.items():
+            first[name] = first.get(name, 0.0) + whole - part.size + size + _TERM_OVERHEAD
+    second: dict[tuple[sympy.Symbol, sympy.Symbol], float] = {}
+    for i, left in enumerate(parts):
+        for j, right in enumerate(parts):
+            if i == j:
+                for pair, size in left.second.items():
+                    extra = whole - left.size + size + _TERM_OVERHEAD
+                    second[pair] = second.get(pair, 0.0) + extra
+                continue
+            base = whole - left.size - right.size + _TERM_OVERHEAD
+            _add_cross_terms(second, left, right, states, base)
+    return _DerivativeSizes(whole, first, second)
+
+
+def _function_sizes(
+    parts: list[_DerivativeSizes], states: frozenset[sympy.Symbol], curved: bool, growth: float
+) -> _DerivativeSizes:
+    """Chain rule for g(u1, u2, ...): dg = sum g_i(u) du_i, and once more for d2g.
+
+    Each g_i(u) is about ``growth`` times as large as g(u) itself (two for a power with a
+    variable exponent, b**e*(e'*log(b) + e*b'/b)), plus a coefficient. For a piecewise linear
+    g (abs, min, max) the second derivatives g_ij vanish, and with them the cross terms.
+    """
+    whole = 1.0 + sum(part.size for part in parts)
+    outer = growth * whole + _TERM_OVERHEAD
+    first: dict[sympy.Symbol, float] = {}
+    second: dict[tuple[sympy.Symbol, sympy.Symbol], float] = {}
+    for left in parts:
+        for name, size in left.first.items():
+            first[name] = first.get(name, 0.0) + outer + size
+        for pair, size in left.second.items():
+            second[pair] = second.get(pair, 0.0) + outer + size
+        for right in parts if curved else ():
+            _add_cross_terms(second, left, right, states, growth * outer)
+    return _DerivativeSizes(whole, first, second)

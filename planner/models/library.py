@@ -9,7 +9,7 @@ import sympy
 
 from planner.errors import FormulaError
 from planner.models.base import ModelSpec
-from planner.models.formula import ALLOWED_FUNCTIONS, parse_formula
+from planner.models.formula import ALLOWED_FUNCTIONS, parse_formula, unusual_character
 from planner.models.info import MAX_FORMULA_VARIABLES, formula_info
 from planner.models.kinds import BUILTIN_INFO, builtin_equations
 
@@ -18,14 +18,16 @@ __all__ = ["BUILTIN_MODELS", "MAX_FORMULA_VARIABLES", "check_name", "formula_spe
 BUILTIN_MODELS: dict[str, ModelSpec] = {
     kind: ModelSpec.from_info(info, builtin_equations(kind)) for kind, info in BUILTIN_INFO.items()
 }
-_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,31}$")
+_NAME = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,31}")
 _RESERVED = set(ALLOWED_FUNCTIONS) | {"pi"}
 
 
 def check_name(name: str) -> str | None:
     """Why ``name`` cannot be a variable or parameter name, or None when it can."""
-    if not _NAME.match(name):
-        return "names start with a letter and hold only letters, digits and '_' (at most 32)"
+    if not _NAME.fullmatch(name):
+        rule = "names start with a letter and hold only letters, digits and '_' (at most 32)"
+        odd = unusual_character(name)
+        return rule if odd is None else f"{odd}; {rule}"
     if name in _RESERVED:
         return f"{name!r} is a function or constant name; choose another"
     return None
@@ -41,7 +43,7 @@ def formula_spec(equations: Mapping[str, str], parameter_names: tuple[str, ...])
     parsed = []
     for variable, text in equations.items():
         try:
-            parsed.append(parse_formula(text, symbols))
+            parsed.append(parse_formula(text, symbols, states=variables))
         except FormulaError as error:
             raise FormulaError(variable, str(error)) from None
     return ModelSpec.from_info(formula_info(variables, tuple(parameter_names)), parsed)
