@@ -67,6 +67,8 @@ def test_a_finite_time_blow_up_is_dated_to_its_closed_form(tmp_path):
         ({}, {"q": 200.0}),  # P^200 overflows far out on the curve
         ({}, {"r": 1e300}),  # a huge rate
         ({"P": "L - s*P + 1/(P - 5)"}, {"L": LOAD, "s": 1.2}),  # a pole
+        # a parameter tower no float holds (sympy would evaluate it exactly when specialising)
+        ({"P": "L - s*P - b**(b**b)*P"}, {"L": LOAD, "s": 1.2, "b": 1e300}),
     ],
 )
 @pytest.mark.parametrize("command", ["diagram", "compare", "sweep", "frontier", "ensemble"])
@@ -78,6 +80,15 @@ def test_runaway_models_never_end_in_a_traceback(tmp_path, equations, parameters
     assert "Traceback" not in err and "internal error" not in err
     if code == 2:  # a refusal names the file and a field
         assert str(path) in err
+
+
+def test_an_overflowing_parameter_is_a_divergence_not_a_failure(tmp_path):
+    """b**(b**b) with b = 1e300 is no float: the right-hand side is -inf at the start, and the
+    run is reported as diverged (the state leaves every range at once)."""
+    path = _scenario(tmp_path, {"P": "L - s*P - b**(b**b)*P"}, {"L": LOAD, "s": 1.2, "b": 1e300})
+    code, out, err = _run("compare", path, "--json")
+    assert code == 0, err
+    assert json.loads(out)["schedules"][0]["verdict"] == "diverged"
 
 
 def test_the_sweep_reports_where_the_state_ran_away(tmp_path):

@@ -157,5 +157,12 @@ def specialise(system: System, varying: tuple[str, ...] = ()) -> tuple[Specialis
             values.append(value)
         else:
             fixed.append((name, float(value)))
-    functions = _specialise(spec, system.model.control, tuple(fixed), tuple(free))
+    try:
+        functions = _specialise(spec, system.model.control, tuple(fixed), tuple(free))
+    except (OverflowError, ValueError, RecursionError):
+        # sympy evaluates powers of the substituted numbers exactly (a huge parameter raised
+        # to another can exceed any size): keep every parameter an argument instead.
+        names = tuple(name for name, _ in fixed) + tuple(free)
+        values = [np.float64(value) for _, value in fixed] + values
+        functions = _specialise(spec, system.model.control, (), names)
     return functions, tuple(values)

@@ -435,8 +435,13 @@ def _integrate(problem, save, watch, limits, tolerance, settling, solver, progre
                 failed = batch[mask]
                 # A step size that collapses while the state runs away is a blow-up in finite
                 # time (x' = x^2 and the like): divergence, not a failure of the method.
-                with np.errstate(invalid="ignore"):
+                with np.errstate(all="ignore"):
                     runaway = ~(np.max(np.abs(x[:, failed]), axis=0) < np.sqrt(limits.state_limit))
+                    # a right-hand side that is no finite number where the method stopped
+                    # (an overflowing parameter, a pole) sends the state off at once
+                    own = whole if failed.size == m else whole.subset(failed)
+                    slope = own.rhs(t_member[failed], x[:, failed])
+                    runaway |= ~np.all(np.isfinite(slope), axis=0)
                 codes[failed] = np.where(runaway, CODE[Status.DIVERGED], CODE[Status.FAILED])
                 t_end[failed] = t_member[failed]
                 alive[failed] = False

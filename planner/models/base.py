@@ -77,9 +77,16 @@ class CompiledModel:
         if missing:
             raise KeyError(f"parameters without a value: {', '.join(missing)}")
         values = tuple(
-            None if name == self.control else parameters[name] for name in self.spec.parameter_names
+            None if name == self.control else _number(parameters[name])
+            for name in self.spec.parameter_names
         )
         return System(self, values)
+
+
+def _number(value):
+    """A scalar parameter as a numpy float: arithmetic past the float range then gives inf (a
+    state the engine judges diverged) instead of raising OverflowError as Python floats do."""
+    return np.float64(value) if np.ndim(value) == 0 else value
 
 
 @cache
