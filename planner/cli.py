@@ -789,6 +789,7 @@ def _ensemble(args: argparse.Namespace) -> int:
         scheduler=args.scheduler,
         chunk_size=DEFAULT_CHUNK if args.chunk is None else args.chunk,
         progress=args.progress,
+        source=args.file,
     )
     print(json.dumps(ensemble_json(ensemble), indent=2) if args.json else ensemble_text(ensemble))
     if args.html:

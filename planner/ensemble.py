@@ -567,6 +567,30 @@ def _options(
     return base.model_copy(update=update) if update else base
 
 
+MEMORY_BUDGET = 2 * 1024**3  # bytes an ensemble may hold at once (a laptop's share)
+COPIES_PER_SAMPLE = 4  # the state samples, the target record, damages by year, scratch
+
+
+def _memory_plan(
+    scenario: Scenario, members: int, schedules: int, samples: int, chunk: int, source: str
+) -> int:
+    """The chunk size that keeps an ensemble within MEMORY_BUDGET, estimated before any work:
+    a chunk holds every member's state at every sample time a few times over; the fan chart
+    keeps up to FAN_MEMBERS members' target per schedule. An ensemble whose fan alone would
+    not fit (a very long horizon with many schedules) is refused, naming what to shrink."""
+    n = len(scenario.spec.variables)
+    per_member = samples * (n + COPIES_PER_SAMPLE) * 8
+    fan = min(members, FAN_MEMBERS) * samples * 8 * max(schedules, 1)
+    if fan > MEMORY_BUDGET // 2:
+        reason = (
+            f"{members} members over {samples} yearly samples and {schedules} schedules would "
+            f"hold about {fan / 1e9:.1f} GB of results (the limit is "
+            f"{MEMORY_BUDGET / 2 / 1e9:.1f} GB): shorten the horizon or compare fewer schedules"
+        )
+        raise InputError([Problem(source, "simulation.horizon", reason)])
+    return max(1, min(chunk, (MEMORY_BUDGET // 2) // per_member))
+
+
 def run_ensemble(
     scenario: Scenario,
     *,
@@ -578,6 +602,7 @@ def run_ensemble(
     keep_trajectories: bool = False,
     diagram: Diagram | None = None,
     progress: Progress = silent,
+    source: str = "<scenario>",
 ) -> Ensemble:
     """Run every schedule (or those given) for every member of the scenario's ensemble.
 
@@ -610,6 +635,7 @@ def run_ensemble(
         fan_members=FAN_MEMBERS,
     )
     total = uncertainty.members
+    chunk_size = _memory_plan(scenario, total, len(plans), len(sample_times), chunk_size, source)
     bounds = [(a, min(a + chunk_size, total)) for a in range(0, total, chunk_size)]
     tasks = [_Task(scenario, uncertainty, plans, settings, a, b) for a, b in bounds]
     inner = scaled(progress, 0.1, 0.99)  # 1.0 (which ends a terminal bar) only when done

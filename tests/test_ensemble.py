@@ -465,3 +465,24 @@ def test_cli_refuses_bad_options(option, value, field):
     code, _, err = _cli("ensemble", str(SCENARIOS / "tarnby-water.toml"), option, value)
     assert code == 2
     assert f"{option}: {field}:" in err
+
+
+def test_an_ensemble_too_large_for_memory_is_refused_before_it_runs():
+    """20,000 members over 10,000 yearly samples and five schedules would keep about 8 GB of
+    fan-chart results: refused at once, naming the horizon; a long horizon with few members
+    runs in smaller chunks instead (common practice, no source: estimate before allocating)."""
+    import tomllib
+
+    from planner.ensemble import MEMORY_BUDGET, _memory_plan
+    from planner.errors import InputError
+    from planner.scenario import scenario_from_data
+
+    path = Path(__file__).resolve().parent.parent / "scenarios" / "alder-mere.toml"
+    data = tomllib.loads(path.read_text(encoding="utf-8"))
+    data["simulation"]["horizon"] = 10000.0
+    scenario = scenario_from_data(data)
+    with pytest.raises(InputError) as error:
+        run_ensemble(scenario, members=20000, source=str(path))
+    assert "simulation.horizon" in str(error.value) and str(path) in str(error.value)
+    chunk = _memory_plan(scenario, 100, 1, 10001, 8192, "x")
+    assert 1 <= chunk < 8192 and chunk * 10001 * 5 * 8 <= MEMORY_BUDGET // 2
