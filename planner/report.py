@@ -680,14 +680,24 @@ def _target_line(scenario, conversion: LakeConversion) -> str | None:
     return f"  Water-quality target {wanted.rstrip()}: {trophic_words(state)}"
 
 
-def lake_lines(scenario, diagram: Diagram, standing: Standing) -> list[str]:
-    """The diagram text's lake section (nothing without a [lake] block)."""
+def _lake_opening(scenario, control: float):
+    """The lake's conversion and the first lines of a lake section (morphometry, conversions,
+    today's load), or None without a [lake] block."""
     conversion = _lake_conversion(scenario)
     if conversion is None:
-        return []
-    k = scenario.target_index
+        return None
     lines = _lake_header(conversion)
-    lines.append(f"  Load now: {_load_text(conversion, standing.control)}")
+    lines.append(f"  Load now: {_load_text(conversion, control)}")
+    return conversion, lines
+
+
+def lake_lines(scenario, diagram: Diagram, standing: Standing) -> list[str]:
+    """The diagram text's lake section (nothing without a [lake] block)."""
+    opening = _lake_opening(scenario, standing.control)
+    if opening is None:
+        return []
+    conversion, lines = opening
+    k = scenario.target_index
     desired = diagram.desired_attractor(standing.control)
     found = [
         _trophic_line(conversion, "Now", float(standing.state[k])),
@@ -721,12 +731,11 @@ def comparison_lake_lines(comparison) -> list[str]:
     from planner.limnology import trophic_brief
 
     scenario, diagram = comparison.scenario, comparison.diagram
-    conversion = _lake_conversion(scenario)
-    if conversion is None:
+    opening = _lake_opening(scenario, scenario.current_control)
+    if opening is None:
         return []
+    conversion, lines = opening
     k = scenario.target_index
-    lines = _lake_header(conversion)
-    lines.append(f"  Load now: {_load_text(conversion, scenario.current_control)}")
     now = _trophic_line(conversion, "Now", float(scenario.initial_state[k]))
     for line in (
         now,
