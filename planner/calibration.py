@@ -149,6 +149,12 @@ class Observations:
         return dict(self.columns)[variable]
 
 
+MAX_FIT_ROWS = 5000
+"""Most record rows a fit takes (about 400 years of monthly means): the bootstrap integrates to
+every row's time in every refit, so a daily record of decades would take minutes; refused
+before any work with the advice to aggregate."""
+
+
 def observations_for(
     record: Record,
     scenario: Scenario,
@@ -166,6 +172,12 @@ def observations_for(
     """
     source = record.source
     variables = scenario.spec.variables
+    if len(record.times) > MAX_FIT_ROWS:
+        reason = (
+            f"{len(record.times)} rows; a fit takes at most {MAX_FIT_ROWS} (each row is an "
+            "output of every refit): aggregate the record to monthly or annual means first"
+        )
+        raise InputError([Problem(source, "(rows)", reason)])
     if record.time_unit.strip().lower() not in YEAR_UNITS:
         raise InputError(
             [

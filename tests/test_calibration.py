@@ -819,3 +819,20 @@ def test_cli_fit_out_says_where_the_priors_came_from(tmp_path):
     uncertainty = load_scenario(out).uncertainty
     assert uncertainty.joint is None
     assert [p.parameter for p in uncertainty.priors] == ["m"]
+
+
+def test_a_record_too_long_for_a_fit_is_refused_before_any_work(tmp_path):
+    """A daily record of decades (here MAX_FIT_ROWS + 1 rows) is refused at once with the advice
+    to aggregate (common practice, no source: bound the work before starting it)."""
+    from planner.calibration import MAX_FIT_ROWS
+    from planner.errors import InputError
+    from planner.monitoring import read_record
+
+    times = 1975.0 + np.arange(MAX_FIT_ROWS + 1) / 365.0
+    lines = ["year [yr],L [g P / m2 / yr],P [g P / m2]"]
+    lines += [f"{t:.5f},2.6,7.0" for t in times]
+    path = tmp_path / "daily.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    with pytest.raises(InputError) as error:
+        observations_for(read_record(path), _alder())
+    assert "(rows)" in str(error.value) and "aggregate" in str(error.value)
