@@ -911,3 +911,19 @@ def test_a_deeply_nested_file_in_the_folder_does_not_stop_the_app(folders, tmp_p
     labels = {o["value"]: o["label"] for o in files.picker_options([files.Folder("S", scenarios)])}
     assert labels["0/deep.toml"] == "deep.toml"
     assert "Alder Mere" in labels["0/marked.toml"]
+
+
+def test_a_job_past_the_apps_time_limit_stops_and_says_so(monkeypatch):
+    """Every long job reports progress through compute.throttled; past JOB_SECONDS the next
+    report stops it, and the view shows the limit instead of holding a worker (common
+    practice, no source: a wall-clock budget per user job)."""
+    from webapp.views import sweep as sweep_view
+
+    monkeypatch.setattr(compute, "JOB_SECONDS", -1.0)
+    working = run_recompute(draft_of())["working"]
+    figure, summary, message = sweep_view.run_sweep(lambda *_: None, 1, working, "")
+    assert "time: stopped after" in message and "limit for one job" in message
+    with pytest.raises(InputError):
+        compute.throttled(lambda *_: None, budget=-1.0)(0.5, "x")
+    quick = compute.throttled(lambda *_: None, budget=60.0)
+    quick(0.5, "x")  # well within the budget: nothing raised

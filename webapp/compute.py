@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 
 from planner.equilibria import Diagram, Standing, diagram_for, locate
+from planner.errors import InputError, Problem
 from planner.outcomes import Comparison, ScheduleOutcome, compare
 from planner.progress import Progress, scaled, silent
 from planner.scenario import Scenario, scenario_from_data
@@ -246,12 +247,30 @@ def comparison_of(
     return Comparison(scenario, diagram, outcomes)
 
 
-def throttled(report: Callable[[float, str], None], interval: float = 0.25) -> Progress:
-    """A planner progress callback that forwards at most every ``interval`` seconds."""
+JOB_SECONDS = 600.0
+"""Wall-clock budget of one long job in the app (a sweep, frontier, search, ensemble, fit or
+background comparison): a job past it stops at its next progress report and says so, so that
+no request holds a worker indefinitely."""
+
+
+def throttled(
+    report: Callable[[float, str], None], interval: float = 0.25, budget: float | None = None
+) -> Progress:
+    """A planner progress callback that forwards at most every ``interval`` seconds and stops
+    the job (InputError naming the time limit) once it has run ``budget`` seconds (default
+    JOB_SECONDS)."""
     last = [0.0]
+    start = time.monotonic()
+    limit = JOB_SECONDS if budget is None else budget
 
     def progress(fraction: float, message: str) -> None:
         now = time.monotonic()
+        if now - start > limit:
+            reason = (
+                f"stopped after {limit:.0f} s, the app's limit for one job: ask for less "
+                "(fewer members, a coarser step, fewer depths) or run it from the command line"
+            )
+            raise InputError([Problem("app", "time", reason)])
         if fraction >= 1.0 or now - last[0] >= interval:
             last[0] = now
             report(fraction, message)

@@ -420,7 +420,11 @@ def compare_in_background(set_progress, pending):
         return no_update, no_update
     scenario = compute.scenario_of(pending["data"])
     report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
-    comparison = compute.comparison_of(scenario, progress=report, persist=True)
+    try:
+        comparison = compute.comparison_of(scenario, progress=report, persist=True)
+    except InputError as error:
+        text = "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
+        return no_update, html.Span(text, className="status problem")
     text = f"{len(comparison.outcomes)} schedules compared in the background."
     return {"key": pending["key"], "finished": time.time()}, html.Span(text, className="status ok")
 

@@ -85,7 +85,10 @@ def run_sweep(set_progress, _clicks, working, step_text):
     from planner.sweep import sweep_for
 
     report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
-    sweep = sweep_for(scenario, step=step, progress=report)
+    try:
+        sweep = sweep_for(scenario, step=step, progress=report)
+    except InputError as error:
+        return no_update, no_update, "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
     diagram, _ = compute.diagram_of(scenario)
     figure = sweep_figure(scenario, sweep, diagram)
     figure.update_layout(height=560)
