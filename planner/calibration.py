@@ -57,7 +57,7 @@ import contextlib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cache
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import sympy
@@ -75,6 +75,10 @@ from planner.progress import Progress, scaled, silent
 from planner.report import CAUTION, NOT_REACHABLE
 from planner.scenario import Scenario, scenario_from_data
 from planner.schedules import ControlPath
+
+if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
+    import pandas as pd
+    import plotly.graph_objects as go
 
 CONFIDENCE = 0.95
 DEFAULT_BOOTSTRAP = 200
@@ -111,6 +115,8 @@ HELD_BY_DEFAULT: dict[str, tuple[str, ...]] = {
     # only where the lake crosses the steep part of the recycling curve): held unless asked for.
     "recycling": ("q",),
     "recycling-sediment": ("q",),
+    # Only the product of release rate and anoxic factor shows in the data: the factor is held.
+    "internal-load": ("q", "AF"),
 }
 
 
@@ -587,6 +593,24 @@ class Fit:
             if estimate.name == name:
                 return estimate
         raise KeyError(name)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per fitted quantity with its interval (:func:`planner.api.fit_frame`)."""
+        from planner.api import fit_frame
+
+        return fit_frame(self)
+
+    def figure(self) -> go.Figure:
+        """The record against time with the fitted trajectory."""
+        from planner.api import fit_figure
+
+        return fit_figure(self)
+
+    def _repr_html_(self) -> str:
+        """The frame and the caution, as a notebook shows this result."""
+        from planner.api import notebook_html
+
+        return notebook_html(self.to_frame(), f"Fit: {self.scenario.name}")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -172,6 +172,8 @@ def test_create_app_serves_a_page_with_the_caution(folders, tmp_path):
     assert [o["value"] for o in options] == [
         "0/alder-mere.toml",
         "0/brellow-reservoir.toml",
+        "0/example-internal-load.toml",
+        "0/example-retention.toml",
         "0/tarnby-water.toml",
     ]
     assert "Alder Mere" in options[0]["label"]

@@ -7,14 +7,17 @@ from collections.abc import Mapping
 from types import MappingProxyType
 from typing import TYPE_CHECKING
 
-from planner.models import recycling, recycling_sediment
+from planner.models import internal_load, recycling, recycling_sediment, retention
 from planner.models.info import ModelInfo
 
 if TYPE_CHECKING:
     import sympy
 
 _MODULES = MappingProxyType(
-    {module.INFO.kind: module for module in (recycling, recycling_sediment)}
+    {
+        module.INFO.kind: module
+        for module in (recycling, recycling_sediment, retention, internal_load)
+    }
 )
 
 BUILTIN_INFO: Mapping[str, ModelInfo] = MappingProxyType(

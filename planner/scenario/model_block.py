@@ -39,7 +39,7 @@ def _parameter_problems(spec: ModelInfo, parameters: Mapping[str, float]) -> lis
 class BuiltinModel(Strict):
     """A model from the library, chosen by ``kind``; every parameter needs a value."""
 
-    kind: Literal["recycling", "recycling-sediment"]
+    kind: Literal["recycling", "recycling-sediment", "retention", "internal-load"]
     parameters: FrozenDict[str, float]
 
     @model_validator(mode="after")
