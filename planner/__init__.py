@@ -1,3 +1,77 @@
-"""Planner for reversing a lake regime shift: equilibria, schedules, costs and briefings."""
+"""Planner for reversing a lake regime shift: equilibria, schedules, costs and briefings.
+
+The Python API (the same functions the ``planner`` command runs; see :mod:`planner.api`):
+
+- ``load(source)``: a scenario from a path, TOML text (a string with a line break) or a dict
+- ``load_record(source)``: a monitoring record from a path or CSV text
+- ``diagram(scenario)``: equilibria, folds, thresholds and where the lake stands
+- ``compare(scenario)``: every schedule run, judged and costed
+- ``hysteresis_sweep(scenario, step=None)``: the control dialled slowly up and down
+- ``overshoot_frontier(scenario, depths=None, ...)``: the least hold below the recovery
+  threshold for each depth
+- ``cheapest_schedule(scenario, by_year=None, ...)``: the cheapest recovering schedule and the
+  cost / time Pareto front
+- ``chance_of_recovery(scenario, members=None, seed=None, ...)``: the chance of recovery under
+  uncertainty
+- ``fit(record, scenario, bootstrap=None, ...)``: the model fitted to a monitoring record
+- ``early_warnings(record, column=None, ...)``: early-warning indicators of one series
+
+A scenario argument is a Scenario or anything ``load`` accepts. Each result has ``to_frame()``
+(a pandas DataFrame with real dtypes), ``figure()`` (plotly) and a notebook view.
+
+``import planner`` stays light: the API and the numerical and plotting stack are imported when
+a name is first used.
+
+The sweep, frontier, search, ensemble and signals functions carry names of their own
+(``hysteresis_sweep``, ``overshoot_frontier``, ``cheapest_schedule``, ``chance_of_recovery``,
+``early_warnings``): ``planner.sweep`` and the like are the modules that hold the work.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
 
 __version__ = "0.1.0"
+
+_API = (
+    "compare",
+    "diagram",
+    "chance_of_recovery",
+    "fit",
+    "overshoot_frontier",
+    "load",
+    "load_record",
+    "cheapest_schedule",
+    "early_warnings",
+    "hysteresis_sweep",
+)
+
+__all__ = ["__version__", *_API]
+
+if TYPE_CHECKING:
+    from planner.api import (  # noqa: F401
+        chance_of_recovery,
+        cheapest_schedule,
+        compare,
+        diagram,
+        early_warnings,
+        fit,
+        hysteresis_sweep,
+        load,
+        load_record,
+        overshoot_frontier,
+    )
+
+
+def __getattr__(name: str) -> Any:
+    """The API's functions, imported from :mod:`planner.api` on first use."""
+    if name in _API:
+        value = getattr(importlib.import_module("planner.api"), name)
+        globals()[name] = value  # later look-ups find it directly
+        return value
+    raise AttributeError(f"module 'planner' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted({*globals(), *_API})

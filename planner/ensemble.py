@@ -52,7 +52,7 @@ import zlib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from statistics import NormalDist
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy.special import ndtri
@@ -74,6 +74,10 @@ from planner.scenario.uncertainty import (
     UniformPrior,
 )
 from planner.verdict import DIVERGED, RECOVERED, UNSETTLED, VERDICTS, Attractors, attractors, decide
+
+if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
+    import pandas as pd
+    import plotly.graph_objects as go
 
 # Tuning constants.
 NOISY_STEPS_PER_YEAR = 100  # Euler-Maruyama steps a year with process noise
@@ -486,6 +490,24 @@ class Ensemble:
     scheme: str
     chunk_size: int
     scheduler: str
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per schedule with real dtypes (:func:`planner.api.ensemble_frame`)."""
+        from planner.api import ensemble_frame
+
+        return ensemble_frame(self)
+
+    def figure(self) -> go.Figure:
+        """The chance of meeting the target by each year, per schedule."""
+        from planner.api import ensemble_figure
+
+        return ensemble_figure(self)
+
+    def _repr_html_(self) -> str:
+        """The frame and the caution, as a notebook shows this result."""
+        from planner.api import notebook_html
+
+        return notebook_html(self.to_frame(), f"Ensemble: {self.scenario.name}")
 
 
 def _summarise(

@@ -30,7 +30,7 @@ surrogate series instead).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy.signal import fftconvolve
@@ -39,6 +39,10 @@ from scipy.stats import kendalltau
 from planner.errors import InputError, Problem
 from planner.monitoring import Record
 from planner.report import CAUTION
+
+if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
+    import pandas as pd
+    import plotly.graph_objects as go
 
 DEFAULT_WINDOW = 0.5  # share of the series in each rolling window (Dakos et al. 2012)
 DEFAULT_BANDWIDTH_SHARE = 0.1  # kernel bandwidth as a share of the record length (common
@@ -93,6 +97,24 @@ class Signals:
             if item.name == name:
                 return item
         raise KeyError(name)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per time with the indicators (:func:`planner.api.signals_frame`)."""
+        from planner.api import signals_frame
+
+        return signals_frame(self)
+
+    def figure(self) -> go.Figure:
+        """The series with its trend and each rolling indicator."""
+        from planner.api import signals_figure
+
+        return signals_figure(self)
+
+    def _repr_html_(self) -> str:
+        """The frame and the caution, as a notebook shows this result."""
+        from planner.api import notebook_html
+
+        return notebook_html(self.to_frame(), f"Early-warning indicators: {self.variable}")
 
 
 def kernel_trend(times: np.ndarray, values: np.ndarray, bandwidth: float) -> np.ndarray:
