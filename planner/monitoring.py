@@ -354,5 +354,3 @@ def _value_cell(source: str, row: int, column: str, cell: str, problems: list) -
         )
         return float("nan")
     return value
-
-
