@@ -75,10 +75,10 @@ from planner.progress import Progress, scaled, silent
 from planner.report import CAUTION, NOT_REACHABLE
 from planner.scenario import Scenario, scenario_from_data
 from planner.schedules import ControlPath
+from planner.views import ResultViews
 
 if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
-    import pandas as pd
-    import plotly.graph_objects as go
+    pass
 
 CONFIDENCE = 0.95
 DEFAULT_BOOTSTRAP = 200
@@ -546,7 +546,7 @@ class BootstrapSummary:
 
 
 @dataclass(frozen=True, eq=False)
-class Fit:
+class Fit(ResultViews):
     """A model fitted to a record. Times in ``trajectory`` are years since ``observations.start``.
 
     ``residuals`` are on the fitting scale (log, or divided by each variable's scale ``weights``);
@@ -594,23 +594,10 @@ class Fit:
                 return estimate
         raise KeyError(name)
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per fitted quantity with its interval (:func:`planner.api.fit_frame`)."""
-        from planner.api import fit_frame
+    _views = ("fit_frame", "fit_figure")
 
-        return fit_frame(self)
-
-    def figure(self) -> go.Figure:
-        """The record against time with the fitted trajectory."""
-        from planner.api import fit_figure
-
-        return fit_figure(self)
-
-    def _repr_html_(self) -> str:
-        """The frame and the caution, as a notebook shows this result."""
-        from planner.api import notebook_html
-
-        return notebook_html(self.to_frame(), f"Fit: {self.scenario.name}")
+    def _view_title(self) -> str:
+        return f"Fit: {self.scenario.name}"
 
 
 # ---------------------------------------------------------------------------------------------

@@ -74,10 +74,10 @@ from planner.scenario.uncertainty import (
     UniformPrior,
 )
 from planner.verdict import DIVERGED, RECOVERED, UNSETTLED, VERDICTS, Attractors, attractors, decide
+from planner.views import ResultViews
 
 if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
-    import pandas as pd
-    import plotly.graph_objects as go
+    pass
 
 # Tuning constants.
 NOISY_STEPS_PER_YEAR = 100  # Euler-Maruyama steps a year with process noise
@@ -479,7 +479,7 @@ class ScheduleEnsemble:
 
 
 @dataclass(frozen=True, eq=False)
-class Ensemble:
+class Ensemble(ResultViews):
     """The result of :func:`run_ensemble`: one :class:`ScheduleEnsemble` per schedule."""
 
     scenario: Scenario
@@ -491,23 +491,10 @@ class Ensemble:
     chunk_size: int
     scheduler: str
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per schedule with real dtypes (:func:`planner.api.ensemble_frame`)."""
-        from planner.api import ensemble_frame
+    _views = ("ensemble_frame", "ensemble_figure")
 
-        return ensemble_frame(self)
-
-    def figure(self) -> go.Figure:
-        """The chance of meeting the target by each year, per schedule."""
-        from planner.api import ensemble_figure
-
-        return ensemble_figure(self)
-
-    def _repr_html_(self) -> str:
-        """The frame and the caution, as a notebook shows this result."""
-        from planner.api import notebook_html
-
-        return notebook_html(self.to_frame(), f"Ensemble: {self.scenario.name}")
+    def _view_title(self) -> str:
+        return f"Ensemble: {self.scenario.name}"
 
 
 def _summarise(

@@ -48,10 +48,10 @@ from planner.progress import Progress, scaled, silent
 from planner.scenario import OvershootSchedule, Scenario, Schedule, StaircaseSchedule
 from planner.schedules import REL_TOL, ControlPath, control_path
 from planner.verdict import Verdict, attractors, decide
+from planner.views import ResultViews
 
 if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
-    import pandas as pd
-    import plotly.graph_objects as go
+    pass
 
 HOLD_TOLERANCE = 0.01  # years: the least hold is bracketed this tightly (found value: upper end)
 DEPTH_TOLERANCE = 1e-4  # converse: depth bracket width, as a fraction of the control range width
@@ -480,7 +480,7 @@ class OwnSchedule:
 
 
 @dataclass(frozen=True)
-class Frontier:
+class Frontier(ResultViews):
     """The recovery frontier of one family of a scenario (depths in the control's unit, holds
     in years), its converse, and the scenario's own overshoot schedules for reference."""
 
@@ -503,23 +503,10 @@ class Frontier:
         """The deepest achievable cut below the recovery threshold."""
         return self.recovery_threshold - self.lowest_achievable
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per depth with real dtypes (:func:`planner.api.frontier_frame`)."""
-        from planner.api import frontier_frame
+    _views = ("frontier_frame", "frontier_figure")
 
-        return frontier_frame(self)
-
-    def figure(self) -> go.Figure:
-        """Least hold against depth below the recovery threshold."""
-        from planner.api import frontier_figure
-
-        return frontier_figure(self)
-
-    def _repr_html_(self) -> str:
-        """The frame and the caution, as a notebook shows this result."""
-        from planner.api import notebook_html
-
-        return notebook_html(self.to_frame(), f"Recovery frontier: {self.scenario_name}")
+    def _view_title(self) -> str:
+        return f"Recovery frontier: {self.scenario_name}"
 
 
 def recovery_threshold_of(scenario: Scenario, diagram: Diagram, source: str) -> float:

@@ -28,10 +28,10 @@ from planner.progress import Progress, scaled, silent
 from planner.scenario import Scenario, Schedule
 from planner.schedules import Infeasibility
 from planner.verdict import Verdict, attractors, decide
+from planner.views import ResultViews
 
 if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
-    import pandas as pd
-    import plotly.graph_objects as go
+    pass
 
 
 @dataclass(frozen=True)
@@ -65,28 +65,15 @@ class ScheduleOutcome:
 
 
 @dataclass(frozen=True)
-class Comparison:
+class Comparison(ResultViews):
     scenario: Scenario
     diagram: Diagram
     outcomes: list[ScheduleOutcome]
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per schedule with real dtypes (:func:`planner.api.comparison_frame`)."""
-        from planner.api import comparison_frame
+    _views = ("comparison_frame", "comparison_figure")
 
-        return comparison_frame(self)
-
-    def figure(self, view: str = "diagram") -> go.Figure:
-        """The schedules on the equilibrium curve (``view="diagram"``) or over time (``"time"``)."""
-        from planner.api import comparison_figure
-
-        return comparison_figure(self, view)
-
-    def _repr_html_(self) -> str:
-        """The frame and the caution, as a notebook shows this result."""
-        from planner.api import notebook_html
-
-        return notebook_html(self.to_frame(), self.scenario.name)
+    def _view_title(self) -> str:
+        return self.scenario.name
 
 
 def evaluate(

@@ -39,10 +39,10 @@ from scipy.stats import kendalltau
 from planner.errors import InputError, Problem
 from planner.monitoring import Record
 from planner.report import CAUTION
+from planner.views import ResultViews
 
 if TYPE_CHECKING:  # views for notebooks; pandas and plotly are imported when they are asked for
-    import pandas as pd
-    import plotly.graph_objects as go
+    pass
 
 DEFAULT_WINDOW = 0.5  # share of the series in each rolling window (Dakos et al. 2012)
 DEFAULT_BANDWIDTH_SHARE = 0.1  # kernel bandwidth as a share of the record length (common
@@ -73,7 +73,7 @@ class Indicator:
 
 
 @dataclass(frozen=True, eq=False)
-class Signals:
+class Signals(ResultViews):
     """Indicators of one series. ``times`` is the regular grid (time unit of the record),
     ``series`` the values with gaps filled, ``filled`` which of them were interpolated,
     ``trend`` the kernel-smoothed trend and ``residuals`` the series minus the trend."""
@@ -98,23 +98,10 @@ class Signals:
                 return item
         raise KeyError(name)
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per time with the indicators (:func:`planner.api.signals_frame`)."""
-        from planner.api import signals_frame
+    _views = ("signals_frame", "signals_figure")
 
-        return signals_frame(self)
-
-    def figure(self) -> go.Figure:
-        """The series with its trend and each rolling indicator."""
-        from planner.api import signals_figure
-
-        return signals_figure(self)
-
-    def _repr_html_(self) -> str:
-        """The frame and the caution, as a notebook shows this result."""
-        from planner.api import notebook_html
-
-        return notebook_html(self.to_frame(), f"Early-warning indicators: {self.variable}")
+    def _view_title(self) -> str:
+        return f"Early-warning indicators: {self.variable}"
 
 
 def kernel_trend(times: np.ndarray, values: np.ndarray, bandwidth: float) -> np.ndarray:
