@@ -19,59 +19,17 @@ The Python API (the same functions the ``planner`` command runs; see :mod:`plann
 A scenario argument is a Scenario or anything ``load`` accepts. Each result has ``to_frame()``
 (a pandas DataFrame with real dtypes), ``figure()`` (plotly) and a notebook view.
 
-``import planner`` stays light: the API and the numerical and plotting stack are imported when
-a name is first used.
+``import planner`` stays light: the API module imports the numerical and plotting stack only
+when one of its functions runs.
 
 The sweep, frontier, search, ensemble and signals functions carry names of their own
 (``hysteresis_sweep``, ``overshoot_frontier``, ``cheapest_schedule``, ``chance_of_recovery``,
 ``early_warnings``): ``planner.sweep`` and the like are the modules that hold the work.
 """
 
-from __future__ import annotations
-
-import importlib
-from typing import TYPE_CHECKING, Any
+from planner import api as _api
+from planner.api import *  # noqa: F403 - the API, named once in planner.api
 
 __version__ = "0.1.0"
 
-_API = (
-    "compare",
-    "diagram",
-    "chance_of_recovery",
-    "fit",
-    "overshoot_frontier",
-    "load",
-    "load_record",
-    "cheapest_schedule",
-    "early_warnings",
-    "hysteresis_sweep",
-)
-
-__all__ = ["__version__", *_API]
-
-if TYPE_CHECKING:
-    from planner.api import (  # noqa: F401
-        chance_of_recovery,
-        cheapest_schedule,
-        compare,
-        diagram,
-        early_warnings,
-        fit,
-        hysteresis_sweep,
-        load,
-        load_record,
-        overshoot_frontier,
-    )
-
-
-def __getattr__(name: str) -> Any:
-    """The API's functions, imported from :mod:`planner.api` on first use."""
-    if name in _API:
-        value = getattr(importlib.import_module("planner.api"), name)
-        globals()[name] = value  # later look-ups find it directly
-        return value
-    raise AttributeError(f"module 'planner' has no attribute {name!r}")
-
-
-def __dir__() -> list[str]:
-    return sorted({*globals(), *_API})
+__all__ = ["__version__", *_api.FUNCTIONS]

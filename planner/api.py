@@ -52,21 +52,21 @@ if TYPE_CHECKING:
     """A monitoring record, a path to its CSV file or CSV text (a string with a line break)."""
     ProgressOption = bool | Callable[[float, str], None]
 
-__all__ = [
-    "ScenarioDiagram",
-    "ScenarioSearch",
-    "ScenarioSweep",
-    "compare",
-    "diagram",
-    "chance_of_recovery",
-    "fit",
-    "overshoot_frontier",
+FUNCTIONS = (
     "load",
     "load_record",
-    "cheapest_schedule",
-    "early_warnings",
+    "diagram",
+    "compare",
     "hysteresis_sweep",
-]
+    "overshoot_frontier",
+    "cheapest_schedule",
+    "chance_of_recovery",
+    "fit",
+    "early_warnings",
+)
+"""The entry points, re-exported by ``planner``."""
+
+__all__ = ["ScenarioDiagram", "ScenarioSearch", "ScenarioSweep", *FUNCTIONS]
 
 
 # ---------------------------------------------------------------------------------------------
