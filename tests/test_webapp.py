@@ -320,7 +320,7 @@ def test_a_value_that_is_not_a_number_is_named_beside_its_field():
         )
     )
     floor_message = messages[json.dumps(ids.field_message(DEEP_CUT, "floor"), sort_keys=True)]
-    assert floor_message.startswith("schedules.1.floor: ")
+    assert floor_message.startswith("Floor: ")  # the card's label, not the file's path
     assert sum(bool(m) for m in out["field_messages"]) == 1
     assert out["working"]["stale"] and out["working"]["data"] == good["data"]  # last valid kept
     assert "1 value to fix" in text_of(out["status"])
@@ -332,13 +332,13 @@ def test_a_cross_field_rule_lands_on_its_field():
     draft = draft_of()
     out = run_recompute(draft, {(DEEP_CUT, "relax_to"): "0.3"}, working=None)
     joined = " | ".join(out["field_messages"])
-    assert "schedules.1.relax_to: must be at least the floor 0.6" in joined
+    assert "Relax to: must be at least the floor 0.6" in joined
 
 
 def test_action_fields_are_editable_and_checked():
     draft = draft_of()
     bad = run_recompute(draft, action_edits={(3, 0, "parameter"): "L"})
-    assert any("schedules.3.actions.0.parameter" in m for m in bad["action_messages"])
+    assert any(m.startswith("Parameter: ") for m in bad["action_messages"])
     good = run_recompute(draft, action_edits={(3, 0, "cost"): "900000"})
     assert good["working"]["data"]["schedules"][3]["actions"][0]["cost"] == 900000.0
 
@@ -350,7 +350,7 @@ def test_points_and_levels_are_typed_as_lists():
     assert schedules[0]["points"] == [[0.0, 2.6], [4.0, 1.0]]
     assert schedules[2]["levels"] == [2.0, 1.0, 0.5]
     broken = run_recompute(draft, {(0, "points"): "0, 2.6; 4"})
-    assert any(m.startswith("schedules.0.points.1") for m in broken["field_messages"])
+    assert any(m.startswith("Points, item 2") for m in broken["field_messages"])
 
 
 def test_add_duplicate_and_delete_keep_what_was_typed():
@@ -929,3 +929,23 @@ def test_a_job_past_the_apps_time_limit_stops_and_says_so(monkeypatch):
         compute.throttled(lambda *_: None, budget=-1.0)(0.5, "x")
     quick = compute.throttled(lambda *_: None, budget=60.0)
     quick(0.5, "x")  # well within the budget: nothing raised
+
+
+def test_messages_name_cards_from_one_and_fields_by_their_labels():
+    """Beside a field: its label as the card shows it; in the status line: "Schedule N"
+    counted from 1 as the cards are numbered, never the file's path counted from 0."""
+    from planner.errors import Problem
+
+    data = draft_of()["data"]
+    beside = drafts.message_text(
+        Problem("<editor>", "schedules.1.hold_years", "must be at least 0"),
+        drafts.place(Problem("<editor>", "schedules.1.hold_years", "x"), data),
+        data,
+    )
+    assert beside == "Years at the floor: must be at least 0"
+    whole = drafts.message_text(
+        Problem("<editor>", "schedules.1.name", "is taken"),
+        drafts.Placement("scenario"),
+        data,
+    )
+    assert whole == "Schedule 2 name: is taken"

@@ -186,8 +186,29 @@ def place(problem: Problem, data: dict) -> Placement:
     return Placement("schedule", index)
 
 
-def message_text(problem: Problem) -> str:
-    """An inline message: the field's dotted path, then the reason."""
+def message_text(problem: Problem, where: Placement, data: dict) -> str:
+    """A message in the editor's words: the field's label as the card shows it (and which item
+    of a list, counted from 1), or "Schedule N" counted from 1 as the cards are; never the
+    file's internal path (schedules.1.floor) where the message sits beside its field."""
+    parts = problem.field.split(".")
+    if where.kind in ("field", "action") and where.index is not None:
+        schedule = data["schedules"][where.index]
+        if where.kind == "field":
+            labels = {key: label for key, label, _ in schedule_fields(schedule.get("kind"))}
+            rest = parts[3:]
+        else:
+            action = schedule.get("actions", [])[where.action]
+            labels = {key: label for key, label, _ in ACTION_FIELDS.get(action.get("kind"), ())}
+            rest = parts[5:]
+        label = labels.get(where.field, where.field).split(":")[0]  # without the typing hint
+        positions = [int(p) + 1 for p in rest if p.isdigit()]
+        items = [f"{word} {n}" for word, n in zip(("item", "number"), positions, strict=False)]
+        return f"{', '.join([label, *items])}: {problem.reason}"
+    if len(parts) >= 2 and parts[0] == "schedules" and parts[1].isdigit():
+        words = [f"Schedule {int(parts[1]) + 1}"]
+        for part in parts[2:]:
+            words.append(f"{int(part) + 1}" if part.isdigit() else part.replace("_", " "))
+        return f"{' '.join(words)}: {problem.reason}"
     return f"{problem.field}: {problem.reason}"
 
 

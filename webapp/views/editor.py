@@ -323,7 +323,7 @@ def _problems(
     general: list[str] = []
     for problem in error.problems:
         where = drafts.place(problem, data)
-        text = drafts.message_text(problem)
+        text = drafts.message_text(problem, where, data)
         if where.kind == "field":
             fields.setdefault((where.index, where.field), []).append(text)
         elif where.kind == "action":
