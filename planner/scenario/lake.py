@@ -98,10 +98,12 @@ class Lake(Strict):
     area: AreaText = Field(description="Surface area with its unit, e.g. '2.4 km2' or '240 ha'.")
     mean_depth: LengthText = Field(description="Mean depth (volume / area), e.g. '3.1 m'.")
     residence_time: TimeText | None = Field(
-        default=None, description="Water residence time (volume / outflow), e.g. '0.8 yr'."
+        default=None,
+        description="Water residence time (volume / outflow), e.g. '0.8 yr' (default: none).",
     )
     outflow: FlowText | None = Field(
-        default=None, description="Mean outflow, e.g. '0.3 m3/s' (instead of residence_time)."
+        default=None,
+        description="Mean outflow, e.g. '0.3 m3/s', instead of residence_time (default: none).",
     )
 
     @model_validator(mode="after")

@@ -39,8 +39,13 @@ def _parameter_problems(spec: ModelInfo, parameters: Mapping[str, float]) -> lis
 class BuiltinModel(Strict):
     """A model from the library, chosen by ``kind``; every parameter needs a value."""
 
-    kind: Literal["recycling", "recycling-sediment", "retention", "internal-load"]
-    parameters: FrozenDict[str, float]
+    kind: Literal["recycling", "recycling-sediment", "retention", "internal-load"] = Field(
+        description="Which built-in lake model: P recycling, with sediment, retention, or "
+        "internal load."
+    )
+    parameters: FrozenDict[str, float] = Field(
+        description="Value of every parameter of the model, in the model's units (e.g. per year)."
+    )
 
     @model_validator(mode="after")
     def _check_parameters(self) -> BuiltinModel:
@@ -63,9 +68,17 @@ class BuiltinModel(Strict):
 class FormulaModel(Strict):
     """The user's own equations: ``d(variable)/dt = expression`` for each key of ``equations``."""
 
-    kind: Literal["formula"]
-    equations: FrozenDict[str, str] = Field(min_length=1, max_length=MAX_FORMULA_VARIABLES)
-    parameters: FrozenDict[str, float] = Field(min_length=1, max_length=MAX_FORMULA_PARAMETERS)
+    kind: Literal["formula"] = Field(description='"formula": your own equations.')
+    equations: FrozenDict[str, str] = Field(
+        min_length=1,
+        max_length=MAX_FORMULA_VARIABLES,
+        description="For each state variable, its rate of change per year as a formula.",
+    )
+    parameters: FrozenDict[str, float] = Field(
+        min_length=1,
+        max_length=MAX_FORMULA_PARAMETERS,
+        description="Value of every parameter the formulas use, in your units.",
+    )
 
     @model_validator(mode="after")
     def _check_formulas(self) -> FormulaModel:

@@ -61,22 +61,48 @@ class Scenario(Strict):
     """A lake, its model, the control the manager moves, the candidate schedules and the costs;
     optionally the lake's morphometry (``lake``), to read results in the trade's units."""
 
-    name: Name
-    description: str = ""
-    model: ModelBlock
-    control: Control
-    state: FrozenDict[str, float] = Field(min_length=1)
-    target: Target
-    simulation: Simulation = Simulation()
-    schedules: FrozenList[Schedule] = Field(default=(), max_length=MAX_SCHEDULES)
-    costs: Costs | None = None
-    uncertainty: Uncertainty | None = None
+    name: Name = Field(description="Name of the scenario, shown on reports.")
+    description: str = Field(
+        default="", description="Free text on the lake and the question asked (default: none)."
+    )
+    model: ModelBlock = Field(
+        description="The lake model: a built-in kind with its parameters, or your own formulas."
+    )
+    control: Control = Field(
+        description="The parameter the manager moves (e.g. the external P load) and its limits."
+    )
+    state: FrozenDict[str, float] = Field(
+        min_length=1,
+        description="Current value of every model variable, in its unit (e.g. g P / m2).",
+    )
+    target: Target = Field(description="The desired regime and water-quality threshold.")
+    simulation: Simulation = Field(
+        default=Simulation(),
+        description="Time settings in years (default: 50-year horizon, see its fields).",
+    )
+    schedules: FrozenList[Schedule] = Field(
+        default=(),
+        max_length=MAX_SCHEDULES,
+        description="Candidate control schedules to compare (default: none).",
+    )
+    costs: Costs | None = Field(
+        default=None, description="Abatement costs, discounting and damages (default: none)."
+    )
+    uncertainty: Uncertainty | None = Field(
+        default=None,
+        description="Uncertain parameters, load swings and ensemble size (default: none).",
+    )
     state_units: FrozenDict[str, Label] = Field(
         default={},
         validate_default=True,
-        description="Unit of each state variable, for axes and tables.",
+        description='Unit of each state variable, e.g. "g P / m2", for axes and tables '
+        "(default: none).",
     )
-    lake: Lake | None = None
+    lake: Lake | None = Field(
+        default=None,
+        description="Lake area, depth and residence time, to report lake TP in ug/L and loads "
+        "in kg/yr (default: none).",
+    )
 
     @model_validator(mode="after")
     def _check_links(self) -> Scenario:

@@ -27,12 +27,18 @@ MAX_LEVELS = 200
 class ScaleState(Strict):
     """At ``time`` multiply a state variable by ``factor`` (P inactivation, dredging)."""
 
-    kind: Literal["scale-state"]
-    name: Label = ""
-    time: Years
-    variable: str
-    factor: NonNegative
-    cost: NonNegative = 0.0
+    kind: Literal["scale-state"] = Field(
+        description='"scale-state": multiply a state variable once, e.g. P inactivation.'
+    )
+    name: Label = Field(default="", description="Label of the action on reports (default: none).")
+    time: Years = Field(description="When the action happens, in years from the start.")
+    variable: str = Field(description="State variable multiplied, e.g. the sediment P.")
+    factor: NonNegative = Field(
+        description="Multiplier applied to the variable: 0.4 removes 60% of it."
+    )
+    cost: NonNegative = Field(
+        default=0.0, description="One-off cost of the action, in the currency (default: 0)."
+    )
 
 
 class ParameterPulse(Strict):
@@ -42,29 +48,45 @@ class ParameterPulse(Strict):
     e-folding time; otherwise it ends at once.
     """
 
-    kind: Literal["parameter-pulse"]
-    name: Label = ""
-    parameter: str
-    factor: NonNegative
-    start: Years
-    duration: PositiveYears
-    decay_years: Years = 0.0
-    cost: NonNegative = 0.0
+    kind: Literal["parameter-pulse"] = Field(
+        description='"parameter-pulse": multiply a model parameter for a while.'
+    )
+    name: Label = Field(default="", description="Label of the action on reports (default: none).")
+    parameter: str = Field(description="Model parameter multiplied (not the control).")
+    factor: NonNegative = Field(description="Multiplier applied to the parameter during the pulse.")
+    start: Years = Field(description="When the pulse begins, in years from the start.")
+    duration: PositiveYears = Field(description="How long the full multiplier lasts, in years.")
+    decay_years: Years = Field(
+        default=0.0,
+        description="E-folding time, in years, of the return to normal after the pulse "
+        "(default: 0, it ends at once).",
+    )
+    cost: NonNegative = Field(
+        default=0.0, description="One-off cost of the action, in the currency (default: 0)."
+    )
 
 
 Action = Annotated[ScaleState | ParameterPulse, Field(discriminator="kind")]
 
 
 class _Schedule(Strict):
-    name: Name
-    actions: FrozenList[Action] = Field(default=(), max_length=MAX_ACTIONS)
+    name: Name = Field(description="Name of the schedule, unique within the scenario.")
+    actions: FrozenList[Action] = Field(
+        default=(),
+        max_length=MAX_ACTIONS,
+        description="In-lake actions taken alongside, e.g. P inactivation (default: none).",
+    )
 
 
 class PathSchedule(_Schedule):
     """Piecewise-linear (time, control) points; the first value before, the last value after."""
 
-    kind: Literal["path"]
-    points: FrozenList[Pair[Years, float]] = Field(min_length=1, max_length=MAX_POINTS)
+    kind: Literal["path"] = Field(description='"path": straight lines between given points.')
+    points: FrozenList[Pair[Years, float]] = Field(
+        min_length=1,
+        max_length=MAX_POINTS,
+        description="[time in years, control value] pairs, times increasing.",
+    )
 
     @model_validator(mode="after")
     def _check_times(self) -> PathSchedule:
@@ -83,11 +105,20 @@ class StaircaseSchedule(_Schedule):
     Each change of level takes ``ramp_years`` (0: a jump, which breaks any rate limit).
     """
 
-    kind: Literal["staircase"]
-    start: Years = 0.0
-    levels: FrozenList[float] = Field(min_length=1, max_length=MAX_LEVELS)
-    step_years: PositiveYears
-    ramp_years: Years = 0.0
+    kind: Literal["staircase"] = Field(description='"staircase": a sequence of held levels.')
+    start: Years = Field(
+        default=0.0, description="Year the first level begins (default: 0, at once)."
+    )
+    levels: FrozenList[float] = Field(
+        min_length=1,
+        max_length=MAX_LEVELS,
+        description="Control values held in turn, in the control's unit; the last is kept.",
+    )
+    step_years: PositiveYears = Field(description="Years each level is held.")
+    ramp_years: Years = Field(
+        default=0.0,
+        description="Years each change of level takes (default: 0, a jump).",
+    )
 
     @model_validator(mode="after")
     def _check_ramp(self) -> StaircaseSchedule:
@@ -102,13 +133,19 @@ class OvershootSchedule(_Schedule):
     """From year ``start`` ramp down to ``floor`` over ``down_years``, hold it ``hold_years``,
     ramp up to ``relax_to`` over ``up_years``, then hold ``relax_to``."""
 
-    kind: Literal["overshoot"]
-    start: Years = 0.0
-    floor: float
-    down_years: Years
-    hold_years: Years
-    relax_to: float
-    up_years: Years
+    kind: Literal["overshoot"] = Field(
+        description='"overshoot": cut deep, hold, then relax to a lasting level.'
+    )
+    start: Years = Field(
+        default=0.0, description="Year the ramp down begins (default: 0, at once)."
+    )
+    floor: float = Field(description="Lowest control value reached, in the control's unit.")
+    down_years: Years = Field(description="Years taken to ramp down to the floor.")
+    hold_years: Years = Field(description="Years the floor is held.")
+    relax_to: float = Field(
+        description="Control value kept in the end, in the control's unit; at least the floor."
+    )
+    up_years: Years = Field(description="Years taken to ramp up from the floor to relax_to.")
 
     @model_validator(mode="after")
     def _check_order(self) -> OvershootSchedule:

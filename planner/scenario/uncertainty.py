@@ -90,9 +90,15 @@ def _normal_cdf(z: float) -> float:
 
 
 class _Prior(Strict):
-    parameter: str
-    lower: float | None = None
-    upper: float | None = None
+    parameter: str = Field(description="Model parameter this prior is on (not the control).")
+    lower: float | None = Field(
+        default=None,
+        description="No value below this is drawn, in the parameter's unit (default: no bound).",
+    )
+    upper: float | None = Field(
+        default=None,
+        description="No value above this is drawn, in the parameter's unit (default: no bound).",
+    )
 
     def cdf(self, value: float) -> float:  # pragma: no cover - every kind overrides it
         raise NotImplementedError
@@ -159,9 +165,11 @@ class _Prior(Strict):
 class NormalPrior(_Prior):
     """Normal with ``mean`` and standard deviation ``sd`` (0: a point mass at ``mean``)."""
 
-    kind: Literal["normal"]
-    mean: float
-    sd: NonNegative
+    kind: Literal["normal"] = Field(description='"normal": a bell curve around the mean.')
+    mean: float = Field(description="Mean of the parameter, in its unit.")
+    sd: NonNegative = Field(
+        description="Standard deviation, in the parameter's unit (0: always the mean)."
+    )
 
     def cdf(self, value: float) -> float:
         return _normal_cdf((value - self.mean) / self.sd)
@@ -178,9 +186,13 @@ class NormalPrior(_Prior):
 class LognormalPrior(_Prior):
     """Lognormal: ln(value) is normal with mean ln(``median``) and standard deviation ``sigma``."""
 
-    kind: Literal["lognormal"]
-    median: Positive
-    sigma: NonNegative
+    kind: Literal["lognormal"] = Field(
+        description='"lognormal": a positive value with a multiplicative spread.'
+    )
+    median: Positive = Field(description="Median of the parameter, in its unit.")
+    sigma: NonNegative = Field(
+        description="Standard deviation of the natural log of the value (0: always the median)."
+    )
 
     def cdf(self, value: float) -> float:
         if value <= 0:
@@ -197,8 +209,8 @@ class LognormalPrior(_Prior):
 
 
 class _IntervalPrior(_Prior):
-    low: float
-    high: float
+    low: float = Field(description="Smallest value the prior can take, in the parameter's unit.")
+    high: float = Field(description="Largest value the prior can take, in the parameter's unit.")
 
     @property
     def point(self) -> float | None:
@@ -212,7 +224,7 @@ class _IntervalPrior(_Prior):
 class UniformPrior(_IntervalPrior):
     """Uniform on [``low``, ``high``] (equal ends: a point mass)."""
 
-    kind: Literal["uniform"]
+    kind: Literal["uniform"] = Field(description='"uniform": every value from low to high alike.')
 
     def _own_problems(self) -> list[tuple[Loc, str]]:
         if self.high < self.low:
@@ -226,8 +238,10 @@ class UniformPrior(_IntervalPrior):
 class TriangularPrior(_IntervalPrior):
     """Triangular on [``low``, ``high``] with its peak at ``mode``."""
 
-    kind: Literal["triangular"]
-    mode: float
+    kind: Literal["triangular"] = Field(
+        description='"triangular": most likely at mode, falling to zero at low and high.'
+    )
+    mode: float = Field(description="Most likely value, in the parameter's unit.")
 
     def _own_problems(self) -> list[tuple[Loc, str]]:
         if not self.low <= self.mode:
@@ -261,9 +275,22 @@ class LoadVariability(Strict):
     from one year to the next, in [0, 1).
     """
 
-    sigma: NonNegative | None = None
-    cv: NonNegative | None = None
-    autocorrelation: float = Field(default=0.0, ge=0.0, lt=1.0)
+    sigma: NonNegative | None = Field(
+        default=None,
+        description="Standard deviation of the log of the yearly load factor (default: none; "
+        "give sigma or cv).",
+    )
+    cv: NonNegative | None = Field(
+        default=None,
+        description="Coefficient of variation of the yearly load factor, e.g. 0.3 (default: "
+        "none; give sigma or cv).",
+    )
+    autocorrelation: float = Field(
+        default=0.0,
+        ge=0.0,
+        lt=1.0,
+        description="Lag-1 correlation from one year to the next, in [0, 1) (default: 0).",
+    )
 
     @model_validator(mode="after")
     def _check_one(self) -> LoadVariability:
@@ -287,7 +314,11 @@ class JointPrior(Strict):
     """A multivariate normal prior on several parameters, each on its own scale ("log": the
     natural log of the value is normal, or "linear"); see the module docstring."""
 
-    parameters: FrozenList[str] = Field(min_length=1, max_length=MAX_JOINT_PARAMETERS)
+    parameters: FrozenList[str] = Field(
+        min_length=1,
+        max_length=MAX_JOINT_PARAMETERS,
+        description="Model parameters that vary together (not the control).",
+    )
     scales: FrozenList[JointScale] = Field(
         description='Scale of each parameter: "log" (ln value is normal) or "linear".'
     )
@@ -299,7 +330,9 @@ class JointPrior(Strict):
         "semi-definite."
     )
     origin: str = Field(
-        default="", max_length=2000, description="Where the numbers came from (free text)."
+        default="",
+        max_length=2000,
+        description="Where the numbers came from, free text (default: none).",
     )
 
     @model_validator(mode="after")
@@ -406,16 +439,36 @@ class JointPrior(Strict):
 class Uncertainty(Strict):
     """What is uncertain, and the size and seed of the ensemble that samples it."""
 
-    members: int = Field(default=1000, ge=1, le=MAX_MEMBERS)
-    seed: int = Field(default=0, ge=0, lt=2**63)
-    priors: FrozenList[Prior] = Field(default=(), max_length=200)
-    joint: JointPrior | None = None
-    load_variability: LoadVariability | None = None
+    members: int = Field(
+        default=1000,
+        ge=1,
+        le=MAX_MEMBERS,
+        description="Number of ensemble members (simulated lakes) to draw (default: 1000).",
+    )
+    seed: int = Field(
+        default=0,
+        ge=0,
+        lt=2**63,
+        description="Seed of the random draws; the same seed gives the same ensemble (default: 0).",
+    )
+    priors: FrozenList[Prior] = Field(
+        default=(),
+        max_length=200,
+        description="One prior per uncertain model parameter (default: none).",
+    )
+    joint: JointPrior | None = Field(
+        default=None,
+        description="A correlated normal prior on several parameters at once (default: none).",
+    )
+    load_variability: LoadVariability | None = Field(
+        default=None,
+        description="Year-to-year swings of the control, wet and dry years (default: none).",
+    )
     process_noise: FrozenDict[str, NonNegative] = Field(
         default={},
         validate_default=True,
-        description="Additive noise sigma dW on each named state variable "
-        "(state units per square-root year).",
+        description="Additive noise sigma dW on each named state variable, in state units "
+        "per square-root year (default: none).",
     )
     steps_per_year: int | None = Field(
         default=None,
