@@ -31,6 +31,8 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from planner.views import ResultViews
+
 if TYPE_CHECKING:
     import pandas as pd
     import plotly.graph_objects as go
@@ -324,9 +326,10 @@ def early_warnings(
 # Results that need their scenario to be drawn
 
 
-class _Views:
-    """``to_frame``, ``figure`` and ``_repr_html_`` of a result kept with its scenario; other
-    attributes are the wrapped result's (``result.recovery_threshold``)."""
+class _Views(ResultViews):
+    """A result kept with its scenario (which its figure needs): the notebook view of every
+    result (:class:`planner.views.ResultViews`), ``to_frame`` and ``figure`` defined by each
+    wrapper; other attributes are the wrapped result's (``result.recovery_threshold``)."""
 
     _wrapped: str
 
@@ -335,11 +338,8 @@ class _Views:
             raise AttributeError(name)
         return getattr(getattr(self, self._wrapped), name)
 
-    def to_frame(self) -> pd.DataFrame:
-        raise NotImplementedError
-
-    def _repr_html_(self) -> str:
-        return notebook_html(self.to_frame(), self.scenario.name)
+    def _view_title(self) -> str:
+        return self.scenario.name
 
 
 @dataclass(frozen=True, eq=False)
