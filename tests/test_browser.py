@@ -10,84 +10,16 @@ each step goes to a temporary folder (``PLANNER_SCREENSHOTS`` names another).
 from __future__ import annotations
 
 import html
-import json
-import logging
-import os
 import re
-import shutil
-import threading
 from html.parser import HTMLParser
-from pathlib import Path
-
-import pytest
 
 from planner.report import CAUTION
 from planner.scenario import load_scenario
-from webapp import compute, create_app, ids
+from tests.browser_support import BROWSER_MARKS, TIMEOUT_MS, dom_id
+from webapp import ids
 from webapp.files import default_scenario_dir
 
-CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = [
-    "--headless=new",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--disable-dev-shm-usage",
-    "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost, EXCLUDE 127.0.0.1",
-]
-TIMEOUT_MS = 30_000  # generous: CI shares two cores between the server, Chromium and pytest
-
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.exists(),
-        reason="needs Debian's chromium at /usr/bin/chromium (apt-get install chromium; "
-        ".ci/run installs it)",
-    ),
-]
-
-
-@pytest.fixture(scope="session")
-def browser_type_launch_args(browser_type_launch_args):
-    return {**browser_type_launch_args, "executable_path": str(CHROMIUM), "args": CHROMIUM_ARGS}
-
-
-@pytest.fixture(scope="module")
-def served(tmp_path_factory):
-    """The app on a free loopback port, its demo folder a copy, saving into its own folder."""
-    from werkzeug.serving import make_server
-
-    root = tmp_path_factory.mktemp("app")
-    scenarios = root / "scenarios"
-    shutil.copytree(default_scenario_dir(), scenarios)
-    saved = root / "saved"
-    app = create_app(scenarios, save_dir=saved, cache_dir=root / "cache")
-    compute.clear()  # results cached by earlier tests in this process would hide the real work
-    logging.getLogger("werkzeug").setLevel(logging.ERROR)
-    server = make_server("127.0.0.1", 0, app.server, threaded=True)
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
-    thread.start()
-    yield {"url": f"http://127.0.0.1:{server.server_port}/", "saved": saved}
-    server.shutdown()
-    thread.join(timeout=10)
-
-
-@pytest.fixture
-def shots(tmp_path):
-    folder = Path(os.environ.get("PLANNER_SCREENSHOTS") or tmp_path / "screenshots")
-    folder.mkdir(parents=True, exist_ok=True)
-    return folder
-
-
-def dom_id(ident: dict) -> str:
-    """CSS selector of a pattern-matching id (Dash writes it as JSON with sorted keys)."""
-    return '[id="{}"]'.format(
-        json.dumps(ident, sort_keys=True, separators=(",", ":")).replace('"', '\\"')
-    )
+pytestmark = BROWSER_MARKS
 
 
 class _Structure(HTMLParser):
