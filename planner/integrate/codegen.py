@@ -80,6 +80,13 @@ class Specialised:
     batched_dfdu: Callable[..., list]
     scalar_rhs: Callable[..., list]
     scalar_jac: Callable[..., list]
+    arguments: tuple = ()  # the sympy symbols of the argument order above
+    rhs_expressions: tuple = ()  # the right-hand side in those symbols (what is compiled)
+
+    @property
+    def key(self) -> str:
+        """Identifies the expressions and argument order (for compiled-code caches)."""
+        return repr((tuple(map(str, self.arguments)), tuple(map(str, self.rhs_expressions))))
 
 
 def _hoist(expression, parameters: set, found: dict):
@@ -139,6 +146,8 @@ def _specialise(spec, control: str, fixed: tuple[tuple[str, float], ...], free: 
         batched_dfdu=compile_(dfdu, "numpy"),
         scalar_rhs=compile_(rhs, "math"),
         scalar_jac=compile_(jac, "math"),
+        arguments=tuple(arguments),
+        rhs_expressions=tuple(rhs),
     )
 
 

@@ -135,6 +135,14 @@ class Piece:
     def _values(self, t) -> tuple:
         return self.values_at(t, self.index)
 
+    @property
+    def fixed_values(self) -> tuple | None:
+        """The free and hoisted parameter values of this piece's members when they do not
+        change over the stretch (else None)."""
+        if self.fixed is None:
+            return None
+        return self.fixed if self.index is None else tuple(_pick(v, self.index) for v in self.fixed)
+
     def _stacked(self, function, t, x: np.ndarray, rows: int) -> np.ndarray:
         values = function(*x, self.control(t), *self._values(t))
         first = values[0]
@@ -199,7 +207,16 @@ class Piece:
         """The piece for some members only (per-member parameters and factors indexed)."""
         factor = self.factor if np.ndim(self.factor) == 0 else self.factor[index]
         composed = index if self.index is None else self.index[index]
-        return Piece(self.functions, self.values_at, self.u_a, self.slope, self.a, factor, composed)
+        return Piece(
+            self.functions,
+            self.values_at,
+            self.u_a,
+            self.slope,
+            self.a,
+            factor,
+            composed,
+            self.fixed,
+        )
 
 
 class Pieces:

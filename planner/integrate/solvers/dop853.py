@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from planner.integrate import fused
 from planner.integrate.solvers.base import Stepper, shared_steps
 
 STAGES = 12
@@ -27,8 +28,20 @@ class _DenseOutput:
         self.tables, self.piece = tables, piece
         self.t0, self.h = t0, h
         self.x0, self.x1, self.f0, self.f1 = x0, x1, f0, f1
-        self.stages = stages.reshape(stages.shape[0], *x0.shape).copy()
+        # None after a compiled attempt, which keeps no stages: recomputed for the members asked
+        self.stages = None if stages is None else stages.reshape(stages.shape[0], *x0.shape).copy()
         self.cache: dict = {}
+
+    def _stages(self, piece, x0, f0, f1, pick):
+        if self.stages is not None:
+            return pick(self.stages)
+        tables, h = self.tables, self.h
+        k = np.empty((STAGES + 1, *x0.shape))
+        k[0], k[STAGES] = f0, f1
+        for s in range(1, STAGES):
+            y = x0 + h * np.tensordot(tables.A[s, :s], k[:s], axes=1)
+            k[s] = piece.rhs(self.t0 + tables.C[s] * h, y)
+        return k
 
     def _terms(self, columns):
         """The interpolant's coefficients for the members asked (built once per set)."""
@@ -38,7 +51,7 @@ class _DenseOutput:
             pick = (lambda a: a) if columns is None else (lambda a: a[..., columns])
             x0, x1, f0, f1 = pick(self.x0), pick(self.x1), pick(self.f0), pick(self.f1)
             piece = self.piece if columns is None else self.piece.subset(columns)
-            k = np.concatenate([pick(self.stages), np.empty((3, *x0.shape))])
+            k = np.concatenate([self._stages(piece, x0, f0, f1, pick), np.empty((3, *x0.shape))])
             for s in range(STAGES + 1, STAGES + 4):
                 y = x0 + h * np.tensordot(tables.A[s, :s], k[:s], axes=1)
                 k[s] = piece.rhs(self.t0 + tables.C[s] * h, y)
@@ -95,13 +108,56 @@ class DormandPrince853(Stepper):
             error = np.where(e5 > 0, abs(h) * e5 / np.sqrt((e5 + 0.01 * e3) * n), 0.0)
             return new, f_new, error
 
+        compiled = _compiled_attempt(piece, x, tolerance, scale)
         for step in shared_steps(
-            self, piece, a, b, x, h, tolerance, scale, alive, max_steps, attempt
+            self, piece, a, b, x, h, tolerance, scale, alive, max_steps, compiled or attempt
         ):
             # The stages in the buffer are this step's until the next attempt: the driver asks
             # for states inside the step before it asks for the next step.
-            step.interpolant = _LazyDense(tables, piece, step.t0, step.t1 - step.t0, step, stages)
+            step.interpolant = _LazyDense(
+                tables, piece, step.t0, step.t1 - step.t0, step, None if compiled else stages
+            )
             yield step
+
+
+def _compiled_attempt(piece, x, tolerance, scale):
+    """The same attempt as compiled code (:mod:`planner.integrate.fused`) when the batch is
+    large, the parameters are fixed over the piece and the model compiles; else None."""
+    m = x.shape[1] if x.ndim == 2 else 0
+    if m < fused.FUSED_MIN_MEMBERS or piece.fixed_values is None or np.shape(scale)[-1] != 1:
+        return None
+    kernel = fused.kernel_for(piece.functions)
+    if kernel is None:
+        return None
+    values = fused.member_values(piece.fixed_values, m)
+    factor = np.broadcast_to(np.asarray(piece.factor, dtype=float), (m,))
+    atol_scale = np.ascontiguousarray(tolerance.atol * np.asarray(scale, dtype=float)[:, 0])
+    rtol = float(tolerance.rtol)
+    u_a, slope, start = float(piece.u_a), float(piece.slope), float(piece.a)
+
+    def attempt(t, x, f, h):
+        new = np.empty_like(x)
+        f_new = np.empty_like(x)
+        error = np.empty(m)
+        kernel(
+            float(t),
+            float(h),
+            x,
+            f,
+            u_a,
+            slope,
+            start,
+            factor,
+            values,
+            rtol,
+            atol_scale,
+            new,
+            f_new,
+            error,
+        )
+        return new, f_new, error
+
+    return attempt
 
 
 class _LazyDense:
