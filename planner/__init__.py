@@ -15,6 +15,9 @@ The Python API (the same functions the ``planner`` command runs; see :mod:`plann
   uncertainty
 - ``fit(record, scenario, bootstrap=None, ...)``: the model fitted to a monitoring record
 - ``early_warnings(record, column=None, ...)``: early-warning indicators of one series
+- ``demo_names()``: the bundled demo scenarios (invented lakes) by name
+- ``demo_path(name)``: the file of a bundled demo, e.g. ``load(demo_path("alder-mere"))``
+  (see :mod:`planner.demos`; ``planner demos --copy-to DIR`` copies them for editing)
 
 A scenario argument is a Scenario or anything ``load`` accepts. Each result has ``to_frame()``
 (a pandas DataFrame with real dtypes), ``figure()`` (plotly) and a notebook view.
@@ -29,7 +32,8 @@ The sweep, frontier, search, ensemble and signals functions carry names of their
 
 from planner import api as _api
 from planner.api import *  # noqa: F403 - the API, named once in planner.api
+from planner.demos import demo_names, demo_path
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__", *_api.FUNCTIONS]
+__all__ = ["__version__", "demo_names", "demo_path", *_api.FUNCTIONS]
