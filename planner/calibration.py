@@ -3,6 +3,11 @@
 Method (trajectory matching, nonlinear least squares; e.g. Bates & Watts 1988, Nonlinear
 Regression Analysis and Its Applications, ch. 2):
 
+- The record is first read as the model reads it (:func:`planner.monitoring.model_record`):
+  each column in the model's unit (TP in ug/L through the lake's mean depth, loads in t/yr
+  through its area, with pint) and dated samples (or sub-annual decimal years whose file asks
+  for it) reduced to yearly means (annual or growing-season), each dated by its year; the fit's
+  summary states both once.
 - The recorded yearly loads become a piecewise-linear control path (linear interpolation between
   the rows that have a load, held before the first and after the last); the model is integrated
   under it by the one engine (:func:`planner.integrate.integrate`, sampled exactly at the
@@ -70,7 +75,7 @@ from planner.integrate import Limits, Save, Status, Tolerance, Trajectory, integ
 from planner.integrate import Problem as IntegrationProblem
 from planner.metrics import limits_for
 from planner.models import ModelSpec, System, compile_model
-from planner.monitoring import Record, same_unit
+from planner.monitoring import ModelColumn, Record, RecordReading, model_record
 from planner.progress import Progress, scaled, silent
 from planner.report import CAUTION, NOT_REACHABLE
 from planner.scenario import Scenario, scenario_from_data
@@ -128,8 +133,12 @@ HELD_BY_DEFAULT: dict[str, tuple[str, ...]] = {
 class Observations:
     """A record matched to a scenario's model: the load path and the observed values.
 
+    ``record`` is the record as the model reads it: its load and observed columns in the
+    model's units, reduced to yearly means where the file asks for them
+    (:func:`planner.monitoring.model_record`); ``reading`` says how (conversions, means, gaps).
     Times are years since ``start`` (the record's first time). ``variable_index`` gives the model
-    variable of each observation, ``time_index`` its place in ``times``; ``rows`` its file row.
+    variable of each observation, ``time_index`` its place in ``times``; ``rows`` its file row
+    (the first row of its year for a yearly mean).
     """
 
     record: Record
@@ -142,6 +151,7 @@ class Observations:
     variable_index: np.ndarray
     time_index: np.ndarray
     rows: np.ndarray
+    reading: RecordReading = field(default_factory=RecordReading)
 
     @property
     def count(self) -> int:
@@ -167,38 +177,68 @@ def observations_for(
     *,
     control_column: str | None = None,
     states: Mapping[str, str] | None = None,
+    season: str | None = None,
 ) -> Observations:
     """Match ``record`` to ``scenario``: which column is the load and which columns observe
-    which model variables; units are checked against the scenario's.
+    which model variables, read in the model's units.
 
     Defaults: the load column is named like the control parameter (``L``) if the record has one,
     else ``load``; each model variable is observed by the column of the same name; when no
     column is named after a variable and exactly one data column is left, it observes the target
     variable. The load column may have gaps (interpolated linearly, see the module docstring).
+
+    Units: the load column is converted to the scenario's control unit and each observed column
+    to the scenario's unit of its variable (``[state_units]``), through pint and, across
+    dimensions (TP in ug/L for an areal store, loads in t/yr for an areal load), the scenario's
+    ``[lake]`` block; times: dated records, and records in decimal years with several rows a
+    year whose file has a season line, become yearly means (the load over each calendar year,
+    the observations over ``season``, default the file's line, else "annual"). See
+    :mod:`planner.monitoring`; ``Observations.reading`` says what was done.
     """
     source = record.source
     variables = scenario.spec.variables
-    if len(record.times) > MAX_FIT_ROWS:
-        reason = (
-            f"{len(record.times)} rows; a fit takes at most {MAX_FIT_ROWS} (each row is an "
-            "output of every refit): aggregate the record to monthly or annual means first"
-        )
-        raise InputError([Problem(source, "(rows)", reason)])
-    if record.time_unit.strip().lower() not in YEAR_UNITS:
+    if not record.dated and record.time_unit.strip().lower() not in YEAR_UNITS:
         raise InputError(
             [
                 Problem(
                     source,
                     f"column {record.time_name}",
-                    f"times must be in years (decimal years), not {record.time_unit!r}",
+                    f"times must be in years (decimal years) or ISO dates, not "
+                    f"{record.time_unit!r}",
                 )
             ]
         )
     if control_column is None:
         parameter = scenario.control.parameter
         control_column = parameter if record.has(parameter) else DEFAULT_CONTROL_COLUMN
-    loads = record.column(control_column, option="--control-column")
-    _check_unit(record, control_column, scenario.control.unit, "the scenario's control unit")
+    record.find(control_column, option="--control-column")
+    mapping = _state_columns(record, scenario, control_column, states)
+    wanted = [
+        ModelColumn(
+            control_column,
+            scenario.control.unit,
+            f"the load {scenario.control.parameter}",
+            option="--control-column",
+            whole_year=True,
+        ),
+        *(
+            ModelColumn(column, scenario.state_units.get(variable, ""), variable, option="--state")
+            for variable, column in mapping
+        ),
+    ]
+    record, reading, designators = model_record(record, wanted, lake=scenario.lake, season=season)
+    control_column = designators[0]
+    mapping = [
+        (variable, name) for (variable, _), name in zip(mapping, designators[1:], strict=True)
+    ]
+    if len(record.times) > MAX_FIT_ROWS:
+        reason = (
+            f"{len(record.times)} rows; a fit takes at most {MAX_FIT_ROWS} (each row is an "
+            "output of every refit): aggregate the record to yearly means first, e.g. with the "
+            "line '# season: annual' in the file"
+        )
+        raise InputError([Problem(source, "(rows)", reason)])
+    loads = record.column(control_column)
     known = np.isfinite(loads)
     if np.count_nonzero(known) < 2:
         raise InputError(
@@ -218,11 +258,10 @@ def observations_for(
         load_values = np.concatenate([[load_values[0]], load_values])
     path = ControlPath(load_times, load_values)
 
-    mapping = _state_columns(record, scenario, control_column, states)
     times = record.times - start
     values, variable_index, time_index, rows = [], [], [], []
     for variable, column in mapping:
-        data = record.column(column, option="--state")
+        data = record.column(column)
         present = np.nonzero(np.isfinite(data))[0]
         values.append(data[present])
         variable_index.append(np.full(present.size, variables.index(variable)))
@@ -239,22 +278,8 @@ def observations_for(
         variable_index=np.concatenate(variable_index).astype(int),
         time_index=np.concatenate(time_index).astype(int),
         rows=np.concatenate(rows).astype(int),
+        reading=reading,
     )
-
-
-def _check_unit(record: Record, column: str, expected: str, what: str) -> None:
-    stated = record.unit(column)
-    if not same_unit(stated, expected):
-        raise InputError(
-            [
-                Problem(
-                    record.source,
-                    f"column {column}",
-                    f"unit {stated!r} differs from {what} {expected!r}; "
-                    "convert the column or the scenario to the same unit",
-                )
-            ]
-        )
 
 
 def _state_columns(
@@ -302,13 +327,11 @@ def _state_columns(
             ]
         )
     load = record.find(control_column) if record.has(control_column) else -1
-    for variable, column in mapping:
+    for _, column in mapping:
         if record.find(column) == load:  # the same column, however its header is spelled
             raise InputError(
                 [Problem(source, f"column {column}", "is the load column; it cannot be observed")]
             )
-        expected = scenario.state_units.get(variable, "")
-        _check_unit(record, column, expected, f"the scenario's unit of {variable}")
     return mapping
 
 
@@ -1872,6 +1895,7 @@ def fit_json(fit: Fit) -> dict[str, Any]:
             for i in [variables.index(variable)]
         },
         "times": {"first": float(record.times[0]), "last": float(record.times[-1])},
+        "reading": observations.reading.as_json(),
         "log": fit.log,
         "fitted": list(fit.fitted),
         "parameters": {e.name: _estimate_json(e) for e in fit.parameters},
@@ -1934,6 +1958,7 @@ def fit_text(fit: Fit, *, caution: bool = True) -> str:
         f"{scenario.name}: fitted to {record.source} "
         f"({record.times[0]:g} to {record.times[-1]:g}, {fit.residuals.size} observed values"
         f"{', logarithms' if fit.log else ''})",
+        *(f"  read: {line}" for line in fit.observations.reading.statements()),
         "",
         f"{'quantity':<14} {'estimate':>11}  95% interval",
     ]

@@ -59,9 +59,15 @@ def test_load_gaps_are_interpolated_and_the_first_load_held_back():
     assert observations.columns == (("P", "P"),)
 
 
-def test_unit_that_differs_from_the_scenario_is_refused():
-    text = "year,load [mg P / m2 / yr],TP\n2000,2.0,1.0\n2001,2.0,1.1\n"
-    with pytest.raises(InputError, match="column load: unit 'mg P / m2 / yr' differs"):
+def test_a_load_in_another_unit_is_converted_and_a_unit_that_is_no_load_is_refused():
+    """A load in mg P / m2 / yr is read in the scenario's g P / m2 / yr (1 mg = 1e-3 g, SI
+    prefixes); a load column in ug/L (a concentration) cannot be a load and is refused naming
+    the file and the column (common practice, no source)."""
+    text = "year,load [mg P / m2 / yr],TP\n2000,2000,1.0\n2001,2500,1.1\n"
+    observations = observations_for(parse_record(text, "units.csv"), load_scenario(ALDER))
+    np.testing.assert_allclose(observations.path(np.array([0.0, 1.0])), [2.0, 2.5], rtol=1e-12)
+    text = "year,load [ug/L],TP\n2000,2.0,1.0\n2001,2.0,1.1\n"
+    with pytest.raises(InputError, match="units.csv: column load: 'ug/L' is a concentration"):
         observations_for(parse_record(text, "units.csv"), load_scenario(ALDER))
 
 
