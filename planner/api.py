@@ -3,12 +3,14 @@
 Each function takes a scenario as a :class:`~planner.scenario.Scenario` or anything
 :func:`load` accepts, calls the same planner function as the ``planner`` command with the same
 keyword options (a keyword left out, or given as None, keeps that function's default), and
-returns a result with three views:
+returns a result with these views:
 
 - ``to_frame()``: a pandas DataFrame with real dtypes (flags as bool, numbers as float, missing
   numbers as NaN, missing text as None); column names in snake_case, units in
-  ``frame.attrs["units"]``;
+  ``frame.attrs["units"]``; :func:`frame_parquet` writes it as Parquet (pyarrow);
 - ``figure()``: the plotly figure the CLI briefings and the web app draw;
+- ``image(format)``: that figure as PNG, SVG or PDF bytes (:func:`figure_image`: kaleido on
+  Debian's Chromium, the ``export`` extra);
 - ``_repr_html_()``: the frame and the caution, as a notebook shows a result.
 
 The frames are the report tables (:mod:`planner.report`, :mod:`planner.frontier`) with their
@@ -178,15 +180,18 @@ def hysteresis_sweep(
     scenario: ScenarioSource,
     *,
     step: float | None = None,
+    step_name: str = "step",
     progress: ProgressOption = False,
 ) -> ScenarioSweep:
     """The control dialled slowly up and down, and the jumps (``planner sweep``); ``step`` in
-    the control's unit (see :func:`planner.sweep.sweep_for`)."""
+    the control's unit (see :func:`planner.sweep.sweep_for`). A step out of range raises
+    InputError under ``step_name`` (the command passes its option, ``--step``)."""
     from planner.sweep import sweep_for
 
     chosen, _ = _loaded(scenario)
     with _progress(progress, "sweep") as report:
-        return ScenarioSweep(chosen, sweep_for(chosen, step=step, progress=report, source="step"))
+        swept = sweep_for(chosen, step=step, progress=report, source=step_name)
+    return ScenarioSweep(chosen, swept)
 
 
 def overshoot_frontier(
@@ -200,13 +205,16 @@ def overshoot_frontier(
     start_year: float | None = None,
     ramp_years: float | None = None,
     own_schedules: bool | None = None,
+    source: str | None = None,
     progress: ProgressOption = False,
 ) -> Frontier:
     """The least hold below the recovery threshold for each depth (``planner frontier``); see
-    :func:`planner.frontier.recovery_frontier` for the units and defaults."""
+    :func:`planner.frontier.recovery_frontier` for the units and defaults. Problems name
+    ``source`` (default: the scenario's path, or ``<text>``, ``<dict>``, ``<scenario>``)."""
     from planner.frontier import recovery_frontier
 
-    chosen, source = _loaded(scenario)
+    chosen, loaded_from = _loaded(scenario)
+    source = loaded_from if source is None else source
     options = _given(
         diagram=_diagram_of(diagram),
         relax_to=relax_to,
@@ -593,11 +601,21 @@ def _quantile(name: str, q: float) -> str:
     return f"{name}_q{round(100 * q):02d}"
 
 
-def ensemble_frame(ensemble: Ensemble) -> pd.DataFrame:
+ENSEMBLE_TABLES = ("schedules", "members")
+"""The ensemble's frames: ``to_frame()`` (one row per schedule) and ``to_frame("members")``."""
+
+
+def ensemble_frame(ensemble: Ensemble, table: str = "schedules") -> pd.DataFrame:
     """One row per schedule: members, the chance of recovery with its interval, the chance of
     meeting the target (NaN without a target threshold), the 5%, 50% and 95% quantiles of the
-    years to the target and of the present value, feasibility and the failed members."""
+    years to the target and of the present value, feasibility and the failed members.
+    ``table="members"``: one row per member and schedule instead (:func:`members_frame`)."""
     from planner.ensemble import CONFIDENCE
+
+    if table == "members":
+        return members_frame(ensemble)
+    if table != "schedules":
+        raise ValueError(f"table is one of {ENSEMBLE_TABLES}, not {table!r}")
 
     rows = []
     for s in ensemble.schedules:
@@ -628,6 +646,50 @@ def ensemble_frame(ensemble: Ensemble) -> pd.DataFrame:
     if currency:
         frame.attrs["units"] |= {_quantile("present_value", q): currency for q in SPREAD}
     frame.attrs["confidence"] = CONFIDENCE
+    return frame
+
+
+def members_frame(ensemble: Ensemble) -> pd.DataFrame:
+    """One row per schedule and member: ``schedule``, ``member`` (0, 1, ...; the same member
+    draws the same parameters under every schedule), the member's drawn parameters (one column
+    each, as the ensemble drew them: :func:`planner.ensemble.draw_parameters`, a function of the
+    seed and the member alone), its ``verdict`` (recovered, not_recovered, diverged, unsettled,
+    failed), ``recovered``, ``meets_target_at`` (years; NaN: not met at the horizon) and
+    ``present_value`` (the scenario's currency)."""
+    import numpy as np
+    import pandas as pd
+
+    from planner.ensemble import draw_parameters, physical_bounds
+    from planner.scenario.uncertainty import Uncertainty
+    from planner.verdict import RECOVERED, VERDICTS
+
+    scenario, count = ensemble.scenario, ensemble.members
+    uncertainty = (scenario.uncertainty or Uncertainty()).model_copy(
+        update={"members": count, "seed": ensemble.seed}
+    )
+    drawn = draw_parameters(uncertainty, 0, count, bounds=physical_bounds(scenario))
+    names = np.array([verdict.name.lower() for verdict in VERDICTS], dtype=object)
+    parts = []
+    for s in ensemble.schedules:
+        codes = np.asarray(s.verdicts)
+        part = {
+            "schedule": pd.Series([s.name] * count, dtype=object),
+            "member": np.arange(count, dtype=np.int64),
+            **{name: np.asarray(values, dtype=float) for name, values in drawn.items()},
+            "verdict": pd.Series(names[codes], dtype=object),
+            "recovered": codes == RECOVERED,
+            "meets_target_at": np.asarray(s.meets_target_at, dtype=float),
+            "present_value": np.asarray(s.present_value, dtype=float),
+        }
+        parts.append(pd.DataFrame(part))
+    columns = ["schedule", "member", *drawn, "verdict", "recovered"]
+    columns += ["meets_target_at", "present_value"]
+    frame = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=columns)
+    currency = None if scenario.costs is None else scenario.costs.currency
+    frame.attrs["units"] = {"meets_target_at": "yr"} | (
+        {"present_value": currency} if currency else {}
+    )
+    frame.attrs["seed"] = ensemble.seed
     return frame
 
 
@@ -702,3 +764,102 @@ def signals_figure(signals: Signals) -> go.Figure:
     from planner.figures import signals_figure as draw
 
     return draw(signals)
+
+
+# ---------------------------------------------------------------------------------------------
+# Files: figures as images (kaleido on a Chromium), frames as Parquet (pyarrow)
+
+IMAGE_FORMATS = {".png": "png", ".svg": "svg", ".pdf": "pdf"}
+"""Image formats by file suffix (lower case)."""
+IMAGE_WIDTH, IMAGE_HEIGHT = 900, 600
+"""Layout pixels of an image whose figure sets no size of its own."""
+IMAGE_SCALE = 2
+"""Device pixels per layout pixel in a PNG: sharp on a projector and in print (common practice,
+no source); SVG and PDF are vector images, which no scale changes."""
+BROWSER = "/usr/bin/chromium"
+"""The Chrome that kaleido drives: Debian's Chromium, unless ``BROWSER_PATH`` names another."""
+EXPORT_EXTRA = "install the 'export' extra (pip install 'regime-planner[export]')"
+
+
+def image_format(path: str | os.PathLike[str]) -> str:
+    """The image format a file name asks for by its suffix: "png", "svg" or "pdf"; ValueError
+    for any other suffix."""
+    suffix = os.path.splitext(os.fspath(path))[1].lower()
+    if suffix not in IMAGE_FORMATS:
+        given = f"{suffix!r}" if suffix else "no suffix"
+        raise ValueError(f"{given} is not an image suffix; use {', '.join(IMAGE_FORMATS)}")
+    return IMAGE_FORMATS[suffix]
+
+
+def browser_path() -> str:
+    """The Chrome or Chromium that draws images: ``BROWSER_PATH`` when set, else BROWSER."""
+    return os.environ.get("BROWSER_PATH") or BROWSER
+
+
+def image_export_missing() -> str | None:
+    """Why figures cannot be written as images here (kaleido, or its browser, is missing), or
+    None when they can. Cheap: imports nothing and starts no browser."""
+    from importlib.util import find_spec
+
+    if find_spec("kaleido") is None:
+        return f"images need kaleido, which is not installed; {EXPORT_EXTRA}"
+    browser = browser_path()
+    if not (os.path.isfile(browser) and os.access(browser, os.X_OK)):
+        return (
+            f"images need Chromium at {browser}, which is missing; install it (Debian: "
+            "apt-get install chromium) or set BROWSER_PATH to a Chrome or Chromium"
+        )
+    return None
+
+
+def parquet_missing() -> str | None:
+    """Why tables cannot be written as Parquet here (pyarrow is missing), or None."""
+    from importlib.util import find_spec
+
+    if find_spec("pyarrow") is None:
+        return f"Parquet needs pyarrow, which is not installed; {EXPORT_EXTRA}"
+    return None
+
+
+def figure_image(
+    figure: go.Figure,
+    format: str = "png",
+    *,
+    width: int | None = None,
+    height: int | None = None,
+) -> bytes:
+    """A figure (from :mod:`planner.figures`) as PNG, SVG or PDF bytes, drawn by kaleido in a
+    headless Chromium (:func:`browser_path`) with MathJax off, so that nothing is fetched from
+    the network. Size in layout pixels: ``width`` and ``height`` when given, else the figure's
+    own, else IMAGE_WIDTH x IMAGE_HEIGHT; a PNG has IMAGE_SCALE device pixels to each.
+    RuntimeError when kaleido or the browser is missing."""
+    if format not in IMAGE_FORMATS.values():
+        raise ValueError(f"format is one of {tuple(IMAGE_FORMATS.values())}, not {format!r}")
+    missing = image_export_missing()
+    if missing:
+        raise RuntimeError(missing)
+    import kaleido
+
+    layout = figure.layout
+    options = {
+        "format": format,
+        "width": width or layout.width or IMAGE_WIDTH,
+        "height": height or layout.height or IMAGE_HEIGHT,
+        "scale": IMAGE_SCALE if format == "png" else 1,
+    }
+    browser = {"mathjax": False, "path": browser_path()}
+    return kaleido.calc_fig_sync(figure.to_dict(), opts=options, kopts=browser)
+
+
+def frame_parquet(frame: pd.DataFrame) -> bytes:
+    """A frame (a result's ``to_frame()``) as Parquet bytes (pyarrow), its dtypes kept and its
+    ``attrs`` (units and the like) in the file's metadata; no index column. RuntimeError when
+    pyarrow is missing."""
+    missing = parquet_missing()
+    if missing:
+        raise RuntimeError(missing)
+    import io
+
+    buffer = io.BytesIO()
+    frame.to_parquet(buffer, engine="pyarrow", index=False)
+    return buffer.getvalue()
