@@ -3,7 +3,8 @@
 Starts the app in a separate process on 127.0.0.1 (a free port), then CLIENTS threads each post
 edits of one schedule's floor to ``/_dash-update-component`` (the callback that validates and
 re-simulates) for DURATION seconds, each request with a new floor so the result is never served
-from the cache. Prints the p50 and p95 latency and the error count.
+from the cache. Prints the p50 and p95 latency (and p95 as a ratio of the 1 s target), the error
+count, and the machine's load average before and after (other work on the machine slows it).
 
 Target: 0 errors and p95 under 1 s with 20 clients. Bounded: it stops at the duration, after
 MAX_REQUESTS per client, and each request times out after REQUEST_TIMEOUT seconds.
@@ -17,6 +18,7 @@ import argparse
 import http.client
 import json
 import multiprocessing
+import os
 import statistics
 import sys
 import threading
@@ -34,6 +36,7 @@ from webapp.serve import DEFAULT_WORKERS  # noqa: E402
 MAX_REQUESTS = 100_000  # per client, a bound beside the duration
 REQUEST_TIMEOUT = 10.0  # seconds
 EDITED_SCHEDULE = 1  # in alder-mere.toml: "Deep cut to 0.6 for 6 years, relax to 1.5"
+TARGET_P95 = 1.0  # seconds
 
 
 def recompute_callback_id(app) -> str:
@@ -231,17 +234,27 @@ def main(argv=None) -> int:
         f"{args.clients} clients, {args.duration:g} s, {args.workers} server worker(s) "
         f"(planner app --workers {args.workers}), recompute of {args.scenario.name} over loopback"
     )
+    before = os.getloadavg()
     result = run(args.clients, args.duration, args.scenario, args.workers)
+    after = os.getloadavg()
     print(
         f"requests      {result['requests']} ({result['requests'] / result['wall']:.1f} per second)"
     )
     print(f"latency p50   {result['p50'] * 1000:.0f} ms")
-    print(f"latency p95   {result['p95'] * 1000:.0f} ms   (target under 1000 ms)")
+    print(
+        f"latency p95   {result['p95'] * 1000:.0f} ms   "
+        f"({result['p95'] / TARGET_P95:.2f} x the target of {TARGET_P95 * 1000:.0f} ms)"
+    )
     print(f"latency max   {result['max'] * 1000:.0f} ms")
     print(f"errors        {result['errors']}   (target 0)")
     for line in result["first_errors"]:
         print(f"  {line}")
-    met = result["errors"] == 0 and result["p95"] < 1.0
+    cores = os.cpu_count() or 1
+    print(
+        f"load average  {before[0]:.2f} before, {after[0]:.2f} after (1-minute, {cores} cores; "
+        "other work on the machine lengthens the latencies)"
+    )
+    met = result["errors"] == 0 and result["p95"] < TARGET_P95
     print("target met" if met else "target NOT met")
     return 0
 

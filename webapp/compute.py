@@ -249,8 +249,21 @@ def comparison_of(
 
 JOB_SECONDS = 600.0
 """Wall-clock budget of one long job in the app (a sweep, frontier, search, ensemble, fit or
-background comparison): a job past it stops at its next progress report and says so, so that
-no request holds a worker indefinitely."""
+background comparison), in seconds: the server kills a job's worker process when it runs out
+(``webapp.jobs``), and a job that reports progress past it stops itself there first."""
+
+
+def seconds_text(seconds: float) -> str:
+    """A duration in seconds as the app writes it: whole seconds from 10 s, else one decimal."""
+    return f"{seconds:.0f}" if abs(seconds) >= 10 else f"{seconds:.1f}".removesuffix(".0")
+
+
+def over_budget(seconds: float) -> str:
+    """Why a job past the budget of ``seconds`` was stopped, and what to do instead."""
+    return (
+        f"stopped after {seconds_text(seconds)} s, the app's limit for one job: ask for less "
+        "(fewer members, a coarser step, fewer depths) or run it from the command line"
+    )
 
 
 def throttled(
@@ -266,11 +279,7 @@ def throttled(
     def progress(fraction: float, message: str) -> None:
         now = time.monotonic()
         if now - start > limit:
-            reason = (
-                f"stopped after {limit:.0f} s, the app's limit for one job: ask for less "
-                "(fewer members, a coarser step, fewer depths) or run it from the command line"
-            )
-            raise InputError([Problem("app", "time", reason)])
+            raise InputError([Problem("app", "time", over_budget(limit))])
         if fraction >= 1.0 or now - last[0] >= interval:
             last[0] = now
             report(fraction, message)

@@ -63,6 +63,7 @@ EXPORT_MESSAGE = "export-message"
 SORT_BUTTON = "sort-button"
 
 FRONTIER_RUN = "frontier-run"
+FRONTIER_CANCEL = "frontier-cancel"
 FRONTIER_PROGRESS_BOX = "frontier-progress-box"
 FRONTIER_PROGRESS = "frontier-progress"
 FRONTIER_PROGRESS_TEXT = "frontier-progress-text"
@@ -71,6 +72,7 @@ FRONTIER_GRAPH = "frontier-graph"
 FRONTIER_START_YEAR = "frontier-start-year"
 FRONTIER_RAMP_YEARS = "frontier-ramp-years"
 SEARCH_RUN = "search-run"
+SEARCH_CANCEL = "search-cancel"
 SEARCH_PROGRESS_BOX = "search-progress-box"
 SEARCH_PROGRESS = "search-progress"
 SEARCH_PROGRESS_TEXT = "search-progress-text"
@@ -93,6 +95,7 @@ ENSEMBLE_FANS = "ensemble-fans"  # store: one fan figure per schedule of the las
 ENSEMBLE_FAN_GRAPH = "ensemble-fan-graph"
 ENSEMBLE_TABLE = "ensemble-table"
 DATA_UPLOAD = "data-upload"
+DATA_CANCEL = "data-cancel"  # stops the fit
 DATA_PROGRESS_BOX = "data-progress-box"
 DATA_PROGRESS = "data-progress"
 DATA_PROGRESS_TEXT = "data-progress-text"
@@ -177,3 +180,45 @@ ALL_SCHEDULE_BUTTONS = schedule_button(ALL, ALL)
 ALL_EXPORT_BUTTONS = export_button(ALL, ALL)
 ALL_EXPORT_MESSAGES = export_message(ALL)
 ALL_SORT_BUTTONS = sort_button(ALL)
+
+
+# ---------------------------------------------------------------------------------------------
+# Unsaved edits, undo and saving back (scenario panel and schedule editor).
+
+BASELINE = "store-baseline"  # the file the scenario was opened from or last saved to
+UPLOADED_TEXT = "store-uploaded-text"  # an uploaded scenario's text: its layout for "Save as"
+HISTORY = "store-history"  # undo / redo: earlier and later valid versions of the scenario
+OPEN_PENDING = "store-open-pending"  # a pick or upload waiting for "discard unsaved edits?"
+DELETE_PENDING = "store-delete-pending"  # the schedule waiting for "delete it?"
+UNSAVED = "store-unsaved"  # True while there are unsaved edits (read by the page's script)
+PAGE_SCRIPT = "store-page-script"  # output of the page's script (leave-page guard, shortcuts)
+OPEN_CONFIRM = "open-confirm"  # "discard unsaved edits?" before a pick or an upload
+DELETE_CONFIRM = "delete-confirm"  # "delete schedule N?"
+EDIT_STATE = "edit-state"  # which file is open, and whether it has unsaved edits
+SAVE_FILE = "save-file"  # plain "Save": back to the file the scenario came from
+UNDO_BUTTON = "undo-button"
+REDO_BUTTON = "redo-button"
+UNDO_MESSAGE = "undo-message"
+
+# Results computed from an earlier version of the scenario (webapp.views.staleness).
+RESULT_STAMP = "result-stamp"  # store: which scenario the result shown was computed from
+RUN_STAMP = "run-stamp"  # store: which scenario the job now running was started on
+STALE_BANNER = "stale-banner"
+
+
+def result_stamp(what) -> dict:
+    """The identity (file name and scenario key) of the scenario result ``what`` came from."""
+    return {"type": RESULT_STAMP, "what": what}
+
+
+def run_stamp(what) -> dict:
+    return {"type": RUN_STAMP, "what": what}
+
+
+def stale_banner(what) -> dict:
+    """The note above result ``what`` when it was computed for another version of the scenario."""
+    return {"type": STALE_BANNER, "what": what}
+
+
+ALL_RESULT_STAMPS = result_stamp(ALL)
+ALL_STALE_BANNERS = stale_banner(ALL)

@@ -1,9 +1,10 @@
 """Serving the app: one process (the default), or several worker processes sharing one socket.
 
-The user's data lives in the browser, results are cached per process, and background jobs and
-their results live in a shared disk cache, so workers share nothing else: the operating system
-hands each connection to whichever worker accepts it first. Several workers let simultaneous
-users recompute on more than one core (the numerical work holds Python's interpreter lock).
+The user's data lives in the browser, results are cached per process, and long jobs and their
+results live in a shared disk cache, so workers share nothing else: the operating system hands
+each connection to whichever worker accepts it first. A long job's process is watched, and killed
+at shutdown, by the serving process that started it. Several workers let simultaneous users
+recompute on more than one core (the numerical work holds Python's interpreter lock).
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-from webapp import compute
+from webapp import compute, jobs
 from webapp.app import LOOPBACK_NAMES, create_app  # noqa: F401 (LOOPBACK_NAMES re-exported)
 
 LOOPBACK = "127.0.0.1"
@@ -65,6 +66,7 @@ def serve(
             pass
         finally:
             server.server_close()
+            jobs.stop_all()  # no long job outlives the server
         return
     _serve_workers(
         scenario_dir,
@@ -111,6 +113,7 @@ def _serve_workers(scenario_dir, *, host, port, workers, save_dir, ready, allowe
                 traceback.print_exc()
                 code = 1
             finally:
+                jobs.stop_all()  # os._exit runs no exit handlers: kill this worker's jobs here
                 os._exit(code)  # never run the parent's exit handlers in a worker
         children.append(pid)
     if ready is not None:

@@ -52,6 +52,11 @@ def placeholder_figure(text: str) -> go.Figure:
     return figure
 
 
+def stopped_figure() -> go.Figure:
+    """The blank figure of a job that was stopped before it finished (its message says why)."""
+    return placeholder_figure("Stopped before it finished: see the message above")
+
+
 def money(value: float | None, currency: str = "") -> str:
     if value is None:
         return "-"

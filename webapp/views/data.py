@@ -1,8 +1,8 @@
 """Monitoring data: upload a CSV record of loads and lake measurements (checked by
 ``planner.monitoring.parse_record``), fit the working scenario's model to it
-(``planner.calibration.fit_record``, without the bootstrap so it stays quick) in a background
-worker with a progress bar, and show the fit over time and the fitted lake's diagram with the
-thresholds' intervals."""
+(``planner.calibration.fit_record``, without the bootstrap so it stays quick) as a long job
+(``webapp.jobs``: a worker process with a progress bar, Cancel and a budget), and show the fit
+over time and the fitted lake's diagram with the thresholds' intervals."""
 
 from __future__ import annotations
 
@@ -12,13 +12,19 @@ from planner.errors import InputError
 from planner.figures import fit_figure, fit_hysteresis_figure
 from planner.monitoring import MAX_RECORD_BYTES, Record, parse_record
 from planner.scenario.io import MAX_SCENARIO_BYTES
-from webapp import compute, ids
+from webapp import ids
 from webapp.files import upload_text
+from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure, working_scenario
+from webapp.views.common import placeholder_figure, stopped_figure, working_scenario
 
-SHOWN = {"display": "flex"}
-HIDDEN = {"display": "none"}
+JOB = JobIds(
+    run=None,  # the upload starts the fit
+    box=ids.DATA_PROGRESS_BOX,
+    bar=ids.DATA_PROGRESS,
+    text=ids.DATA_PROGRESS_TEXT,
+    cancel=ids.DATA_CANCEL,
+)
 # The app refuses requests above 8 x MAX_SCENARIO_BYTES (create_app); a record's base64 text
 # (4/3 of the file) must fit inside that with room to spare.
 MAX_UPLOAD_BYTES = min(MAX_RECORD_BYTES, 4 * MAX_SCENARIO_BYTES)
@@ -47,18 +53,7 @@ def layout() -> html.Div:
                 multiple=False,
                 className="upload-box",
             ),
-            html.Div(
-                [
-                    html.Label(
-                        "Fit progress", htmlFor=ids.DATA_PROGRESS, className="progress-label"
-                    ),
-                    html.Progress(id=ids.DATA_PROGRESS, value="0", max="100"),
-                    html.Span(id=ids.DATA_PROGRESS_TEXT, className="progress-text"),
-                ],
-                id=ids.DATA_PROGRESS_BOX,
-                className="progress-box",
-                style=HIDDEN,
-            ),
+            job_progress(JOB, "Fit progress"),
             html.Div(id=ids.DATA_MESSAGE, className="message-area", role="alert"),
             dcc.Graph(
                 id=ids.DATA_FIT_GRAPH,
@@ -91,7 +86,7 @@ def problem_lines(error: InputError) -> html.Ul:
 
 
 def run_fit(set_progress, contents, filename, working):
-    """Background worker -> (fit figure, diagram figure, summary, message)."""
+    """The job, in its worker process -> (fit figure, diagram figure, summary, message)."""
     if not contents:
         return no_update, no_update, no_update, ""
     scenario = working_scenario(working)
@@ -99,11 +94,12 @@ def run_fit(set_progress, contents, filename, working):
         return no_update, no_update, no_update, "Choose a scenario first."
     from planner.calibration import fit_record, fit_text, observations_for
 
-    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
     try:
         record = read_record_upload(contents, filename)
         observations = observations_for(record, scenario)
-        fit = fit_record(scenario, observations, bootstrap=0, progress=report)
+        fit = fit_record(
+            scenario, observations, bootstrap=0, progress=progress_reporter(set_progress)
+        )
     except InputError as error:
         blank = placeholder_figure("No fit: see the message above")
         return blank, blank, "", problem_lines(error)
@@ -112,19 +108,29 @@ def run_fit(set_progress, contents, filename, working):
     return figure, diagram, fit_text(fit, caution=False), ""
 
 
+def stopped(text: str) -> tuple:
+    """The outputs of a fit stopped before it finished: blank figures and why."""
+    return stopped_figure(), stopped_figure(), "", text
+
+
 def register(callback, settings: Settings) -> None:
-    callback(
-        Output(ids.DATA_FIT_GRAPH, "figure"),
-        Output(ids.DATA_DIAGRAM_GRAPH, "figure"),
-        Output(ids.DATA_SUMMARY, "children"),
-        Output(ids.DATA_MESSAGE, "children"),
-        Input(ids.DATA_UPLOAD, "contents"),
-        State(ids.DATA_UPLOAD, "filename"),
-        State(ids.WORKING, "data"),
-        background=True,
-        interval=400,
-        progress=[Output(ids.DATA_PROGRESS, "value"), Output(ids.DATA_PROGRESS_TEXT, "children")],
-        progress_default=["0", ""],
-        running=[(Output(ids.DATA_PROGRESS_BOX, "style"), SHOWN, HIDDEN)],
-        prevent_initial_call=True,
-    )(run_fit)
+    register_job(
+        callback,
+        settings,
+        run_fit,
+        JOB,
+        name="fit",
+        what="fit",
+        outputs=[
+            Output(ids.DATA_FIT_GRAPH, "figure"),
+            Output(ids.DATA_DIAGRAM_GRAPH, "figure"),
+            Output(ids.DATA_SUMMARY, "children"),
+            Output(ids.DATA_MESSAGE, "children"),
+        ],
+        inputs=[
+            Input(ids.DATA_UPLOAD, "contents"),
+            State(ids.DATA_UPLOAD, "filename"),
+            State(ids.WORKING, "data"),
+        ],
+        stopped=stopped,
+    )

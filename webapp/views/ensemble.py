@@ -1,6 +1,7 @@
 """Uncertainty: every schedule run for many members drawn from the scenario's ``[uncertainty]``
-block (``planner.ensemble.run_ensemble``) by a background worker with a progress bar; the
-chance of recovery by year, a fan chart per schedule and the ensemble table."""
+block (``planner.ensemble.run_ensemble``) as a long job (``webapp.jobs``: a worker process with a
+progress bar, Cancel and a budget); the chance of recovery by year, a fan chart per schedule and
+the ensemble table."""
 
 from __future__ import annotations
 
@@ -11,11 +12,17 @@ from planner.errors import InputError, Problem
 from planner.figures import ensemble_fan_figure, recovery_by_year_figure
 from planner.scenario import Scenario
 from webapp import compute, ids
+from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure, working_scenario
+from webapp.views.common import placeholder_figure, stopped_figure, working_scenario
 
-SHOWN = {"display": "flex"}
-HIDDEN = {"display": "none"}
+JOB = JobIds(
+    run=ids.ENSEMBLE_RUN,
+    box=ids.ENSEMBLE_PROGRESS_BOX,
+    bar=ids.ENSEMBLE_PROGRESS,
+    text=ids.ENSEMBLE_PROGRESS_TEXT,
+    cancel=ids.ENSEMBLE_CANCEL,
+)
 DEFAULT_MEMBERS = 500  # without an [uncertainty] block giving the number
 MOST_MEMBERS = 20_000  # the app's cap (the command line allows more)
 NO_UNCERTAINTY = (
@@ -48,26 +55,10 @@ def layout() -> html.Div:
                         debounce=False,
                     ),
                     html.Button("Run", id=ids.ENSEMBLE_RUN, className="button primary"),
-                    html.Button(
-                        "Cancel", id=ids.ENSEMBLE_CANCEL, className="button", disabled=True
-                    ),
                 ],
                 className="inline-row",
             ),
-            html.Div(
-                [
-                    html.Label(
-                        "Ensemble progress",
-                        htmlFor=ids.ENSEMBLE_PROGRESS,
-                        className="progress-label",
-                    ),
-                    html.Progress(id=ids.ENSEMBLE_PROGRESS, value="0", max="100"),
-                    html.Span(id=ids.ENSEMBLE_PROGRESS_TEXT, className="progress-text"),
-                ],
-                id=ids.ENSEMBLE_PROGRESS_BOX,
-                className="progress-box",
-                style=HIDDEN,
-            ),
+            job_progress(JOB, "Ensemble progress"),
             html.Div(id=ids.ENSEMBLE_MESSAGE, className="message-area", role="alert"),
             dcc.Graph(
                 id=ids.ENSEMBLE_GRAPH,
@@ -121,7 +112,8 @@ def table_of(header, rows) -> html.Table:
 
 
 def run(set_progress, _clicks, working, members_text):
-    """Background worker -> (recovery figure, fan figures, choices, choice, table, message)."""
+    """The job, in its worker process -> (recovery figure, fan figures, choices, choice, table,
+    message)."""
     scenario = working_scenario(working)
     if scenario is None:
         return (no_update,) * 5 + ("Choose a scenario first.",)
@@ -131,10 +123,9 @@ def run(set_progress, _clicks, working, members_text):
     try:
         members = members_of(members_text, scenario)
         diagram, _ = compute.diagram_of(scenario)
-        report = compute.throttled(
-            lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}"))
+        ensemble = run_ensemble(
+            scenario, members=members, diagram=diagram, progress=progress_reporter(set_progress)
         )
-        ensemble = run_ensemble(scenario, members=members, diagram=diagram, progress=report)
     except InputError as error:
         message = "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
         return (no_update,) * 5 + (message,)
@@ -154,32 +145,34 @@ def fan(choice, fans):
     return go.Figure(fans[choice])
 
 
+def stopped(text: str) -> tuple:
+    """The outputs of an ensemble stopped before it finished: blank figures and why."""
+    return stopped_figure(), None, [], None, "", text
+
+
 def register(callback, settings: Settings) -> None:
-    callback(
-        Output(ids.ENSEMBLE_GRAPH, "figure"),
-        Output(ids.ENSEMBLE_FANS, "data"),
-        Output(ids.ENSEMBLE_CHOICE, "options"),
-        Output(ids.ENSEMBLE_CHOICE, "value"),
-        Output(ids.ENSEMBLE_TABLE, "children"),
-        Output(ids.ENSEMBLE_MESSAGE, "children"),
-        Input(ids.ENSEMBLE_RUN, "n_clicks"),
-        State(ids.WORKING, "data"),
-        State(ids.ENSEMBLE_MEMBERS, "value"),
-        background=True,
-        interval=400,
-        progress=[
-            Output(ids.ENSEMBLE_PROGRESS, "value"),
-            Output(ids.ENSEMBLE_PROGRESS_TEXT, "children"),
+    register_job(
+        callback,
+        settings,
+        run,
+        JOB,
+        name="ensemble",
+        what="ensemble",
+        outputs=[
+            Output(ids.ENSEMBLE_GRAPH, "figure"),
+            Output(ids.ENSEMBLE_FANS, "data"),
+            Output(ids.ENSEMBLE_CHOICE, "options"),
+            Output(ids.ENSEMBLE_CHOICE, "value"),
+            Output(ids.ENSEMBLE_TABLE, "children"),
+            Output(ids.ENSEMBLE_MESSAGE, "children"),
         ],
-        progress_default=["0", ""],
-        running=[
-            (Output(ids.ENSEMBLE_RUN, "disabled"), True, False),
-            (Output(ids.ENSEMBLE_CANCEL, "disabled"), False, True),
-            (Output(ids.ENSEMBLE_PROGRESS_BOX, "style"), SHOWN, HIDDEN),
+        inputs=[
+            Input(ids.ENSEMBLE_RUN, "n_clicks"),
+            State(ids.WORKING, "data"),
+            State(ids.ENSEMBLE_MEMBERS, "value"),
         ],
-        cancel=[Input(ids.ENSEMBLE_CANCEL, "n_clicks")],
-        prevent_initial_call=True,
-    )(run)
+        stopped=stopped,
+    )
     callback(
         Output(ids.ENSEMBLE_FAN_GRAPH, "figure"),
         Input(ids.ENSEMBLE_CHOICE, "value"),

@@ -1,7 +1,8 @@
 """Recovery frontier and cheapest schedule: the least hold for each overshoot depth
 (``planner.frontier.recovery_frontier``) and the search for the cheapest recovering schedule
-(``planner.search.search``), both run by a background worker with a progress bar; the schedule
-found can be appended to the scenario so the editor and the table show it."""
+(``planner.search.search``), each a long job (``webapp.jobs``: a worker process with a progress
+bar, Cancel and a budget); the schedule found can be appended to the scenario so the editor and
+the table show it."""
 
 from __future__ import annotations
 
@@ -10,28 +11,28 @@ from dash import Input, Output, State, dcc, html, no_update
 from planner.errors import InputError, Problem
 from planner.figures import frontier_figure, pareto_figure
 from webapp import compute, ids
+from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import money, placeholder_figure, working_scenario
+from webapp.views.common import money, placeholder_figure, stopped_figure, working_scenario
 
-SHOWN = {"display": "flex"}
-HIDDEN = {"display": "none"}
+FRONTIER_JOB = JobIds(
+    run=ids.FRONTIER_RUN,
+    box=ids.FRONTIER_PROGRESS_BOX,
+    bar=ids.FRONTIER_PROGRESS,
+    text=ids.FRONTIER_PROGRESS_TEXT,
+    cancel=ids.FRONTIER_CANCEL,
+)
+SEARCH_JOB = JobIds(
+    run=ids.SEARCH_RUN,
+    box=ids.SEARCH_PROGRESS_BOX,
+    bar=ids.SEARCH_PROGRESS,
+    text=ids.SEARCH_PROGRESS_TEXT,
+    cancel=ids.SEARCH_CANCEL,
+)
 
 
 def _problems(error: InputError) -> str:
     return "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
-
-
-def _progress_box(box: str, bar: str, text: str, label: str) -> html.Div:
-    return html.Div(
-        [
-            html.Label(label, htmlFor=bar, className="progress-label"),
-            html.Progress(id=bar, value="0", max="100"),
-            html.Span(id=text, className="progress-text"),
-        ],
-        id=box,
-        className="progress-box",
-        style=HIDDEN,
-    )
 
 
 def _number_field(field_id: str, label: str) -> html.Span:
@@ -82,17 +83,10 @@ def layout() -> html.Div:
                 ],
                 className="inline-row",
             ),
-            _progress_box(
-                ids.FRONTIER_PROGRESS_BOX,
-                ids.FRONTIER_PROGRESS,
-                ids.FRONTIER_PROGRESS_TEXT,
-                "Frontier progress",
-            ),
+            job_progress(FRONTIER_JOB, "Frontier progress"),
             html.Div(id=ids.FRONTIER_MESSAGE, className="message-area", role="alert"),
             _graph(ids.FRONTIER_GRAPH, "Draw the frontier to see the least hold for each depth"),
-            _progress_box(
-                ids.SEARCH_PROGRESS_BOX, ids.SEARCH_PROGRESS, ids.SEARCH_PROGRESS_TEXT, "Search"
-            ),
+            job_progress(SEARCH_JOB, "Search progress"),
             html.Div(id=ids.SEARCH_MESSAGE, className="message-area", role="alert"),
             _graph(ids.SEARCH_GRAPH, "Find the cheapest schedule to see cost against time"),
             html.P(id=ids.SEARCH_SUMMARY, className="hint"),
@@ -110,13 +104,9 @@ def layout() -> html.Div:
     )
 
 
-def _reporter(set_progress):
-    return compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
-
-
 def run_frontier(set_progress, _clicks, working, start_text=None, ramp_text=None, depths=None):
-    """Background worker -> (figure, message). ``depths`` (control units) only for tests;
-    the start year and ramp years as typed (blank: the planner's defaults)."""
+    """The job, in its worker process -> (figure, message). ``depths`` (control units) only for
+    tests; the start year and ramp years as typed (blank: the planner's defaults)."""
     scenario = working_scenario(working)
     if scenario is None:
         return no_update, "Choose a scenario first."
@@ -132,7 +122,11 @@ def run_frontier(set_progress, _clicks, working, start_text=None, ramp_text=None
         if ramp_years is not None:
             options["ramp_years"] = ramp_years
         frontier = recovery_frontier(
-            scenario, diagram=diagram, depths=depths, progress=_reporter(set_progress), **options
+            scenario,
+            diagram=diagram,
+            depths=depths,
+            progress=progress_reporter(set_progress),
+            **options,
         )
     except InputError as error:
         return placeholder_figure("No frontier for this scenario"), _problems(error)
@@ -160,7 +154,8 @@ def found_text(result, candidate, currency: str) -> str:
 
 
 def run_search(set_progress, _clicks, working):
-    """Background worker -> (figure, summary, found schedule data, add disabled, message)."""
+    """The job, in its worker process -> (figure, summary, found schedule data, add disabled,
+    message)."""
     scenario = working_scenario(working)
     if scenario is None:
         return no_update, no_update, no_update, no_update, "Choose a scenario first."
@@ -168,7 +163,7 @@ def run_search(set_progress, _clicks, working):
 
     diagram, _ = compute.diagram_of(scenario)
     try:
-        result = search(scenario, diagram=diagram, progress=_reporter(set_progress))
+        result = search(scenario, diagram=diagram, progress=progress_reporter(set_progress))
     except InputError as error:
         return placeholder_figure("No search for this scenario"), "", None, True, _problems(error)
     figure = pareto_figure(scenario, result)
@@ -200,48 +195,50 @@ def add_found(_clicks, working, loaded, found):
     return store, f"Added “{named['name']}” to the comparison (not saved yet)."
 
 
+def stopped_frontier(text: str) -> tuple:
+    """The outputs of a frontier stopped before it finished: a blank figure and why."""
+    return stopped_figure(), text
+
+
+def stopped_search(text: str) -> tuple:
+    """The outputs of a search stopped before it finished: nothing found to add, and why."""
+    return stopped_figure(), "", None, True, text
+
+
 def register(callback, settings: Settings) -> None:
-    callback(
-        Output(ids.FRONTIER_GRAPH, "figure"),
-        Output(ids.FRONTIER_MESSAGE, "children"),
-        Input(ids.FRONTIER_RUN, "n_clicks"),
-        State(ids.WORKING, "data"),
-        State(ids.FRONTIER_START_YEAR, "value"),
-        State(ids.FRONTIER_RAMP_YEARS, "value"),
-        background=True,
-        interval=400,
-        progress=[
-            Output(ids.FRONTIER_PROGRESS, "value"),
-            Output(ids.FRONTIER_PROGRESS_TEXT, "children"),
+    register_job(
+        callback,
+        settings,
+        run_frontier,
+        FRONTIER_JOB,
+        name="frontier",
+        what="frontier",
+        outputs=[Output(ids.FRONTIER_GRAPH, "figure"), Output(ids.FRONTIER_MESSAGE, "children")],
+        inputs=[
+            Input(ids.FRONTIER_RUN, "n_clicks"),
+            State(ids.WORKING, "data"),
+            State(ids.FRONTIER_START_YEAR, "value"),
+            State(ids.FRONTIER_RAMP_YEARS, "value"),
         ],
-        progress_default=["0", ""],
-        running=[
-            (Output(ids.FRONTIER_RUN, "disabled"), True, False),
-            (Output(ids.FRONTIER_PROGRESS_BOX, "style"), SHOWN, HIDDEN),
+        stopped=stopped_frontier,
+    )
+    register_job(
+        callback,
+        settings,
+        run_search,
+        SEARCH_JOB,
+        name="search",
+        what="search for the cheapest schedule",
+        outputs=[
+            Output(ids.SEARCH_GRAPH, "figure"),
+            Output(ids.SEARCH_SUMMARY, "children"),
+            Output(ids.SEARCH_FOUND, "data"),
+            Output(ids.SEARCH_ADD, "disabled"),
+            Output(ids.SEARCH_MESSAGE, "children"),
         ],
-        prevent_initial_call=True,
-    )(run_frontier)
-    callback(
-        Output(ids.SEARCH_GRAPH, "figure"),
-        Output(ids.SEARCH_SUMMARY, "children"),
-        Output(ids.SEARCH_FOUND, "data"),
-        Output(ids.SEARCH_ADD, "disabled"),
-        Output(ids.SEARCH_MESSAGE, "children"),
-        Input(ids.SEARCH_RUN, "n_clicks"),
-        State(ids.WORKING, "data"),
-        background=True,
-        interval=400,
-        progress=[
-            Output(ids.SEARCH_PROGRESS, "value"),
-            Output(ids.SEARCH_PROGRESS_TEXT, "children"),
-        ],
-        progress_default=["0", ""],
-        running=[
-            (Output(ids.SEARCH_RUN, "disabled"), True, False),
-            (Output(ids.SEARCH_PROGRESS_BOX, "style"), SHOWN, HIDDEN),
-        ],
-        prevent_initial_call=True,
-    )(run_search)
+        inputs=[Input(ids.SEARCH_RUN, "n_clicks"), State(ids.WORKING, "data")],
+        stopped=stopped_search,
+    )
     callback(
         Output(ids.LOADED, "data", allow_duplicate=True),
         Output(ids.SEARCH_ADD_MESSAGE, "children"),

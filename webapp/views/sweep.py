@@ -1,5 +1,5 @@
 """Quasi-static sweep: the loop a slowly dialled control traces (``planner.sweep.sweep_for``),
-run by a background worker with a progress bar and a cancel button."""
+run as a long job (``webapp.jobs``: a worker process with a progress bar, Cancel and a budget)."""
 
 from __future__ import annotations
 
@@ -10,11 +10,17 @@ from planner.figures import sweep_figure
 from planner.report import sweep_text
 from planner.sweep import checked_step
 from webapp import compute, ids
+from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import figure_panel
+from webapp.views.common import figure_panel, stopped_figure
 
-SHOWN = {"display": "flex"}
-HIDDEN = {"display": "none"}
+JOB = JobIds(
+    run=ids.SWEEP_RUN,
+    box=ids.SWEEP_PROGRESS_BOX,
+    bar=ids.SWEEP_PROGRESS,
+    text=ids.SWEEP_PROGRESS_TEXT,
+    cancel=ids.SWEEP_CANCEL,
+)
 
 
 def layout() -> html.Div:
@@ -38,22 +44,10 @@ def layout() -> html.Div:
                         debounce=False,
                     ),
                     html.Button("Run the sweep", id=ids.SWEEP_RUN, className="button primary"),
-                    html.Button("Cancel", id=ids.SWEEP_CANCEL, className="button", disabled=True),
                 ],
                 className="inline-row",
             ),
-            html.Div(
-                [
-                    html.Label(
-                        "Sweep progress", htmlFor=ids.SWEEP_PROGRESS, className="progress-label"
-                    ),
-                    html.Progress(id=ids.SWEEP_PROGRESS, value="0", max="100"),
-                    html.Span(id=ids.SWEEP_PROGRESS_TEXT, className="progress-text"),
-                ],
-                id=ids.SWEEP_PROGRESS_BOX,
-                className="progress-box",
-                style=HIDDEN,
-            ),
+            job_progress(JOB, "Sweep progress"),
             html.Div(id=ids.SWEEP_MESSAGE, className="message-area", role="alert"),
             *figure_panel(ids.SWEEP_GRAPH, "sweep", "Run the sweep to see the loop"),
             html.Pre(id=ids.SWEEP_SUMMARY, className="sweep-summary"),
@@ -74,7 +68,7 @@ def sweep_step(text: str | None, scenario) -> float | None:
 
 
 def run_sweep(set_progress, _clicks, working, step_text):
-    """Background worker -> (figure, summary text, message)."""
+    """The job, in its worker process -> (figure, summary text, message)."""
     if not working or not working.get("data"):
         return no_update, no_update, "Choose a scenario first."
     scenario = compute.scenario_of(working["data"])
@@ -84,34 +78,38 @@ def run_sweep(set_progress, _clicks, working, step_text):
         return no_update, no_update, "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
     from planner.sweep import sweep_for
 
-    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
     try:
-        sweep = sweep_for(scenario, step=step, progress=report)
+        sweep = sweep_for(scenario, step=step, progress=progress_reporter(set_progress))
     except InputError as error:
         return no_update, no_update, "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
     diagram, _ = compute.diagram_of(scenario)
     figure = sweep_figure(scenario, sweep, diagram)
     figure.update_layout(height=560)
-    return figure, sweep_text(scenario, sweep), ""
+    return figure, sweep_text(scenario, sweep, caution=False), ""  # the page shows it once
+
+
+def stopped(text: str) -> tuple:
+    """The outputs of a sweep stopped before it finished: a blank figure and why."""
+    return stopped_figure(), "", text
 
 
 def register(callback, settings: Settings) -> None:
-    callback(
-        Output(ids.SWEEP_GRAPH, "figure"),
-        Output(ids.SWEEP_SUMMARY, "children"),
-        Output(ids.SWEEP_MESSAGE, "children"),
-        Input(ids.SWEEP_RUN, "n_clicks"),
-        State(ids.WORKING, "data"),
-        State(ids.SWEEP_STEP, "value"),
-        background=True,
-        interval=400,
-        progress=[Output(ids.SWEEP_PROGRESS, "value"), Output(ids.SWEEP_PROGRESS_TEXT, "children")],
-        progress_default=["0", ""],
-        running=[
-            (Output(ids.SWEEP_RUN, "disabled"), True, False),
-            (Output(ids.SWEEP_CANCEL, "disabled"), False, True),
-            (Output(ids.SWEEP_PROGRESS_BOX, "style"), SHOWN, HIDDEN),
+    register_job(
+        callback,
+        settings,
+        run_sweep,
+        JOB,
+        name="sweep",
+        what="sweep",
+        outputs=[
+            Output(ids.SWEEP_GRAPH, "figure"),
+            Output(ids.SWEEP_SUMMARY, "children"),
+            Output(ids.SWEEP_MESSAGE, "children"),
         ],
-        cancel=[Input(ids.SWEEP_CANCEL, "n_clicks")],
-        prevent_initial_call=True,
-    )(run_sweep)
+        inputs=[
+            Input(ids.SWEEP_RUN, "n_clicks"),
+            State(ids.WORKING, "data"),
+            State(ids.SWEEP_STEP, "value"),
+        ],
+        stopped=stopped,
+    )
