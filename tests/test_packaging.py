@@ -199,3 +199,14 @@ def test_the_installed_command_lists_checks_and_compares_a_demo(installed):
 
     _run([command, "demos", "--copy-to", "lakes"], work)
     assert _copied(work / "lakes") == {name: (SCENARIOS / name).read_bytes() for name in BUNDLED}
+
+
+def test_readme_caution_is_the_one_caution():
+    """The README's caution is the project's one wording (planner.report.CAUTION), not a second
+    one (project rule: one caution, shown by the README, the app and every briefing)."""
+    from planner.report import CAUTION
+
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
+    section = readme.split("## Caution", 1)[1].split("\n## ", 1)[0]
+    words = " ".join(section.split())
+    assert " ".join(CAUTION.removeprefix("Caution: ").split()).lower() == words.lower()
