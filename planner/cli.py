@@ -17,6 +17,7 @@ import traceback
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from functools import partial
+from typing import Any
 
 from planner import __version__
 from planner.errors import InputError, Problem
@@ -39,29 +40,131 @@ def command(name: str):
     return register
 
 
-OUTPUT_OPTIONS = ("html", "csv", "out", "save_to")
+OUTPUT_OPTIONS = ("html", "pdf", "csv", "figure", "parquet", "members_parquet", "out", "save_to")
 """Options that name a file to write: checked before the work starts, never silently
 replaced (``--force`` replaces them)."""
+PARQUET_OPTIONS = ("parquet", "members_parquet")
 
 
-def _write(args: argparse.Namespace, option: str, text: str) -> None:
+def _write(args: argparse.Namespace, option: str, content: str | bytes) -> None:
     """Write the file named by ``option`` atomically; an existing one only with --force."""
     from planner.textfiles import write_user_text
 
     path = getattr(args, option)
-    write_user_text(path, text, overwrite=args.force)
+    if isinstance(content, bytes):
+        _write_bytes(path, content, overwrite=args.force)
+    else:
+        write_user_text(path, content, overwrite=args.force)
     LOG.info("wrote %s", path)
+
+
+def _write_page(args: argparse.Namespace, text: str) -> None:
+    """``--html`` and ``--pdf``: the page, and the same page printed by the system Chromium."""
+    if args.html:
+        _write(args, "html", text)
+    if args.pdf:
+        from planner.briefing import print_pdf
+
+        _write(args, "pdf", print_pdf(text))
+
+
+def _write_bytes(path: str, data: bytes, *, overwrite: bool) -> None:
+    """Bytes (an image, a Parquet file) written as :func:`planner.textfiles.write_user_text`
+    writes text: a temporary in the same folder, flushed to disk, then linked (no overwrite)
+    or renamed (``overwrite``) into place; an InputError naming the file if that fails.
+
+    Kept here only until planner.textfiles writes bytes itself (asked of its owner); then this
+    becomes a call to it."""
+    import contextlib
+    import tempfile
+
+    from planner.textfiles import (
+        TEMPORARY_SUFFIX,
+        _sync_folder,
+        _umask,
+        clean_stale_temporaries,
+    )
+
+    folder, name = os.path.split(os.path.abspath(path))
+    clean_stale_temporaries(folder)
+    exists = Problem(path, "(file)", "exists already; choose another name (or overwrite)")
+    try:
+        handle, temporary = tempfile.mkstemp(
+            dir=folder, prefix=f".{name}.", suffix=TEMPORARY_SUFFIX
+        )
+        try:
+            with os.fdopen(handle, "wb") as stream:
+                stream.write(data)
+                stream.flush()
+                os.fsync(stream.fileno())
+            os.chmod(temporary, 0o666 & ~_umask())
+            if overwrite:
+                os.replace(temporary, path)
+            else:
+                os.link(temporary, path)  # fails if the name appeared meanwhile
+                os.unlink(temporary)
+        except BaseException:
+            with contextlib.suppress(OSError):
+                os.unlink(temporary)
+            raise
+        _sync_folder(folder)
+    except FileExistsError:
+        raise InputError([exists]) from None
+    except OSError as error:
+        reason = f"cannot write: {error.strerror or error}"
+        raise InputError([Problem(path, "(file)", reason)]) from None
 
 
 def _check_outputs(args: argparse.Namespace) -> None:
     """Every output file asked for can be written, before any work (a long fit or search would
-    otherwise fail only at its end)."""
+    otherwise fail only at its end): its folder, an existing file without --force, and for an
+    image or a Parquet table its format and the libraries that write it."""
     from planner.textfiles import check_output
 
     for option in OUTPUT_OPTIONS:
         path = getattr(args, option, None)
         if path:
-            check_output(path, "--" + option.replace("_", "-"), overwrite=args.force)
+            name = "--" + option.replace("_", "-")
+            _check_format(path, option, name)
+            check_output(path, name, overwrite=args.force)
+
+
+def _check_format(path: str, option: str, name: str) -> None:
+    """An image's suffix (.png, .svg, .pdf) and kaleido with its Chromium; pyarrow for Parquet:
+    else an InputError naming the file and the option."""
+    from planner import api
+
+    if option == "figure":
+        try:
+            api.image_format(path)
+        except ValueError as error:
+            raise InputError([Problem(path, name, str(error))]) from None
+        missing = api.image_export_missing()
+    elif option in PARQUET_OPTIONS:
+        missing = api.parquet_missing()
+    elif option == "pdf":
+        from planner.briefing import pdf_printer_missing
+
+        missing = pdf_printer_missing()
+    else:
+        return
+    if missing:
+        raise InputError([Problem(path, name, missing)])
+
+
+def _export(args: argparse.Namespace, result: Any, figure: Any = None) -> None:
+    """``--figure`` and ``--parquet``: the result's figure (``figure`` when drawn already) as
+    an image, its table (``to_frame()``) as Parquet; ``--members-parquet``: its members' table
+    (``to_frame("members")``)."""
+    from planner import api
+
+    if getattr(args, "figure", None):
+        drawn = result.figure() if figure is None else figure
+        _write(args, "figure", api.figure_image(drawn, api.image_format(args.figure)))
+    if getattr(args, "parquet", None):
+        _write(args, "parquet", api.frame_parquet(result.to_frame()))
+    if getattr(args, "members_parquet", None):
+        _write(args, "members_parquet", api.frame_parquet(result.to_frame("members")))
 
 
 def _add_force(sub: argparse._SubParsersAction) -> None:
@@ -119,10 +222,10 @@ def _messages_to_stderr(*, quiet: bool, verbose: bool) -> Iterator[None]:
 
 @command("check")
 def _check(args: argparse.Namespace) -> int:
+    from planner import api
     from planner.report import check_text
-    from planner.scenario import load_scenario
 
-    print(check_text(load_scenario(args.file), args.file))
+    print(check_text(api.load(args.file), args.file))
     return EXIT_OK
 
 
@@ -136,33 +239,19 @@ def _schema(args: argparse.Namespace) -> int:
 
 @command("diagram")
 def _diagram(args: argparse.Namespace) -> int:
-    from planner.briefing import Section, page
-    from planner.equilibria import diagram_for, locate
-    from planner.figures import hysteresis_figure
+    from planner import api
+    from planner.briefing import diagram_briefing
     from planner.report import diagram_json, diagram_text
-    from planner.scenario import load_scenario
 
-    scenario = load_scenario(args.file)
-    diagram = diagram_for(scenario, progress=args.progress)
-    standing = locate(diagram, scenario.initial_state, scenario.current_control)
+    found = api.diagram(args.file, progress=args.progress)
+    scenario, diagram, standing = found.scenario, found.diagram, found.standing
     if args.json:
         print(json.dumps(diagram_json(scenario, diagram, standing), indent=2))
     else:
         print(diagram_text(scenario, diagram, standing))
-    if args.html:
-        figure = hysteresis_figure(scenario, diagram, standing=standing)
-        text = diagram_text(scenario, diagram, standing, caution=False)
-        _write(
-            args,
-            "html",
-            page(
-                scenario.name,
-                [
-                    Section("Equilibria and thresholds", figure=figure),
-                    Section("Summary", text=text),
-                ],
-            ),
-        )
+    if args.html or args.pdf:
+        _write_page(args, diagram_briefing(scenario, diagram, standing, source=args.file))
+    _export(args, found)
     return EXIT_OK
 
 
@@ -220,12 +309,55 @@ def _add_scenario_file(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("file", metavar="FILE", help="the scenario (TOML)")
 
 
-def _add_json_and_html(parser: argparse.ArgumentParser, html: str) -> None:
-    """``--json`` and ``--html OUT``, alike on every command that has them."""
+NOT_WRITTEN = "(default: not written)"
+
+
+def _add_outputs(
+    parser: argparse.ArgumentParser,
+    *,
+    html: str,
+    figure: str,
+    table: str,
+    csv: bool = False,
+) -> None:
+    """The output options, spelled and described alike on every command that has them:
+    ``--json``, ``--html OUT``, ``--csv OUT`` (where the table has a CSV), ``--parquet OUT``
+    (the command's table: its result's ``to_frame()``) and ``--figure OUT`` (its result's
+    ``figure()``). Files are checked before any work and replaced only with ``--force``."""
     parser.add_argument(
         "--json", action="store_true", help="print one JSON object instead of the text summary"
     )
-    parser.add_argument("--html", metavar="OUT", help=f"write {html}")
+    parser.add_argument("--html", metavar="OUT", help=f"write {html} {NOT_WRITTEN}")
+    parser.add_argument(
+        "--pdf",
+        metavar="OUT",
+        help=f"write the --html page as a PDF, printed by the system Chromium {NOT_WRITTEN}",
+    )
+    if csv:
+        parser.add_argument("--csv", metavar="OUT", help=f"write {table} as CSV {NOT_WRITTEN}")
+    _add_parquet(parser, "--parquet", table)
+    parser.add_argument(
+        "--figure",
+        metavar="OUT",
+        help=f"write {figure} as an image: PNG, SVG or PDF by OUT's suffix (needs the export "
+        f"extra and Chromium) {NOT_WRITTEN}",
+    )
+
+
+def _add_parquet(parser: argparse.ArgumentParser, option: str, table: str) -> None:
+    parser.add_argument(
+        option,
+        metavar="OUT",
+        help=f"write {table} as Parquet, each column typed (needs the export extra) {NOT_WRITTEN}",
+    )
+
+
+def _add_seed(parser: argparse.ArgumentParser, draws: str, **default: Any) -> None:
+    """``--seed S``, alike on every command that draws random numbers; ``draws`` says which
+    and, when the default is not a plain value, where it comes from."""
+    parser.add_argument(
+        "--seed", type=int, metavar="S", help=f"seed of the random draws: {draws}", **default
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -248,7 +380,12 @@ def build_parser() -> argparse.ArgumentParser:
     sub.add_parser("schema", help="print the JSON Schema of scenario files (for editors)")
     p = sub.add_parser("diagram", help="equilibria, folds, thresholds and where the lake stands")
     _add_scenario_file(p)
-    _add_json_and_html(p, "an HTML hysteresis diagram")
+    _add_outputs(
+        p,
+        html="an HTML hysteresis diagram",
+        figure="the hysteresis diagram",
+        table="the equilibrium curve (a row per point)",
+    )
     for extend in EXTENSIONS:
         extend(sub)
     _add_force(sub)
@@ -299,62 +436,54 @@ def _run(args: argparse.Namespace) -> int:
 
 @command("compare")
 def _compare(args: argparse.Namespace) -> int:
+    from planner import api
     from planner.briefing import comparison_briefing
-    from planner.outcomes import compare
     from planner.report import comparison_json, comparison_rows, comparison_text, table_csv
-    from planner.scenario import load_scenario
 
-    scenario = load_scenario(args.file)
-    comparison = compare(scenario, progress=args.progress)
+    comparison = api.compare(args.file, progress=args.progress)
     if args.json:
         print(json.dumps(comparison_json(comparison), indent=2))
     else:
         print(comparison_text(comparison))
     if args.csv:
         _write(args, "csv", table_csv(*comparison_rows(comparison)))
-    if args.html:
-        _write(args, "html", comparison_briefing(comparison))
+    if args.html or args.pdf:
+        _write_page(args, comparison_briefing(comparison, source=args.file))
+    _export(args, comparison)
     return EXIT_OK
 
 
 @command("sweep")
 def _sweep(args: argparse.Namespace) -> int:
-    from planner.briefing import Section, page
-    from planner.equilibria import diagram_for
-    from planner.figures import sweep_figure
+    from planner import api
+    from planner.briefing import sweep_briefing
     from planner.report import sweep_json, sweep_text
-    from planner.scenario import load_scenario
 
-    scenario = load_scenario(args.file)
-    from planner.sweep import sweep_for
-
-    sweep = sweep_for(scenario, step=args.step, progress=args.progress)
+    swept = api.hysteresis_sweep(
+        args.file, step=args.step, step_name="--step", progress=args.progress
+    )
+    scenario, sweep = swept.scenario, swept.sweep
     print(
         json.dumps(sweep_json(scenario, sweep), indent=2)
         if args.json
         else sweep_text(scenario, sweep)
     )
-    if args.html:
-        figure = sweep_figure(scenario, sweep, diagram_for(scenario))
-        _write(
-            args,
-            "html",
-            page(
-                scenario.name,
-                [
-                    Section("Quasi-static sweep", figure=figure),
-                    Section("Summary", text=sweep_text(scenario, sweep, caution=False)),
-                ],
-            ),
-        )
+    if args.html or args.pdf:
+        _write_page(args, sweep_briefing(scenario, sweep, source=args.file))
+    _export(args, swept)
     return EXIT_OK
 
 
 def _more_commands(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("compare", help="run every schedule: verdicts, metrics, costs, briefing")
     _add_scenario_file(p)
-    _add_json_and_html(p, "the HTML briefing")
-    p.add_argument("--csv", metavar="OUT", help="write the comparison table as CSV")
+    _add_outputs(
+        p,
+        html="the HTML briefing",
+        figure="the schedules on the equilibrium curve",
+        table="the comparison table (a row per schedule)",
+        csv=True,
+    )
     p = sub.add_parser("sweep", help="dial the control slowly up and down; find the jumps")
     _add_scenario_file(p)
     p.add_argument(
@@ -363,7 +492,12 @@ def _more_commands(sub: argparse._SubParsersAction) -> None:
         metavar="X",
         help="control step (default: the control range's width / {planner.sweep:DEFAULT_STEPS})",
     )
-    _add_json_and_html(p, "an HTML figure of the loop")
+    _add_outputs(
+        p,
+        html="an HTML figure of the loop",
+        figure="the loop",
+        table="the sweep (a row per step, up and down)",
+    )
 
 
 EXTENSIONS.append(_more_commands)
@@ -460,17 +594,18 @@ def _number_list(text: str | None, option: str) -> list[float] | None:
 
 @command("frontier")
 def _frontier(args: argparse.Namespace) -> int:
-    from planner.briefing import Section, page
-    from planner.figures import frontier_figure
-    from planner.frontier import frontier_json, frontier_rows, frontier_text, recovery_frontier
-    from planner.scenario import load_scenario
+    from planner import api
+    from planner.briefing import frontier_briefing
+    from planner.frontier import frontier_json, frontier_text
 
-    scenario = load_scenario(args.file)
-    frontier = recovery_frontier(
+    depths = _number_list(args.depths, "--depths")
+    holds = _number_list(args.hold_years, "--hold-years")
+    scenario = api.load(args.file)
+    frontier = api.overshoot_frontier(
         scenario,
         relax_to=args.relax_to,
-        depths=_number_list(args.depths, "--depths"),
-        hold_years=_number_list(args.hold_years, "--hold-years") or (),
+        depths=depths,
+        hold_years=holds,
         family=args.family,
         start_year=args.start_year,
         ramp_years=args.ramp_years,
@@ -478,60 +613,36 @@ def _frontier(args: argparse.Namespace) -> int:
         progress=args.progress,
     )
     print(json.dumps(frontier_json(frontier), indent=2) if args.json else frontier_text(frontier))
-    if args.html:
-        _write(
-            args,
-            "html",
-            page(
-                f"Recovery frontier: {scenario.name}",
-                [
-                    Section("How deep and how long", figure=frontier_figure(scenario, frontier)),
-                    Section("Least hold at each depth", table=frontier_rows(frontier)),
-                ],
-                summary=scenario.description,
-            ),
-        )
+    if args.html or args.pdf:
+        _write_page(args, frontier_briefing(scenario, frontier, source=args.file))
+    _export(args, frontier)
     return EXIT_OK
 
 
 @command("search")
 def _search(args: argparse.Namespace) -> int:
-    from planner.briefing import Section, page
-    from planner.figures import frontier_figure, pareto_figure
-    from planner.frontier import recovery_frontier
-    from planner.scenario import load_scenario
-    from planner.search import FAMILY_KINDS, save_found, search, search_json, search_text
+    from planner import api
+    from planner.briefing import search_briefing
+    from planner.search import save_found, search_json, search_text
 
-    scenario = load_scenario(args.file)
-    result = search(
-        scenario,
+    found = api.cheapest_schedule(
+        args.file,
         relax_to=args.relax_to,
         by_year=args.by_year,
-        families=args.family or FAMILY_KINDS,
-        source=args.file,
+        families=args.family,
         progress=args.progress,
     )
+    scenario, result = found.scenario, found.result
     print(json.dumps(search_json(result), indent=2) if args.json else search_text(result))
     if args.save_to:
         if result.cheapest is None:
             raise InputError([Problem(args.file, "schedules", "no admissible schedule to save")])
         _, saved = save_found(scenario, result.cheapest, args.save_to, overwrite=args.force)
         LOG.info("wrote %s with the schedule %r", args.save_to, saved.name)
-    if args.html:
-        frontier = recovery_frontier(scenario, relax_to=result.relax_to, source=args.file)
-        _write(
-            args,
-            "html",
-            page(
-                f"Cheapest recovering schedules: {scenario.name}",
-                [
-                    Section("Money against time", figure=pareto_figure(scenario, result)),
-                    Section("How deep and how long", figure=frontier_figure(scenario, frontier)),
-                    Section("Summary", text=search_text(result)),
-                ],
-                summary=scenario.description,
-            ),
-        )
+    if args.html or args.pdf:
+        frontier = api.overshoot_frontier(scenario, relax_to=result.relax_to, source=args.file)
+        _write_page(args, search_briefing(scenario, result, frontier, source=args.file))
+    _export(args, found)
     return EXIT_OK
 
 
@@ -578,7 +689,12 @@ def _frontier_commands(sub: argparse._SubParsersAction) -> None:
         "largest yearly change, or {planner.frontier:DEFAULT_RAMP_YEARS} yr each when it sets "
         "none)",
     )
-    _add_json_and_html(p, "an HTML figure of the frontier")
+    _add_outputs(
+        p,
+        html="an HTML figure of the frontier",
+        figure="the frontier",
+        table="the frontier table (a row per depth)",
+    )
     p = sub.add_parser("search", help="cheapest recovering schedule; money against time")
     _add_scenario_file(p)
     p.add_argument(
@@ -594,7 +710,12 @@ def _frontier_commands(sub: argparse._SubParsersAction) -> None:
         choices=("overshoot", "staircase"),
         help="a family of schedules to search (repeatable; default: every family)",
     )
-    _add_json_and_html(p, "an HTML page with the figures")
+    _add_outputs(
+        p,
+        html="an HTML page with the figures",
+        figure="money against time (the cost / time Pareto front)",
+        table="every schedule tried (a row each)",
+    )
     p.add_argument(
         "--save-to",
         metavar="NEW.toml",
@@ -625,23 +746,18 @@ def _assignments(items: list[str] | None, option: str) -> dict[str, str] | None:
 
 @command("fit")
 def _fit(args: argparse.Namespace) -> int:
-    from planner.briefing import Section, page
-    from planner.calibration import fit_json, fit_record, fit_text, observations_for
-    from planner.figures import fit_figure, fit_hysteresis_figure
-    from planner.monitoring import read_record
-    from planner.scenario import load_scenario, save_scenario
+    from planner import api
+    from planner.briefing import fit_briefing
+    from planner.calibration import fit_json, fit_text
+    from planner.scenario import save_scenario
 
-    scenario = load_scenario(args.scenario)
-    record = read_record(args.data, time_column=args.time_column)
-    observations = observations_for(
-        record,
-        scenario,
+    states = _assignments(args.state, "--state")
+    fit = api.fit(
+        args.data,
+        args.scenario,
+        time_column=args.time_column,
         control_column=args.control_column,
-        states=_assignments(args.state, "--state"),
-    )
-    fit = fit_record(
-        scenario,
-        observations,
+        states=states,
         fit=_name_list(args.fit),
         log=args.log,
         bootstrap=args.bootstrap,
@@ -652,47 +768,40 @@ def _fit(args: argparse.Namespace) -> int:
     if args.out:
         save_scenario(fit.fitted_scenario, args.out, overwrite=args.force)
         LOG.info("wrote %s (the fitted scenario). %s", args.out, fit.priors_note)
-    if args.html:
-        _write(
-            args,
-            "html",
-            page(
-                f"Fit to monitoring data: {scenario.name}",
-                [
-                    Section("Record and fitted model", figure=fit_figure(fit)),
-                    Section("Thresholds of the fitted lake", figure=fit_hysteresis_figure(fit)),
-                    Section("Summary", text=fit_text(fit, caution=False)),
-                ],
-                summary=scenario.description,
-            ),
-        )
+    if args.html or args.pdf:
+        _write_page(args, fit_briefing(fit, source=args.scenario))
+    _export(args, fit)
     return EXIT_OK
 
 
 @command("signals")
 def _signals(args: argparse.Namespace) -> int:
+    from planner import api
     from planner.briefing import Section, page
-    from planner.figures import signals_figure
-    from planner.monitoring import read_record
-    from planner.signals import record_signals, signals_json, signals_text
+    from planner.signals import signals_json, signals_text
 
-    record = read_record(args.data, time_column=args.time_column)
-    signals = record_signals(
-        record, args.column, window=args.window, bandwidth=args.bandwidth, before=args.before
+    signals = api.early_warnings(
+        args.data,
+        args.column,
+        time_column=args.time_column,
+        window=args.window,
+        bandwidth=args.bandwidth,
+        before=args.before,
     )
     print(json.dumps(signals_json(signals), indent=2) if args.json else signals_text(signals))
-    if args.html:
-        _write(
+    figure = signals.figure() if args.html or args.pdf or args.figure else None
+    if args.html or args.pdf:
+        _write_page(
             args,
-            "html",
             page(
                 f"Early-warning indicators: {args.data}",
                 [
-                    Section("Indicators", figure=signals_figure(signals)),
+                    Section("Indicators", figure=figure),
                     Section("Summary", text=signals_text(signals, caution=False)),
                 ],
             ),
         )
+    _export(args, signals, figure)
     return EXIT_OK
 
 
@@ -729,7 +838,7 @@ def _monitoring_commands(sub: argparse._SubParsersAction) -> None:
         metavar="N",
         help="bootstrap replicates; 0 for none (default: {planner.calibration:DEFAULT_BOOTSTRAP})",
     )
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the bootstrap draws")
+    _add_seed(p, "the bootstrap's resampling", default=0)
     p.add_argument(
         "--control-column",
         metavar="NAME",
@@ -743,7 +852,12 @@ def _monitoring_commands(sub: argparse._SubParsersAction) -> None:
         help="the column observing a model variable (repeatable; default: the column named like "
         "the variable, or the only data column left for the target variable)",
     )
-    _add_json_and_html(p, "an HTML page with the figures")
+    _add_outputs(
+        p,
+        html="an HTML page with the figures",
+        figure="the record and the fitted model",
+        table="the fitted values and their intervals (a row per parameter, state, threshold)",
+    )
     p = sub.add_parser("signals", help="early-warning indicators of one monitored series")
     _add_record_file(
         p, "time and one or more data columns of any real values (anomalies and logs too)"
@@ -769,7 +883,12 @@ def _monitoring_commands(sub: argparse._SubParsersAction) -> None:
         metavar="TIME",
         help="use only times before this (default: the whole record)",
     )
-    _add_json_and_html(p, "an HTML page with the figures")
+    _add_outputs(
+        p,
+        html="an HTML page with the figures",
+        figure="the indicators",
+        table="the series, its trend and the indicators (a row per time)",
+    )
 
 
 EXTENSIONS.append(_monitoring_commands)
@@ -777,23 +896,21 @@ EXTENSIONS.append(_monitoring_commands)
 
 @command("ensemble")
 def _ensemble(args: argparse.Namespace) -> int:
-    from planner.ensemble import DEFAULT_CHUNK, run_ensemble
+    from planner import api
     from planner.ensemble_report import ensemble_briefing, ensemble_json, ensemble_text
-    from planner.scenario import load_scenario
 
-    scenario = load_scenario(args.file)
-    ensemble = run_ensemble(
-        scenario,
+    ensemble = api.chance_of_recovery(
+        args.file,
         members=args.members,
         seed=args.seed,
         scheduler=args.scheduler,
-        chunk_size=DEFAULT_CHUNK if args.chunk is None else args.chunk,
+        chunk_size=args.chunk,
         progress=args.progress,
-        source=args.file,
     )
     print(json.dumps(ensemble_json(ensemble), indent=2) if args.json else ensemble_text(ensemble))
-    if args.html:
-        _write(args, "html", ensemble_briefing(ensemble))
+    if args.html or args.pdf:
+        _write_page(args, ensemble_briefing(ensemble, source=args.file))
+    _export(args, ensemble)
     return EXIT_OK
 
 
@@ -809,12 +926,10 @@ def _ensemble_command(sub: argparse._SubParsersAction) -> None:
         help="ensemble members (default: the scenario's [uncertainty] members, "
         "{planner.scenario.uncertainty:Uncertainty.members} when it sets none)",
     )
-    p.add_argument(
-        "--seed",
-        type=int,
-        metavar="S",
-        help="seed of the random draws (default: the scenario's [uncertainty] seed, "
-        "{planner.scenario.uncertainty:Uncertainty.seed} when it sets none)",
+    _add_seed(
+        p,
+        "the members' parameters, loads and noise (default: the scenario's [uncertainty] "
+        "seed, {planner.scenario.uncertainty:Uncertainty.seed} when it sets none)",
     )
     p.add_argument(
         "--scheduler",
@@ -830,10 +945,55 @@ def _ensemble_command(sub: argparse._SubParsersAction) -> None:
         help="members simulated together, which bounds memory "
         "(default: {planner.ensemble:DEFAULT_CHUNK})",
     )
-    _add_json_and_html(p, "an HTML page with the figures")
+    _add_outputs(
+        p,
+        html="an HTML page with the figures",
+        figure="the chance of meeting the target by each year",
+        table="the summary (a row per schedule)",
+    )
+    _add_parquet(
+        p,
+        "--members-parquet",
+        "every member's drawn parameters and outcome (a row per member and schedule)",
+    )
 
 
 EXTENSIONS.append(_ensemble_command)
+
+
+@command("demos")
+def _demos(args: argparse.Namespace) -> int:
+    from planner.demos import copy_demos, demo_folder, demo_names, demo_path
+    from planner.scenario import load_scenario
+
+    if args.copy_to:  # every target is checked before the first is written
+        for path in copy_demos(args.copy_to, overwrite=args.force):
+            LOG.info("wrote %s", path)
+    names = demo_names()
+    width = max(map(len, names), default=0)
+    for name in names:
+        print(f"{name:<{width}}  {load_scenario(demo_path(name)).name}")
+    if not args.copy_to:
+        LOG.info("in %s (copy them for editing with --copy-to DIR)", demo_folder())
+    return EXIT_OK
+
+
+def _demos_command(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("demos", help="list the bundled demo scenarios; copy them for editing")
+    p.add_argument(
+        "--copy-to",
+        metavar="DIR",
+        help="copy the demos and their monitoring record into DIR, created if its parent "
+        "exists (default: not copied, only listed)",
+    )
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace output files that exist already (default: keep them and stop)",
+    )
+
+
+EXTENSIONS.append(_demos_command)
 
 
 if __name__ == "__main__":

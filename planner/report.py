@@ -284,7 +284,8 @@ def diagram_text(scenario, diagram: Diagram, standing: Standing, *, caution: boo
             "again once it has recovered."
         )
     lines += lake_lines(scenario, diagram, standing)
-    lines += ["", CAUTION]
+    if caution:
+        lines += ["", CAUTION]
     return "\n".join(lines)
 
 
@@ -810,3 +811,140 @@ def sweep_text(scenario, sweep, *, caution: bool = True) -> str:
     if caution:
         lines += ["", CAUTION]
     return "\n".join(lines)
+
+
+# ---------------------------------------------------------------------------------------------
+# The briefing's plain words: what the thresholds mean, where the lake stands, which schedule
+
+
+def threshold_meaning(scenario, kind: str) -> str:
+    """What the recovery or collapse threshold means, in words (the briefing's "why it
+    matters" beside each threshold), naming the control as the scenario labels it."""
+    name = scenario.control.label or scenario.control.parameter
+    if name[:1].isupper() and name[1:2].islower():  # "External P load", not "TP load"
+        name = name[:1].lower() + name[1:]
+    meanings = {
+        "recovery": f"the {name} below which the undesired state can no longer persist, so "
+        "the lake can return to the desired state",
+        "collapse": f"the {name} above which the desired state is lost and the lake flips to "
+        "the undesired state",
+    }
+    return meanings[kind]
+
+
+def threshold_lake_words(scenario, diagram: Diagram, kind: str) -> str | None:
+    """The threshold's lake line (load in kg or t per year, lake TP in ug/L and its trophic
+    state), as the diagram text says it; None without a [lake] block or that threshold."""
+    conversion = _lake_conversion(scenario)
+    if conversion is None:
+        return None
+    threshold = {"recovery": diagram.recovery, "collapse": diagram.collapse}[kind]
+    line = _threshold_line(conversion, kind, threshold, scenario.target_index)
+    return None if line is None else line.strip()
+
+
+def standing_words(scenario, standing: Standing) -> str:
+    """Where the lake settles with the control held at today's value, in one sentence."""
+    from planner.units import significant
+
+    now = f"{significant(standing.control)} {scenario.control.unit}".strip()
+    if standing.attractor is None:
+        return f"Held at today's value ({now}), the current state {standing.status}."
+    regime = "the desired regime" if standing.desired else "the undesired regime"
+    return f"Held at today's value ({now}), the lake settles in {regime}."
+
+
+def _money(value: float, currency: str) -> str:
+    return f"{value:,.0f} {currency}".strip()
+
+
+def recommended(comparison, names=None):
+    """The schedule to recommend among those named (None: all): of the schedules that recover
+    and keep every limit, the one with the least present value, then the earliest year the
+    target is met for good, then the first in the file. None when no such schedule."""
+    candidates = [
+        (outcome.cost.present_value, _meets_or_never(outcome), i, outcome)
+        for i, outcome in enumerate(comparison.outcomes)
+        if (names is None or outcome.name in names) and outcome.recovered and outcome.feasible
+    ]
+    return min(candidates, key=lambda item: item[:3])[3] if candidates else None
+
+
+def _meets_or_never(outcome) -> float:
+    return math.inf if outcome.meets_target_at is None else outcome.meets_target_at
+
+
+def recommendation_words(comparison, names=None) -> str:
+    """Which schedule to pick and why (recovers, when the target is met, cost in present
+    value), or why none can be recommended, among the schedules named (None: all)."""
+    from planner.units import significant
+
+    scenario = comparison.scenario
+    shown = [o for o in comparison.outcomes if names is None or o.name in names]
+    if not shown:
+        return "No schedule is shown, so there is nothing to recommend."
+    count = f"{len(shown)} schedule{'s' if len(shown) != 1 else ''} shown"
+    best = recommended(comparison, names)
+    if best is None:
+        breaking = [o.name for o in shown if o.recovered and not o.feasible]
+        text = f"No schedule to recommend: none of the {count} brings the lake back to the "
+        text += "desired state while keeping every limit set in the scenario"
+        if breaking:
+            quoted = ", ".join(f"“{name}”" for name in breaking)
+            text += f" ({quoted} would recover but breaks a limit)"
+        return text + (
+            ". The recovery frontier shows how deep and how long a cut must be; the search "
+            "finds the cheapest schedule that recovers."
+        )
+    text = (
+        f"Recommended: “{best.name}”. Under this schedule the lake {verdict_text(scenario, best)}"
+    )
+    if best.meets_target_at is not None:
+        text += (
+            f" and meets the water-quality target from year {significant(best.meets_target_at)} on"
+        )
+    text += ", within every limit set in the scenario"
+    costs = scenario.costs
+    if costs is not None:
+        text += (
+            f". It costs {_money(best.cost.present_value, costs.currency)} in present value "
+            f"(discounted at {costs.discount_rate * 100:g}% a year; "
+            f"{_money(best.cost.total, costs.currency)} undiscounted)"
+        )
+    recovering = [o for o in shown if o.recovered and o.feasible]
+    if len(shown) == 1:
+        text += ". It is the only schedule shown."
+    elif len(recovering) == 1:
+        text += f". It is the only one of the {count} that recovers within the limits."
+    else:
+        k = len(recovering)
+        if k == len(shown):
+            lead = "Both schedules shown recover" if k == 2 else f"All {k} schedules shown recover"
+        else:
+            lead = f"{k} of the {count} recover"
+        basis = (
+            "the cheapest of them" if costs is not None else "the one that meets the target soonest"
+        )
+        text += f". {lead} within the limits; it is {basis}."
+    if costs is None:
+        text += " The scenario sets no costs."
+    return text
+
+
+def comparison_units(scenario) -> dict[str, str]:
+    """The unit of each comparison column that lacks one in its heading (the control's unit,
+    the currency); headings that carry theirs, such as "(yr)", are not listed."""
+    currency = scenario.costs.currency if scenario.costs is not None else ""
+    unit = scenario.control.unit
+    units = {
+        "Lowest control": unit,
+        "Overshoot depth": unit,
+        "Total cost": currency,
+        "Present value": currency,
+    }
+    return {heading: value for heading, value in units.items() if value}
+
+
+def with_units(header, units: dict[str, str]) -> tuple[str, ...]:
+    """Headings with their unit in brackets, "Present value (EUR)"."""
+    return tuple(f"{h} ({units[h]})" if h in units else h for h in header)

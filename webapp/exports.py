@@ -1,32 +1,37 @@
-"""Files the user downloads: PNG and HTML of a figure, CSV of the table, the briefing.
+"""Files the user downloads: PNG and HTML of a figure, CSV of the table, the briefing (HTML and
+PDF), and the results each tab offers to the briefing.
 
 PNG goes through plotly's image export (kaleido) on the system Chromium. One export server is
 started on first use and reused (a fresh browser per image takes seconds); Chromium is started
-through a small wrapper that adds flags keeping it off the network.
+through a small wrapper that adds the planner's flags keeping it off the network. The briefing's
+PDF is printed by the same Chromium (``planner.briefing.print_pdf``).
+
+A long job's result (sweep, frontier, search, ensemble, fit) becomes a briefing part
+(``planner.briefing.BriefingPart``) as the job ends: :func:`keep_part` files it on the server
+under the identity of the scenario it was computed from (the job runs in a worker process, so the
+file is on disk), and "Add to briefing" (:func:`offered_part`) copies it into the page's briefing
+store. A part whose scenario is not the one in the editor is never offered nor exported.
 """
 
 from __future__ import annotations
 
 import os
 import re
+import shlex
 import shutil
 import stat
 import tempfile
 import threading
 import warnings
 from pathlib import Path
+from typing import Any
 
 import plotly.graph_objects as go
 
-from planner.briefing import Section, page
+from planner.briefing import CHROMIUM_FLAGS, BriefingPart, Section, page
 
 CHROMIUM = Path("/usr/lib/chromium/chromium")
-QUIET_FLAGS = (
-    "--headless=new --no-sandbox --disable-gpu --disable-quic --no-first-run "
-    "--disable-background-networking --disable-component-update --disable-sync "
-    "--disable-dev-shm-usage "
-    '"--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost, EXCLUDE 127.0.0.1"'
-)
+QUIET_FLAGS = " ".join(shlex.quote(flag) for flag in CHROMIUM_FLAGS)
 PNG_SIZE = {"width": 1200, "height": 700}
 _lock = threading.Lock()
 _server_started = False
@@ -104,3 +109,83 @@ def slug(text: str) -> str:
     text = re.sub(r"\.toml$", "", text or "")
     text = re.sub(r"[^A-Za-z0-9]+", "-", text).strip("-").lower()
     return text[:60] or "scenario"
+
+
+# ---------------------------------------------------------------------------------------------
+# Results offered to the briefing
+
+PART_SECONDS = 24 * 3600  # how long a finished job's part waits on the server to be added
+PART_BYTES = 64 * 2**20  # the parts kept on disk, at most (oldest dropped first)
+_parts_folder: Path | None = None
+_parts_cache: Any = None
+_parts_pid: int | None = None
+_parts_memory: dict[str, dict] = {}  # without a folder (a single process: tests, notebooks)
+
+
+def use_parts_folder(folder: str | os.PathLike[str] | None) -> None:
+    """Keep offered parts in ``folder`` (None: in this process's memory only)."""
+    global _parts_folder, _parts_cache, _parts_pid
+    _parts_folder = None if folder is None else Path(folder)
+    _parts_cache, _parts_pid = None, None
+
+
+def _cache():
+    """The parts' disk cache opened by this process (a fresh handle after a fork)."""
+    global _parts_cache, _parts_pid
+    if _parts_folder is None:
+        return None
+    if _parts_cache is None or _parts_pid != os.getpid():
+        import diskcache
+
+        _parts_cache = diskcache.Cache(str(_parts_folder), size_limit=PART_BYTES)
+        _parts_pid = os.getpid()
+    return _parts_cache
+
+
+def _key(kind: str, scenario_key: str) -> str:
+    return f"briefing-part:{kind}:{scenario_key}"
+
+
+def _scenario_key(working: dict | None) -> str | None:
+    from webapp.views.staleness import identity
+
+    found = identity(working)
+    return None if found is None else found["key"]
+
+
+def keep_part(working: dict | None, part: BriefingPart) -> None:
+    """File a tab's finished result for the briefing under the scenario it came from (the
+    ``working`` store value the job was given); the latest of each kind per scenario is kept."""
+    key = _scenario_key(working)
+    if key is None:
+        return
+    data = part.to_json()
+    cache = _cache()
+    if cache is None:
+        _parts_memory[_key(part.kind, key)] = data
+    else:
+        cache.set(_key(part.kind, key), data, expire=PART_SECONDS)
+
+
+def offered_part(working: dict | None, kind: str) -> dict | None:
+    """``{"kind", "key", "part"}``: the latest result of ``kind`` for the scenario in the
+    editor, as the briefing store keeps it; None when none was run for this version."""
+    key = _scenario_key(working)
+    if key is None:
+        return None
+    cache = _cache()
+    found = _parts_memory.get(_key(kind, key)) if cache is None else cache.get(_key(kind, key))
+    return None if found is None else {"kind": kind, "key": key, "part": found}
+
+
+def current_parts(working: dict | None, added: dict | None) -> tuple[list[BriefingPart], list[str]]:
+    """The parts in the briefing store that belong to the scenario in the editor, and the kinds
+    left out because they were computed for another version of it."""
+    key = _scenario_key(working)
+    kept, left_out = [], []
+    for kind, entry in (added or {}).items():
+        if entry and entry.get("key") == key:
+            kept.append(BriefingPart.from_json(entry["part"]))
+        elif entry:
+            left_out.append(kind)
+    return kept, left_out

@@ -83,7 +83,7 @@ def summary(scenario: Scenario) -> html.Div:
         lines.append(html.P(f"Held at today's value, the lake settles in {regime}."))
     lines.append(
         html.Details(
-            [html.Summary("Full summary"), html.Pre(diagram_text(scenario, diagram, standing))],
+            [html.Summary("Full summary"), html.Pre(diagram_text(scenario, diagram, standing, caution=False))],
             className="details",
         )
     )
