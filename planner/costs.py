@@ -66,7 +66,8 @@ class CostBreakdown:
     """Costs of one schedule over the horizon, in ``currency``.
 
     ``yearly``: abatement plus damage cost of each year k = 1 .. ceil(horizon) (t in (k-1, k]),
-    undiscounted. Totals are undiscounted; ``present_value`` follows the module's convention.
+    undiscounted. ``actions_total``: one-off action costs plus in-lake measures' running costs.
+    Totals are undiscounted; ``present_value`` follows the module's convention.
     ``infeasible``: set when the reduction asked for exceeds the summed capacity of the measures.
     """
 
@@ -221,6 +222,7 @@ def schedule_costs(
     baseline: float,
     horizon: float,
     one_off: Sequence[tuple[float, float]] = (),
+    running: Sequence[tuple[float, float, float]] = (),
     not_met_by_year: np.ndarray | None = None,
     unit: str = "",
 ) -> CostBreakdown:
@@ -232,7 +234,10 @@ def schedule_costs(
       measure's unit cost so the numbers stay finite (at 0 when there are no measures).
     - damage: ``costs.damage_per_year`` for each year not meeting the target, by calendar year
       (``not_met_by_year``, years; see :func:`years_by_calendar_year`).
-    - actions: the one-off (time, cost) items at times in [0, horizon]; later ones fall outside.
+    - actions: the one-off (time, cost) items at times in [0, horizon]; later ones fall outside;
+      and the running costs of in-lake measures, (start, end, cost per year) items, paid for the
+      years of each calendar year inside [start, end) (:func:`years_by_calendar_year`) and
+      discounted as that year's flows.
 
     Discounting follows the module's end-of-year convention with ``costs.discount_rate``.
     """
@@ -244,12 +249,18 @@ def schedule_costs(
         damage = costs.damage_per_year * np.asarray(not_met_by_year, dtype=float)[:years]
     yearly = abatement + damage
     actions = [(float(t), float(c)) for t, c in one_off if 0.0 <= t <= horizon]
+    running_by_year = np.zeros(years)
+    for start, end, rate in running:
+        running_by_year += rate * years_by_calendar_year([(start, end)], horizon)
     growth = 1.0 + costs.discount_rate
-    present_value = float(np.sum(yearly * growth ** -np.arange(1.0, years + 1.0)))
+    discount = growth ** -np.arange(1.0, years + 1.0)
+    present_value = float(np.sum(yearly * discount))
     present_value += sum(c * growth**-t for t, c in actions)
+    if running:
+        present_value += float(np.sum(running_by_year * discount))
     abatement_total = float(abatement.sum())
     damage_total = float(damage.sum())
-    actions_total = float(sum(c for _, c in actions))
+    actions_total = float(sum(c for _, c in actions)) + float(running_by_year.sum())
     yearly.setflags(write=False)
     return CostBreakdown(
         currency=costs.currency,
@@ -280,6 +291,7 @@ def scenario_costs(
         baseline=scenario.current_control if costs.baseline is None else costs.baseline,
         horizon=horizon,
         one_off=timeline.one_off_costs,
+        running=timeline.running_costs,
         not_met_by_year=not_met_by_year,
         unit=scenario.control.unit,
     )

@@ -34,6 +34,12 @@ the integration tolerance) depend on the chunk it is in. Members share parameter
 factors across schedules (common random numbers); process noise is drawn per schedule, keyed by
 its name.
 
+In-lake measures (catalogue actions, :mod:`planner.measures`): each member draws its own effect
+factor and longevity from the catalogue's distributions (:func:`draw_measures`, a random stream
+of their own, so the other draws are those of the same ensemble without the measure), and the
+engine cuts the run wherever a member's dose stops working (longevities in whole months); a
+value fixed in the action is every member's.
+
 Costs: the abatement and action costs of a schedule are those of its planned path (the
 measures the manager pays for; weather moves the load, not the bill) and equal for all members;
 damages accrue per member while its target is not met (:mod:`planner.metrics`, crossing times
@@ -55,7 +61,6 @@ from statistics import NormalDist
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from scipy.special import ndtri
 
 from planner.equilibria import Diagram, diagram_for
 from planner.errors import InputError, Problem
@@ -65,14 +70,8 @@ from planner.metrics import Plan, damages, limits_for, plan, target_metrics, wat
 from planner.models import System
 from planner.progress import Progress, scaled, silent
 from planner.scenario import Scenario, Schedule, Uncertainty
-from planner.scenario.uncertainty import (
-    MAX_MEMBERS,
-    JointPrior,
-    LognormalPrior,
-    NormalPrior,
-    TriangularPrior,
-    UniformPrior,
-)
+from planner.scenario.uncertainty import MAX_MEMBERS, JointPrior, prior_quantiles
+from planner.schedules import ActionTimeline
 from planner.verdict import DIVERGED, RECOVERED, UNSETTLED, VERDICTS, Attractors, attractors, decide
 from planner.views import ResultViews
 
@@ -91,7 +90,7 @@ FIRST_PASSAGE_YEARS = 1.0  # first-passage runs draw their noise this many time 
 
 JOINT_REDRAWS = 100  # rounds of redrawing joint-prior members below a physical bound
 
-STREAM_PARAMETERS, STREAM_LOADS, STREAM_NOISE, STREAM_JOINT = 1, 2, 3, 4
+STREAM_PARAMETERS, STREAM_LOADS, STREAM_NOISE, STREAM_JOINT, STREAM_MEASURES = 1, 2, 3, 4, 5
 __all__ = ["VERDICTS", "first_passage_times", "run_ensemble", "wilson_interval"]
 
 SCHEME_DETERMINISTIC = "Dormand-Prince 8(5,3), adaptive, shared step"
@@ -118,35 +117,6 @@ def _sliced(blocks: list[np.ndarray], start: int, stop: int) -> np.ndarray:
     return np.concatenate(blocks, axis=-1)[..., start - offset : stop - offset]
 
 
-def _inverse_cdf(prior, p: np.ndarray) -> np.ndarray:
-    """Values of a prior at probabilities p in (0, 1) of its truncated distribution."""
-    point = prior.point
-    if point is not None:
-        return np.full(p.shape, float(point))
-    low = 0.0 if prior.lower is None else prior.cdf(prior.lower)
-    high = 1.0 if prior.upper is None else prior.cdf(prior.upper)
-    q = np.clip(low + p * (high - low), np.nextafter(low, 1.0), np.nextafter(high, 0.0))
-    if isinstance(prior, NormalPrior):
-        x = prior.mean + prior.sd * ndtri(q)
-    elif isinstance(prior, LognormalPrior):
-        x = prior.median * np.exp(prior.sigma * ndtri(q))
-    elif isinstance(prior, UniformPrior):
-        x = prior.low + q * (prior.high - prior.low)
-    elif isinstance(prior, TriangularPrior):
-        a, c, b = prior.low, prior.mode, prior.high
-        peak = (c - a) / (b - a)
-        x = np.where(
-            q < peak,
-            a + np.sqrt(q * (b - a) * (c - a)),
-            b - np.sqrt((1.0 - q) * (b - a) * (b - c)),
-        )
-    else:  # pragma: no cover - the schema admits no other kind
-        raise TypeError(type(prior).__name__)
-    if prior.lower is not None or prior.upper is not None:
-        x = np.clip(x, prior.lower, prior.upper)  # only rounding can reach past a bound
-    return x
-
-
 def draw_parameters(
     uncertainty: Uncertainty,
     start: int,
@@ -166,7 +136,7 @@ def draw_parameters(
         ]
         uniforms = _sliced(blocks, start, stop)
         drawn = {
-            prior.parameter: _inverse_cdf(prior, uniforms[j]) for j, prior in enumerate(priors)
+            prior.parameter: prior_quantiles(prior, uniforms[j]) for j, prior in enumerate(priors)
         }
     joint = uncertainty.joint
     if joint is not None:
@@ -259,6 +229,41 @@ def draw_load_factors(
     for k in range(1, years):
         z[k] = rho * z[k - 1] + innovation * shocks[k]
     return np.exp(sigma * z - 0.5 * sigma * sigma)
+
+
+def draw_measures(
+    seed: int, timeline: ActionTimeline, start: int, stop: int
+) -> dict[int, tuple[np.ndarray | float, np.ndarray | float]]:
+    """Each uncertain in-lake measure's effect factors and longevities (years) for members
+    start..stop-1, by action index: drawn from the catalogue's distributions for its lake type
+    (:mod:`planner.measures`) by inverse CDF, longevities in whole months
+    (:func:`planner.measures.whole_months`), a value fixed in the action kept as it is.
+
+    Two uniforms per member come from the measures' own stream, keyed by (seed, catalogue
+    entry, how many earlier actions of the schedule use that entry, block): independent of
+    the parameter, load and noise streams (a measure changes no other draw), of chunking, and
+    the same for the same use of an entry in every schedule (common random numbers).
+    """
+    from planner.measures import CATALOGUE, whole_months
+
+    out: dict[int, tuple[np.ndarray | float, np.ndarray | float]] = {}
+    for measure in timeline.uncertain_measures:
+        action = measure.action
+        figures = CATALOGUE[action.measure].figures(action.lake_type)
+        key = zlib.crc32(action.measure.encode("utf-8"))
+        blocks = [
+            _generator(seed, STREAM_MEASURES, key, measure.occurrence, b).random((2, RNG_BLOCK))
+            for b in _blocks(start, stop)
+        ]
+        uniforms = _sliced(blocks, start, stop)
+        effect = action.effect
+        if effect is None:
+            effect = prior_quantiles(figures.effect, uniforms[0])
+        longevity = action.longevity_years
+        if longevity is None:
+            longevity = whole_months(prior_quantiles(figures.longevity, uniforms[1]))
+        out[measure.index] = (effect, longevity)
+    return out
 
 
 # ---------------------------------------------------------------------------------------------
@@ -358,7 +363,10 @@ def _run_chunk(task: _Task, progress: Progress = silent) -> list[_MemberResults]
             draw = _noise_draw(uncertainty.seed, entry.noise_key, start, stop, noisy.size)
             noise = ProcessNoise(settings.noise, draw, settings.steps_per_year)
         planned = entry.plan
-        problem = Run(system, x0, planned.path, settings.horizon, planned.timeline, factors, noise)
+        timeline = planned.timeline.for_members(
+            draw_measures(uncertainty.seed, planned.timeline, start, stop)
+        )
+        problem = Run(system, x0, planned.path, settings.horizon, timeline, factors, noise)
         run = integrate(
             problem,
             save=Save(every=1.0),

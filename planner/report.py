@@ -678,6 +678,11 @@ def _target_line(scenario, conversion: LakeConversion) -> str | None:
         return None
     sign = "<=" if scenario.target.regime == "lowest" else ">="
     wanted = f"{conversion.variable} {sign} {significant(threshold)} {conversion.state_unit}"
+    if scenario.target.in_lake_tp:  # given as lake TP: say once how it became model units
+        wanted = (
+            f"{wanted.rstrip()}, set as {scenario.target.asked_words()}, "
+            f"{conversion.tp_words(threshold)}"
+        )
     return f"  Water-quality target {wanted.rstrip()}: {trophic_words(state)}"
 
 

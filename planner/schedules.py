@@ -14,7 +14,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from planner.scenario._base import MAX_YEARS
 from planner.scenario.schedule_blocks import (
+    InLakeMeasure,
     OvershootSchedule,
     ParameterPulse,
     PathSchedule,
@@ -345,58 +347,263 @@ def _pulse_multiplier(pulse: ParameterPulse, t: float | np.ndarray) -> float | n
     return np.where(t < pulse.start, 1.0, np.where(t < end, float(pulse.factor), after))
 
 
+@dataclass(frozen=True, eq=False)
+class MemberMeasure:
+    """An in-lake measure whose effect and longevity differ between ensemble members.
+
+    From each dose time in ``starts`` (years) the parameter is multiplied by ``factor`` for
+    ``longevity`` years, then not at all; overlapping doses do not compound. ``factor`` and
+    ``longevity`` are arrays over members (or floats). The engine reads it as a pulse that ends
+    at once (``decay_years`` 0): its parameter is then fixed on each stretch between cuts, and
+    :meth:`ActionTimeline.kinks` cuts at every member's end of effect.
+    """
+
+    parameter: str
+    name: str
+    starts: tuple[float, ...]
+    factor: float | np.ndarray
+    longevity: float | np.ndarray
+
+    decay_years = 0.0
+
+    @property
+    def start(self) -> float:
+        """Year of the first dose."""
+        return self.starts[0]
+
+    def active(self, t: float | np.ndarray) -> np.ndarray:
+        """Whether some dose works at time t (years): per member, (members,) for a scalar t, or
+        t's shape when t has one time per member."""
+        t = np.asarray(t, dtype=float)
+        longevity = np.asarray(self.longevity, dtype=float)
+        on = np.zeros(np.broadcast_shapes(t.shape, longevity.shape), dtype=bool)
+        for start in self.starts:
+            on |= (t >= start) & (t < start + longevity)
+        return on
+
+    def multiplier(self, t: float | np.ndarray, index: np.ndarray | None = None) -> np.ndarray:
+        """The multiplier at time t (years), per member; of the members ``index`` only (t then
+        one time or one per member of them) when given."""
+        picked = self if index is None else self.subset(index)
+        return np.where(picked.active(t), picked.factor, 1.0)
+
+    def subset(self, index: np.ndarray) -> MemberMeasure:
+        """The measure of some members only."""
+
+        def pick(value):
+            return value if np.ndim(value) == 0 else np.asarray(value)[index]
+
+        return MemberMeasure(
+            self.parameter, self.name, self.starts, pick(self.factor), pick(self.longevity)
+        )
+
+    def ends(self) -> np.ndarray:
+        """Every time (years) a dose starts or stops working, over all members."""
+        longevity = np.atleast_1d(np.asarray(self.longevity, dtype=float))
+        starts = np.asarray(self.starts, dtype=float)
+        return np.concatenate([starts, (starts[:, None] + longevity[None, :]).ravel()])
+
+
+@dataclass(frozen=True)
+class MeasurePlan:
+    """An in-lake measure action as one run plans it, and what an ensemble draws for it.
+
+    ``action``: the schedule's action (catalogue entry, lake type, doses, fixed values);
+    ``index``: its place among the schedule's actions; ``occurrence``: how many earlier actions
+    of the schedule use the same catalogue entry (members draw alike for the k-th use of an
+    entry in every schedule: common random numbers). ``effect`` and ``longevity`` are the
+    central values (medians, or the fixed values) one run uses; ``pulses`` the positions in
+    :attr:`ActionTimeline.pulses` of the pulses that carry them.
+    """
+
+    action: InLakeMeasure
+    index: int
+    occurrence: int
+    effect: float
+    longevity: float
+    pulses: tuple[int, ...]
+
+    @property
+    def certain(self) -> bool:
+        """Whether effect and longevity are both fixed (every member takes them)."""
+        return self.action.effect is not None and self.action.longevity_years is not None
+
+
+def _active_intervals(starts: tuple[float, ...], longevity: float) -> list[tuple[float, float]]:
+    """The union of [start, start + longevity) over the doses, as ordered disjoint intervals."""
+    merged: list[list[float]] = []
+    for start in sorted(starts):
+        end = start + longevity
+        if merged and start <= merged[-1][1]:
+            merged[-1][1] = max(merged[-1][1], end)
+        else:
+            merged.append([start, end])
+    return [(a, b) for a, b in merged]
+
+
+def measure_central_values(action: InLakeMeasure) -> tuple[float, float]:
+    """(effect factor, longevity in years) one deterministic run uses: the fixed values when the
+    action gives them, else the medians of the catalogue's distributions for its lake type (the
+    longevity in whole months, as every catalogue longevity)."""
+    from planner.measures import CATALOGUE, whole_months
+    from planner.scenario.uncertainty import prior_median
+
+    figures = CATALOGUE[action.measure].figures(action.lake_type)
+    effect = action.effect if action.effect is not None else prior_median(figures.effect)
+    if action.longevity_years is not None:
+        longevity = action.longevity_years
+    else:
+        longevity = whole_months(prior_median(figures.longevity))
+    return float(effect), float(longevity)
+
+
 @dataclass(frozen=True)
 class ActionTimeline:
     """Events and parameter multipliers of a schedule's actions.
 
     ``state_events``: (time in years, state variable, factor) sorted by time.
-    ``pulses``: the parameter pulses, in the order given.
+    ``pulses``: the parameter pulses, in the order given, then those of the in-lake measures:
+    at their central values a measure is one pulse (ending at once) per stretch during which a
+    dose works; in an ensemble (:meth:`for_members`) a :class:`MemberMeasure`.
     ``one_off_costs``: (time in years, cost in the scenario's currency) for every action, sorted by
-    time; a pulse's cost falls at its start.
+    time; a pulse's cost falls at its start, a measure's capital cost at each dose.
+    ``running_costs``: (start, end, cost per year) of the measures, over the years they are
+    planned to work (at their central longevity).
+    ``measures``: the in-lake measures, for ensembles to draw.
     """
 
     state_events: tuple[tuple[float, str, float], ...]
-    pulses: tuple[ParameterPulse, ...]
+    pulses: tuple[ParameterPulse | MemberMeasure, ...]
     one_off_costs: tuple[tuple[float, float], ...]
+    running_costs: tuple[tuple[float, float, float], ...] = ()
+    measures: tuple[MeasurePlan, ...] = ()
 
-    def multipliers(self, t: float | np.ndarray) -> dict[str, float | np.ndarray]:
+    def multipliers(
+        self, t: float | np.ndarray, index: np.ndarray | None = None
+    ) -> dict[str, float | np.ndarray]:
         """Per pulsed parameter, the product of all its pulses' multipliers at time t (years).
 
         A pulse multiplies by 1 before its start, by ``factor`` on [start, start + duration), and
         after that by 1 + (factor - 1) exp(-(t - end) / decay_years) if decay_years > 0, else 1.
+        A :class:`MemberMeasure` gives one multiplier per member (of the members ``index`` only,
+        when given).
         """
         out: dict[str, float | np.ndarray] = {}
         for pulse in self.pulses:
-            out[pulse.parameter] = out.get(pulse.parameter, 1.0) * _pulse_multiplier(pulse, t)
+            if isinstance(pulse, MemberMeasure):
+                value = pulse.multiplier(t, index)
+            else:
+                value = _pulse_multiplier(pulse, t)
+            out[pulse.parameter] = out.get(pulse.parameter, 1.0) * value
         return out
 
     def kinks(self, horizon: float) -> np.ndarray:
-        """Sorted unique times (years) in [0, horizon] where an action starts, ends or happens."""
+        """Sorted unique times (years) in [0, horizon] where an action starts, ends or happens
+        (for a :class:`MemberMeasure`, every member's)."""
         times = [event[0] for event in self.state_events]
+        extra = []
         for pulse in self.pulses:
-            times += [pulse.start, pulse.start + pulse.duration]
-        array = np.array(times, dtype=float)
+            if isinstance(pulse, MemberMeasure):
+                extra.append(pulse.ends())
+            else:
+                times += [pulse.start, pulse.start + pulse.duration]
+        array = np.concatenate([np.array(times, dtype=float), *extra])
         return np.unique(array[(array >= 0) & (array <= horizon)])
+
+    @property
+    def uncertain_measures(self) -> tuple[MeasurePlan, ...]:
+        """The in-lake measures whose effect or longevity an ensemble draws per member."""
+        return tuple(plan for plan in self.measures if not plan.certain)
+
+    def for_members(
+        self, draws: dict[int, tuple[np.ndarray | float, np.ndarray | float]]
+    ) -> ActionTimeline:
+        """This timeline with the in-lake measures of ``draws`` (action index -> (effect
+        factors, longevities), arrays over members) acting per member: their central pulses
+        replaced by :class:`MemberMeasure` objects. Costs stay as planned."""
+        if not draws:
+            return self
+        replaced = {i for plan in self.measures if plan.index in draws for i in plan.pulses}
+        pulses = [pulse for i, pulse in enumerate(self.pulses) if i not in replaced]
+        for plan in self.measures:
+            if plan.index not in draws:
+                continue
+            effect, longevity = draws[plan.index]
+            pulses.append(
+                MemberMeasure(
+                    parameter=plan.action.parameter,
+                    name=plan.action.name,
+                    starts=plan.action.dose_times,
+                    factor=effect,
+                    longevity=longevity,
+                )
+            )
+        return ActionTimeline(
+            state_events=self.state_events,
+            pulses=tuple(pulses),
+            one_off_costs=self.one_off_costs,
+            running_costs=self.running_costs,
+            measures=self.measures,
+        )
 
 
 def action_timeline(
     schedule: PathSchedule | StaircaseSchedule | OvershootSchedule,
 ) -> ActionTimeline:
-    """Collect a schedule's actions: state rescalings, parameter pulses and their one-off costs."""
+    """Collect a schedule's actions: state rescalings, parameter pulses, in-lake measures (at
+    their central values; see :func:`measure_central_values`) and their costs."""
     events: list[tuple[float, str, float]] = []
     pulses: list[ParameterPulse] = []
     costs: list[tuple[float, float]] = []
-    for action in schedule.actions:
+    running: list[tuple[float, float, float]] = []
+    measures: list[tuple[int, InLakeMeasure]] = []
+    for index, action in enumerate(schedule.actions):
         if isinstance(action, ScaleState):
             events.append((float(action.time), action.variable, float(action.factor)))
             costs.append((float(action.time), float(action.cost)))
         elif isinstance(action, ParameterPulse):
             pulses.append(action)
             costs.append((float(action.start), float(action.cost)))
+        elif isinstance(action, InLakeMeasure):
+            measures.append((index, action))
         else:
             raise TypeError(f"not an action: {type(action).__name__}")
+    plans: list[MeasurePlan] = []
+    used: dict[str, int] = {}
+    for index, action in measures:
+        effect, longevity = measure_central_values(action)
+        first = len(pulses)
+        for a, b in _active_intervals(action.dose_times, longevity):
+            b = min(b, a + MAX_YEARS)  # past any horizon: the rest never counts
+            pulses.append(
+                ParameterPulse(
+                    kind="parameter-pulse",
+                    name=action.name,
+                    parameter=action.parameter,
+                    factor=effect,
+                    start=a,
+                    duration=b - a,
+                )
+            )
+            if action.running_cost > 0:
+                running.append((a, b, float(action.running_cost)))
+        costs += [(float(t), float(action.capital_cost)) for t in action.dose_times]
+        occurrence = used.get(action.measure, 0)
+        used[action.measure] = occurrence + 1
+        plans.append(
+            MeasurePlan(
+                action=action,
+                index=index,
+                occurrence=occurrence,
+                effect=effect,
+                longevity=longevity,
+                pulses=tuple(range(first, len(pulses))),
+            )
+        )
     return ActionTimeline(
         state_events=tuple(sorted(events, key=lambda e: e[0])),
         pulses=tuple(pulses),
         one_off_costs=tuple(sorted(costs, key=lambda c: c[0])),
+        running_costs=tuple(running),
+        measures=tuple(plans),
     )

@@ -232,7 +232,7 @@ class Pieces:
 
     def _values_at(self, t, index: np.ndarray | None = None) -> tuple:
         """The free parameters at time t, then the values hoisted from them."""
-        multipliers = self.problem.actions.multipliers(t) if self.pulses else {}
+        multipliers = self.problem.actions.multipliers(t, index) if self.pulses else {}
         free = tuple(
             _pick(self.base[name], index) * multipliers.get(name, 1.0)
             for name in self.functions.free

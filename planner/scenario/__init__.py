@@ -13,6 +13,7 @@ from planner.scenario.lake import Lake
 from planner.scenario.model_block import BuiltinModel, FormulaModel
 from planner.scenario.root import Scenario, schedule_control_values
 from planner.scenario.schedule_blocks import (
+    InLakeMeasure,
     OvershootSchedule,
     ParameterPulse,
     PathSchedule,
@@ -38,6 +39,7 @@ def json_schema() -> dict:
 
 
 __all__ = [
+    "InLakeMeasure",
     "BuiltinModel",
     "Control",
     "JointPrior",

@@ -24,7 +24,14 @@ from planner.scenario._base import (
     Strict,
     raise_problems,
 )
-from planner.scenario.blocks import Control, Costs, Simulation, Target
+from planner.scenario.blocks import (
+    Control,
+    Costs,
+    Simulation,
+    Target,
+    resolved_target,
+    target_problems,
+)
 from planner.scenario.lake import Lake
 from planner.scenario.model_block import ModelBlock
 from planner.scenario.schedule_blocks import (
@@ -103,6 +110,19 @@ class Scenario(Strict):
         description="Lake area, depth and residence time, to report lake TP in ug/L and loads "
         "in kg/yr (default: none).",
     )
+
+    @model_validator(mode="wrap")
+    @classmethod
+    def _threshold_from_lake_tp(cls, data: Any, handler) -> Scenario:
+        """A target given as lake TP or a trophic class gets its threshold in the state's
+        units through the lake's morphometry (planner.scenario.blocks.resolved_target)."""
+        scenario = handler(data)
+        target = scenario.target
+        if target is None or not target.in_lake_tp:
+            return scenario
+        unit = scenario.state_units.get(target.variable, "")
+        raise_problems("scenario", target_problems(target, scenario.lake, unit), scenario.name)
+        return scenario.model_copy(update={"target": resolved_target(target, scenario.lake, unit)})
 
     @model_validator(mode="after")
     def _check_links(self) -> Scenario:

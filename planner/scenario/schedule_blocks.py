@@ -7,6 +7,7 @@ from typing import Annotated, Literal
 from pydantic import Field, model_validator
 
 from planner.scenario._base import (
+    MAX_YEARS,
     FrozenList,
     Label,
     Name,
@@ -20,6 +21,11 @@ from planner.scenario._base import (
 
 MAX_ACTIONS = 50
 """Most in-lake actions one schedule may carry."""
+LAKE_TYPE_NAMES = ("shallow", "deep")
+"""Lake types the catalogue of in-lake measures tells apart (see planner.measures)."""
+LakeType = Literal["shallow", "deep"]
+MAX_DOSES = 20
+"""Most doses one in-lake measure may repeat."""
 MAX_POINTS = 500
 MAX_LEVELS = 200
 
@@ -66,7 +72,82 @@ class ParameterPulse(Strict):
     )
 
 
-Action = Annotated[ScaleState | ParameterPulse, Field(discriminator="kind")]
+class InLakeMeasure(Strict):
+    """A measure from the catalogue of in-lake measures (:mod:`planner.measures`), e.g. an
+    aluminium treatment: from ``start`` it multiplies ``parameter`` by the measure's effect
+    factor for as long as the measure works, dose after dose (``doses``, ``every_years``
+    apart). Effect and longevity come from the catalogue for the lake type (medians in one
+    run, a draw per member in an ensemble) unless fixed here."""
+
+    kind: Literal["in-lake-measure"] = Field(
+        description='"in-lake-measure": a catalogue measure such as an aluminium treatment.'
+    )
+    name: Label = Field(default="", description="Label of the action on reports (default: none).")
+    measure: str = Field(
+        description='Catalogue entry: "aluminium", "hypolimnetic-oxygenation" or "dredging".'
+    )
+    lake_type: LakeType = Field(
+        description='"shallow" (polymictic) or "deep" (stratified): picks the catalogue\'s figures.'
+    )
+    parameter: str = Field(
+        description='Model parameter it multiplies: internal loading, "r" in the recycling '
+        'models, "RR" in internal-load.'
+    )
+    start: Years = Field(description="Year of the first dose, in years from the start.")
+    doses: int = Field(default=1, ge=1, le=MAX_DOSES, description="Number of doses (default: 1).")
+    every_years: PositiveYears | None = Field(
+        default=None,
+        description="Years from one dose to the next (default: none; needed with doses > 1).",
+    )
+    effect: NonNegative | None = Field(
+        default=None,
+        description="Fixed multiplier while a dose works, 0.2 leaves 20% (default: none, the "
+        "catalogue's spread).",
+    )
+    longevity_years: PositiveYears | None = Field(
+        default=None,
+        description="Fixed years each dose works (default: none, the catalogue's spread).",
+    )
+    capital_cost: NonNegative = Field(
+        default=0.0,
+        description="Cost of each dose, in the currency, paid at the dose (default: 0).",
+    )
+    running_cost: NonNegative = Field(
+        default=0.0,
+        description="Cost per year while the measure works, in the currency (default: 0).",
+    )
+
+    @model_validator(mode="after")
+    def _check_entry(self) -> InLakeMeasure:
+        from planner.measures import entry_problems  # the catalogue imports the priors' module
+
+        problems = entry_problems(
+            self.measure,
+            self.lake_type,
+            doses=self.doses,
+            every_years=self.every_years,
+            longevity_years=self.longevity_years,
+        )
+        if self.doses > 1 and self.every_years is not None:
+            last = self.start + (self.doses - 1) * self.every_years
+            if last > MAX_YEARS:
+                problems.append(
+                    (
+                        ("every_years",),
+                        f"the last dose would come at year {last:g}, after {MAX_YEARS:g}",
+                    )
+                )
+        raise_problems("in-lake-measure", problems, self.measure)
+        return self
+
+    @property
+    def dose_times(self) -> tuple[float, ...]:
+        """Years of the doses: start, start + every_years, ..."""
+        step = self.every_years or 0.0
+        return tuple(self.start + k * step for k in range(self.doses))
+
+
+Action = Annotated[ScaleState | ParameterPulse | InLakeMeasure, Field(discriminator="kind")]
 
 
 class _Schedule(Strict):
@@ -160,4 +241,4 @@ Schedule = Annotated[
     PathSchedule | StaircaseSchedule | OvershootSchedule, Field(discriminator="kind")
 ]
 SCHEDULE_KINDS = ("path", "staircase", "overshoot")
-ACTION_KINDS = ("scale-state", "parameter-pulse")
+ACTION_KINDS = ("scale-state", "parameter-pulse", "in-lake-measure")
