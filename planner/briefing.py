@@ -322,24 +322,34 @@ class _Figures:
         self.count = 0
         self.prefix = f"{scenario_name}: " if scenario_name else ""
 
-    def html(self, figure: go.Figure | dict, caption: str, *, title: bool = True) -> str:
+    def html(
+        self,
+        figure: go.Figure | dict,
+        caption: str,
+        *,
+        title: bool = True,
+        hidden: Collection[str] = (),
+    ) -> str:
         """The figure's title moves into its caption (a page column is too narrow for long
         plotly titles, which do not wrap), without the scenario's name the page states;
         ``title`` False drops it (the caption says it all)."""
         self.count += 1
         figure = go.Figure(figure)  # a copy: the caller's figure keeps its title
         title_text = _plain(figure.layout.title.text or "")
-        # The legend goes where the title was: above the plot, clear of the axis titles below
-        # whatever the figure's height (plotly widens the top margin to fit it).
-        figure.update_layout(
-            title_text=None,
-            margin_t=30,
-            legend=dict(orientation="h", yanchor="bottom", y=1.02, xanchor="left", x=0),
-        )
+        # The legend keeps the place its figure gave it (below the plot, clear of the axes).
+        figure.update_layout(title_text=None, margin_t=30)
         if title_text and title:
             title = title_text
             title = title.removeprefix(self.prefix)
             caption = f"{title[:1].upper()}{title[1:]}. {caption}"
+        # The accessible name is the figure's own description (what it shows, the key numbers
+        # with units; planner.figures.description), the caption what the page adds.
+        from planner.figures import description
+
+        label = description(figure)
+        if not label or any(name in label for name in hidden):
+            label = caption  # a description naming a hidden schedule is not used, nor kept
+            figure.update_layout(meta=None)
         div = figure.to_html(
             full_html=False,
             include_plotlyjs=False,
@@ -347,7 +357,7 @@ class _Figures:
             config={"displaylogo": False, "responsive": True},
         )
         return (
-            f'<figure class="chart" role="group" aria-label="{_e(caption)}">{div}'
+            f'<figure class="chart" role="group" aria-label="{_e(label)}">{div}'
             f"<figcaption>{_e(caption)}</figcaption></figure>"
         )
 
@@ -544,7 +554,11 @@ def _comparison_section(parts: BriefingParts, standing, figures: _Figures, hidde
     variable = scenario.target.variable
     shown = None if parts.shown is None else list(parts.shown)
     curve = hysteresis_figure(
-        scenario, diagram, standing=standing, trajectories=trajectories_of(comparison)
+        scenario,
+        diagram,
+        standing=standing,
+        trajectories=trajectories_of(comparison),
+        shown=shown,
     )
     curve = _without_schedules(figure_data(curve), hidden)
     table, notes = _comparison_table(comparison, hidden)
@@ -560,6 +574,7 @@ def _comparison_section(parts: BriefingParts, standing, figures: _Figures, hidde
                 f"{stable_states_words(diagram)} coexist; each schedule shown is drawn as its "
                 "path from today's state (the star).",
                 title=False,
+                hidden=hidden,
             ),
             figures.html(
                 time_series_figure(comparison, names=shown),
@@ -567,6 +582,7 @@ def _comparison_section(parts: BriefingParts, standing, figures: _Figures, hidde
                 f"thresholds. Bottom: {variable} over the same years, with the water-quality "
                 "target. A dotted line marks a schedule that breaks a limit.",
                 title=False,
+                hidden=hidden,
             ),
             "</section>",
         ]
@@ -584,7 +600,9 @@ def _part_section(part: BriefingPart, figures: _Figures, hidden: Collection[str]
     for figure in part.figures:
         if figure.schedule in hidden:
             continue
-        out.append(figures.html(_without_schedules(figure.figure, hidden), figure.caption))
+        out.append(
+            figures.html(_without_schedules(figure.figure, hidden), figure.caption, hidden=hidden)
+        )
     if part.method:
         out.append(_paragraphs([part.method], "method"))
     out.append("</section>")
@@ -734,29 +752,10 @@ def _unit(unit: str) -> str:
     return f" ({unit})" if unit else ""
 
 
-def search_words(result, candidate=None) -> str:
-    """One sentence about the cheapest schedule the search found (``candidate``: another)."""
-    from planner.units import significant
-
-    candidate = candidate or result.cheapest
-    if candidate is None:
-        return "The search found no schedule that recovers within the limits set."
-    currency = result.currency
-    meets = candidate.meets_target_at
-    when = (
-        "does not meet the target within the horizon"
-        if meets is None
-        else f"meets the target from year {significant(meets)} on"
-    )
-    return (
-        f"Cheapest option found by the search: “{candidate.schedule.name}”, "
-        f"{candidate.present_value:,.0f} {currency} in present value; it {when}"
-    )
-
-
 def search_part(scenario, result) -> BriefingPart:
     """The cheapest recovering schedule of each family and the money-against-time figure."""
     from planner.figures import pareto_figure
+    from planner.search import search_words
 
     currency = result.currency or "no currency set"
     unit = _unit(result.unit)

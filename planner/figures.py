@@ -809,7 +809,7 @@ def pareto_figure(scenario, result) -> go.Figure:
     """Present value against years to meet the target for every admissible schedule the search
     evaluated (``planner.search.search``), one marker shape per family, the Pareto front as a
     line, the cheapest starred and the required year (if any) as a dashed line."""
-    from planner.briefing import search_words
+    from planner.search import search_words
 
     currency = result.currency or "currency"
     fig = go.Figure()

@@ -501,3 +501,23 @@ def search_text(result: SearchResult) -> str:
         lines.append(text_table(header[:5], rows))
     lines += ["", CAUTION]
     return "\n".join(lines)
+
+
+def search_words(result, candidate=None) -> str:
+    """One sentence about the cheapest schedule the search found (``candidate``: another)."""
+    from planner.units import significant
+
+    candidate = candidate or result.cheapest
+    if candidate is None:
+        return "The search found no schedule that recovers within the limits set."
+    currency = result.currency
+    meets = candidate.meets_target_at
+    when = (
+        "does not meet the target within the horizon"
+        if meets is None
+        else f"meets the target from year {significant(meets)} on"
+    )
+    return (
+        f"Cheapest option found by the search: “{candidate.schedule.name}”, "
+        f"{candidate.present_value:,.0f} {currency} in present value; it {when}"
+    )
