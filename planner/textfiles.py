@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import stat
 import tempfile
 from pathlib import Path
 
@@ -51,14 +52,21 @@ def clean_stale_temporaries(folder: str | os.PathLike[str]) -> int:
 def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool = False) -> Path:
     """Write ``text`` atomically: a temporary file in the same folder, flushed to disk (fsync),
     then renamed over the name, so a crash leaves either the old file or the new one, never a
-    half-written one. An existing file is kept (InputError) unless ``overwrite``; the new file
-    gets the usual permissions (those a plain ``open`` would give under the user's umask).
+    half-written one. An existing file is kept (InputError) unless ``overwrite``.
+
+    Permissions: a new file gets the usual ones (what a plain ``open`` gives under the user's
+    umask: 0644 under the common umask 022), never the 0600 of a bare temporary file; a file
+    replaced keeps its own mode. Replacing a symbolic link writes the file it points to, so the
+    link stays a link.
     """
     path = Path(path)
+    if overwrite and path.is_symlink():
+        path = path.resolve()
     clean_stale_temporaries(path.parent)
     exists = Problem(str(path), "(file)", "exists already; choose another name (or overwrite)")
     if path.exists() and not overwrite:
         raise InputError([exists])
+    mode = _kept_mode(path) if overwrite else None
     try:
         handle, temporary = tempfile.mkstemp(
             dir=path.parent, prefix=f".{path.name}.", suffix=TEMPORARY_SUFFIX
@@ -72,7 +80,7 @@ def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool 
             stream.write(text)
             stream.flush()
             os.fsync(stream.fileno())
-        os.chmod(temporary, 0o666 & ~_umask())
+        os.chmod(temporary, 0o666 & ~_umask() if mode is None else mode)
         if overwrite:
             os.replace(temporary, path)
         else:
@@ -95,7 +103,21 @@ def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool 
     return path
 
 
+def _kept_mode(path: Path) -> int | None:
+    """The permission bits of the file about to be replaced (None: no such file)."""
+    try:
+        return stat.S_IMODE(path.stat().st_mode)
+    except OSError:
+        return None
+
+
 def _umask() -> int:
+    """The process umask. Read from /proc where there is one: setting and restoring it (the
+    only portable way to read it) would, for an instant, change it for every thread."""
+    with contextlib.suppress(OSError, ValueError):
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("Umask:"):
+                return int(line.split()[1], 8)
     mask = os.umask(0o022)
     os.umask(mask)
     return mask

@@ -3,6 +3,10 @@
 The user's scenario lives in ``dcc.Store`` components in the browser (never in module globals),
 so any number of tabs or server workers can run side by side. The page is built per visit, so a
 reload lists files saved since.
+
+A small script on the page (:data:`PAGE_SCRIPT_JS`) asks before the page is left or reloaded
+with unsaved edits, marks the window title while there are some, and turns Ctrl+Z / Ctrl+Y into
+the editor's Undo / Redo when the cursor is not in a text field.
 """
 
 from __future__ import annotations
@@ -18,7 +22,7 @@ from urllib.parse import urlsplit
 
 import dash
 import diskcache
-from dash import Dash, dcc, html
+from dash import Dash, Input, Output, dcc, html
 from flask import Response, request
 
 from planner.errors import InputError, Problem
@@ -38,6 +42,7 @@ from webapp.views import (
     scenario_panel,
     series,
     side_by_side,
+    staleness,
     sweep,
     table,
 )
@@ -46,6 +51,43 @@ TITLE = "Lake recovery planner"
 ASSETS = Path(__file__).resolve().parent / "assets"
 LOG = logging.getLogger("webapp")
 PREFERRED_DEMO = "alder-mere.toml"
+PAGE_SCRIPT_JS = """
+function (unsaved) {
+    window.plannerUnsaved = Boolean(unsaved);
+    if (!window.plannerPageScript) {
+        window.plannerPageScript = true;
+        window.addEventListener("beforeunload", function (event) {
+            if (window.plannerUnsaved) {
+                event.preventDefault();
+                event.returnValue = "";
+                return "";
+            }
+        });
+        document.addEventListener("keydown", function (event) {
+            if (!(event.ctrlKey || event.metaKey) || event.altKey) { return; }
+            var target = event.target;
+            var tag = target ? target.tagName : "";
+            if (tag === "INPUT" || tag === "TEXTAREA" || tag === "SELECT" ||
+                    (target && target.isContentEditable)) {
+                return;  // the text field's own undo
+            }
+            var key = (event.key || "").toLowerCase();
+            var id = null;
+            if (key === "z" && !event.shiftKey) { id = "UNDO_BUTTON_ID"; }
+            else if (key === "y" || (key === "z" && event.shiftKey)) { id = "REDO_BUTTON_ID"; }
+            if (id === null) { return; }
+            var button = document.getElementById(id);
+            if (button && !button.disabled) {
+                event.preventDefault();
+                button.click();
+            }
+        });
+    }
+    var plain = document.title.replace(/^\u25cf /, "");
+    document.title = unsaved ? "\u25cf " + plain : plain;
+    return unsaved ? 1 : 0;
+}
+""".replace("UNDO_BUTTON_ID", ids.UNDO_BUTTON).replace("REDO_BUTTON_ID", ids.REDO_BUTTON)
 
 
 def _on_error(error: Exception) -> None:
@@ -101,16 +143,30 @@ def page(settings: Settings) -> html.Div:
                     dcc.Tab(
                         label="Side by side", value=ids.TAB_SIDE, children=side_by_side.layout()
                     ),
-                    dcc.Tab(label="Slow sweep", value=ids.TAB_SWEEP, children=sweep.layout()),
+                    dcc.Tab(
+                        label="Slow sweep",
+                        value=ids.TAB_SWEEP,
+                        children=[staleness.banner("sweep"), sweep.layout()],
+                    ),
                     dcc.Tab(
                         label="Recovery frontier",
                         value=ids.TAB_FRONTIER,
-                        children=frontier.layout(),
+                        children=[
+                            staleness.banner("frontier"),
+                            staleness.banner("search"),
+                            frontier.layout(),
+                        ],
                     ),
                     dcc.Tab(
-                        label="Uncertainty", value=ids.TAB_ENSEMBLE, children=ensemble.layout()
+                        label="Uncertainty",
+                        value=ids.TAB_ENSEMBLE,
+                        children=[staleness.banner("ensemble"), ensemble.layout()],
                     ),
-                    dcc.Tab(label="Monitoring data", value=ids.TAB_DATA, children=data.layout()),
+                    dcc.Tab(
+                        label="Monitoring data",
+                        value=ids.TAB_DATA,
+                        children=[staleness.banner("fit"), data.layout()],
+                    ),
                 ],
                 className="result-tabs",
             ),
@@ -156,6 +212,14 @@ def page(settings: Settings) -> html.Div:
             dcc.Store(id=ids.RESULTS_READY),
             dcc.Store(id=ids.SAVE_PENDING),
             dcc.Store(id=ids.SORT),
+            dcc.Store(id=ids.BASELINE),
+            dcc.Store(id=ids.UPLOADED_TEXT),
+            dcc.Store(id=ids.HISTORY),
+            dcc.Store(id=ids.OPEN_PENDING),
+            dcc.Store(id=ids.DELETE_PENDING),
+            dcc.Store(id=ids.UNSAVED),
+            dcc.Store(id=ids.PAGE_SCRIPT),
+            *staleness.stores(),
         ],
         className="page",
     )
@@ -234,4 +298,9 @@ def create_app(
     # registers through this app's own ``callback``, which takes the same arguments.
     for view in VIEWS:
         view.register(app.callback, settings)
+    staleness.register(app.callback, settings, app.clientside_callback)
+    app.clientside_callback(
+        PAGE_SCRIPT_JS, Output(ids.PAGE_SCRIPT, "data"), Input(ids.UNSAVED, "data")
+    )
+    editor.register_page_script(app.clientside_callback)
     return app

@@ -288,3 +288,95 @@ def add(data: dict, kind: str) -> dict:
     out = copy.deepcopy(data)
     out.setdefault("schedules", []).append(new_schedule(kind, out))
     return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Unsaved edits and undo / redo. The history holds earlier and later *valid* versions of the
+# scenario (as kept in the working store); it lives in a store in the browser, bounded.
+
+HISTORY_LIMIT = 20  # versions kept each way (a version is the scenario's data, a few kB)
+
+
+def unsaved(working: dict | None, baseline: dict | None) -> bool:
+    """Whether the editor holds edits not in the file the scenario was opened from or saved to
+    (``baseline``: ``{"key", "serial"}``): values still to fix count as edits. While the editor
+    has not caught up with a file just opened (its ``serial`` is older) nothing is unsaved."""
+    if not working or not working.get("data") or not baseline:
+        return False
+    if working.get("serial", 0) < baseline.get("serial", 0):
+        return False
+    return bool(working.get("stale")) or working.get("key") != baseline.get("key")
+
+
+def change_words(before: dict, after: dict) -> str:
+    """What changed from one version of the scenario data to the next, in the editor's words
+    (for "Undone: ..." and "Redone: ..."): a schedule added or deleted, or the fields changed
+    of the first schedule that differs (numbered from 1, as the cards are)."""
+    old, new = before.get("schedules", []), after.get("schedules", [])
+    old_names = [s.get("name") for s in old]
+    new_names = [s.get("name") for s in new]
+    if len(new) > len(old):
+        added = [n for n in new_names if n not in old_names] or new_names[-1:]
+        return f"schedule \u201c{added[0]}\u201d added"
+    if len(new) < len(old):
+        gone = [n for n in old_names if n not in new_names] or old_names[-1:]
+        return f"schedule \u201c{gone[0]}\u201d deleted"
+    for number, (a, b) in enumerate(zip(old, new, strict=True), start=1):
+        if a == b:
+            continue
+        labels = {key: label.split(":")[0] for key, label, _ in schedule_fields(b.get("kind"))}
+        labels["actions"] = "its actions"
+        keys = [k for k in b if a.get(k) != b.get(k)] + [k for k in a if k not in b]
+        words = ", ".join(labels.get(k, k.replace("_", " ")) for k in keys)
+        return f"{words} of schedule {number} changed"
+    blocks = [k for k in after if before.get(k) != after.get(k)]
+    blocks += [k for k in before if k not in after]
+    return f"{', '.join(blocks) or 'the scenario'} changed"
+
+
+def remember(
+    history: dict | None, working: dict | None, baseline: dict | None, latest: int = 0
+) -> dict | None:
+    """The history after the working store changed, or None when it stays as it is.
+
+    A new valid version goes on top (the oldest dropped past HISTORY_LIMIT) and clears what
+    could be redone; the same version again (an undo arriving, a recompute) changes nothing;
+    a scenario opened anew (``baseline["opened"]`` changed) starts a fresh history. A working
+    store older than the last version put into the editor (``latest``: its serial, bumped by
+    every load, undo and redo) is an answer arriving late and is not an edit."""
+    if not working or not working.get("data") or working.get("stale"):
+        return None
+    serial = working.get("serial", 0)
+    if serial < latest or (baseline and serial < baseline.get("serial", 0)):
+        return None  # the editor has not caught up with what was put into it
+    opened = (baseline or {}).get("opened")
+    entry = {"key": working.get("key"), "data": working["data"], "what": ""}
+    history = history or {}
+    present = history.get("present")
+    if history.get("opened") != opened or not present:
+        return {"opened": opened, "past": [], "present": entry, "future": []}
+    if present.get("key") == entry["key"]:
+        return None
+    entry["what"] = change_words(present["data"], working["data"])
+    past = [*history.get("past", []), present][-HISTORY_LIMIT:]
+    return {"opened": opened, "past": past, "present": entry, "future": []}
+
+
+def step(history: dict | None, direction: int) -> tuple[dict, dict, str] | None:
+    """Undo (``direction`` -1) or redo (+1): ``(history, version to show, what was undone or
+    redone)``, or None when there is nothing that way."""
+    history = history or {}
+    past, future = list(history.get("past", [])), list(history.get("future", []))
+    present = history.get("present")
+    if present is None or not (past if direction < 0 else future):
+        return None
+    if direction < 0:
+        shown = past.pop()
+        future = [present, *future][:HISTORY_LIMIT]
+        what = present.get("what", "")
+    else:
+        shown = future.pop(0)
+        past = [*past, present][-HISTORY_LIMIT:]
+        what = shown.get("what", "")
+    new = {"opened": history.get("opened"), "past": past, "present": shown, "future": future}
+    return new, shown, what

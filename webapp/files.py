@@ -2,6 +2,9 @@
 
 The browser only ever sends a folder number and a file name that must appear in that folder's
 listing, so no path from a request reaches the file system.
+
+Saving writes the scenario into the layout of the file it came from (``template``: its text),
+so comments, blank lines and array layout survive (``planner.scenario.io.scenario_to_toml``).
 """
 
 from __future__ import annotations
@@ -16,18 +19,16 @@ import planner
 from planner.errors import InputError, Problem
 from planner.scenario import Scenario, load_scenario, parse_scenario, save_scenario
 from planner.scenario.io import MAX_SCENARIO_BYTES, toml_data
+from planner.textfiles import read_user_text
 
 SUFFIX = ".toml"
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._-]{0,79}$")
 
 
 def default_scenario_dir() -> Path:
-    """The bundled demo scenarios: next to the package in a source checkout."""
-    package = Path(planner.__file__).resolve().parent
-    for candidate in (package.parent / "scenarios", package / "demos"):
-        if candidate.is_dir():
-            return candidate
-    return package.parent / "scenarios"
+    """The bundled demo scenarios (:func:`planner.demos.demo_folder`): the scenarios/ folder of
+    a source checkout, the installed package's copy in a wheel."""
+    return planner.demos.demo_folder()
 
 
 @dataclass(frozen=True)
@@ -83,6 +84,21 @@ def resolve_choice(folders: list[Folder], value: str) -> Path:
     raise InputError([Problem(str(value), "(file)", "no such scenario in the listed folders")])
 
 
+def listed_text(folders: list[Folder], value: str) -> tuple[Path, str]:
+    """The path and text of the listed file a picker value names; InputError naming the file
+    when it is not listed or cannot be read."""
+    path = resolve_choice(folders, value)
+    return path, read_user_text(path, MAX_SCENARIO_BYTES)
+
+
+def is_bundled_demo(path: Path) -> bool:
+    """Whether ``path`` is one of the demos shipped with the planner (never overwritten)."""
+    try:
+        return path.resolve().parent == default_scenario_dir().resolve()
+    except OSError:
+        return False
+
+
 def read_choice(folders: list[Folder], value: str) -> tuple[str, Scenario]:
     """Load the picked file: (its name, the scenario). Raises InputError as ``planner check``."""
     path = resolve_choice(folders, value)
@@ -136,17 +152,35 @@ def save_name(text: str | None) -> str:
     return name
 
 
-def save(scenario: Scenario, folder: Path, name: str, *, overwrite: bool = False) -> Path:
+def save(
+    scenario: Scenario,
+    folder: Path,
+    name: str,
+    *,
+    overwrite: bool = False,
+    template: str | None = None,
+) -> Path:
     """Write atomically through the planner; never replaces a file unless ``overwrite``. The
     path is decided here from the folder and a plain name (checked again: whatever a request
-    carried, nothing outside ``folder`` is written)."""
+    carried, nothing outside ``folder`` is written). ``template``: the text whose comments and
+    layout the file keeps."""
     name = save_name(name)
     target = folder / name
     if target.resolve().parent != folder.resolve():
         raise InputError([Problem("save as", "file name", "must name a file in the save folder")])
     try:
-        return save_scenario(scenario, target, overwrite=overwrite)
+        return save_scenario(scenario, target, overwrite=overwrite, template=template)
     except OSError as error:
         raise InputError(
             [Problem(str(target), "(file)", f"cannot write: {error.strerror or error}")]
         ) from None
+
+
+def save_back(scenario: Scenario, folders: list[Folder], value: str, template: str) -> Path:
+    """Plain "Save": replace the listed file ``value`` names (the one the scenario was opened
+    from) keeping its comments, layout and permissions; the bundled demos are never replaced."""
+    path = resolve_choice(folders, value)
+    if is_bundled_demo(path):
+        reason = "is one of the bundled demos and is kept as it is: use Save as"
+        raise InputError([Problem(path.name, "(file)", reason)])
+    return save_scenario(scenario, path, overwrite=True, template=template)

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import json
 import os
 import tomllib
 from collections.abc import Mapping
+from difflib import SequenceMatcher
 from pathlib import Path
 from typing import Any
 
@@ -160,15 +162,219 @@ def load_scenario(path: str | os.PathLike[str]) -> Scenario:
     return parse_scenario(text, str(path))
 
 
-def scenario_to_toml(scenario: Scenario) -> str:
-    """TOML text of a scenario, omitting unset optional keys; reads back to an equal scenario."""
+def scenario_to_toml(scenario: Scenario, *, template: str | None = None) -> str:
+    """TOML text of a scenario, omitting unset optional keys; reads back to an equal scenario.
+
+    With ``template`` (the text of the file the scenario was opened from) the text is that file
+    with only what changed rewritten: its comments, blank lines, key order and array layout stay,
+    values that changed are replaced in place (keeping the comment on their line), keys and
+    tables are added or removed as needed, and a list of tables (``[[schedules]]``) keeps the
+    tables of the items that were not touched. The result is checked by reading it back; if it
+    did not read back to exactly ``scenario`` (or the template is not a valid scenario) the
+    plain text without the template's layout is returned instead, so a save never changes what
+    was saved.
+    """
     data = scenario.model_dump(mode="json", exclude_none=True)
+    if template is not None:
+        for leave_out_empty in (True, False):
+            text = _patched(template, data, leave_out_empty=leave_out_empty)
+            if text is not None and _reads_back(text, scenario):
+                return text
     return tomli_w.dumps(data)
 
 
 def save_scenario(
-    scenario: Scenario, path: str | os.PathLike[str], *, overwrite: bool = False
+    scenario: Scenario,
+    path: str | os.PathLike[str],
+    *,
+    overwrite: bool = False,
+    template: str | None = None,
 ) -> Path:
     """Write atomically (:func:`planner.textfiles.write_user_text`); refuses to replace an
-    existing file unless ``overwrite`` is set, so nothing saved is lost."""
-    return write_user_text(path, scenario_to_toml(scenario), overwrite=overwrite)
+    existing file unless ``overwrite`` is set, so nothing saved is lost. ``template``: the text
+    of the file the scenario came from, whose comments and layout are kept
+    (:func:`scenario_to_toml`). A replaced file keeps its permissions."""
+    return write_user_text(path, scenario_to_toml(scenario, template=template), overwrite=overwrite)
+
+
+# ---------------------------------------------------------------------------------------------
+# Writing into the layout of an existing file (tomlkit keeps comments and formatting)
+
+_ABSENT = object()
+
+
+def _reads_back(text: str, scenario: Scenario) -> bool:
+    try:
+        return parse_scenario(text, "<saved text>") == scenario
+    except InputError:
+        return False
+
+
+def _patched(template: str, data: dict[str, Any], *, leave_out_empty: bool) -> str | None:
+    """``template`` with the values of ``data`` written into it, or None when the template is
+    not a valid scenario (there is then no reliable "before" to tell what changed)."""
+    import tomlkit
+    from tomlkit.exceptions import TOMLKitError
+
+    try:
+        before = parse_scenario(template, "<template>").model_dump(mode="json", exclude_none=True)
+        document = tomlkit.parse(template.removeprefix(BYTE_ORDER_MARK))
+    except (InputError, TOMLKitError):
+        return None
+    try:
+        _patch_table(document, before, data, leave_out_empty)
+        return tomlkit.dumps(document)
+    except (TOMLKitError, ValueError, TypeError, KeyError, IndexError):
+        return None  # a layout tomlkit cannot edit in place: the plain text is written instead
+
+
+def _same(a: object, b: object) -> bool:
+    return _canonical(a) == _canonical(b)
+
+
+def _canonical(value: object) -> str:
+    return json.dumps(value, sort_keys=True, separators=(",", ":"))
+
+
+def _patch_table(table: Any, before: Mapping[str, Any], after: Mapping[str, Any], leave_out_empty):
+    """Make ``table`` (a tomlkit table or document whose data validated to ``before``) hold
+    ``after``: keys whose value did not change are left as written (even when the file wrote
+    them differently, e.g. ``40`` for ``40.0``); keys the file left to their default stay out."""
+    from tomlkit.items import AoT, InlineTable, Table
+
+    written = set(table.keys())
+    for key in written:
+        if key in before and key not in after:
+            del table[key]
+    for key, value in after.items():
+        old = before.get(key, _ABSENT)
+        if old is not _ABSENT and _same(old, value):
+            continue
+        if key not in written:
+            table[key] = _fresh(value, leave_out_empty)
+            continue
+        if leave_out_empty and value == []:
+            del table[key]  # as a file that never had any: the schema's default
+            continue
+        item = table[key]
+        if (
+            isinstance(item, Table | InlineTable)
+            and isinstance(old, dict)
+            and isinstance(value, dict)
+        ):
+            _patch_table(item, old, value, leave_out_empty)
+        elif (
+            isinstance(item, AoT)
+            and isinstance(old, list)
+            and isinstance(value, list)
+            and len(item) == len(old)
+            and all(isinstance(element, dict) for element in value)
+        ):
+            _patch_tables(item, old, value, leave_out_empty)
+        else:
+            table[key] = _fresh(value, leave_out_empty)
+
+
+def _patch_tables(tables: Any, before: list, after: list, leave_out_empty) -> None:
+    """A list of tables: items left as they were keep their table (and its comments) even when
+    others were inserted or deleted around them; an item changed in place is patched.
+
+    In the file, the comment and blank lines above an item's header belong to the end of the
+    item before it. They are taken off first and put back above the same item afterwards, so a
+    comment stays with the table it describes, and the lines after the last item (above the
+    next section) stay there."""
+    from tomlkit.items import Whitespace
+
+    trails = [_take_trailing(table) for table in tables]
+    leads: list[list | None] = [None, *trails[:-1]]  # above the first: in the parent, untouched
+    tail = trails[-1] if trails else []
+    matcher = SequenceMatcher(
+        a=[_canonical(x) for x in before], b=[_canonical(x) for x in after], autojunk=False
+    )
+    # From the end, so the positions of the blocks still to do do not move.
+    for tag, i1, i2, j1, j2 in reversed(matcher.get_opcodes()):
+        if tag == "equal":
+            continue
+        common = min(i2 - i1, j2 - j1)
+        for k in range(common):
+            _patch_table(tables[i1 + k], before[i1 + k], after[j1 + k], leave_out_empty)
+        for k in reversed(range(i1 + common, i2)):
+            del tables[k]
+            del leads[k]
+        for k in range(j1 + common, j2):
+            tables.insert(i1 + (k - j1), _fresh_table(after[k], leave_out_empty, blank=False))
+            leads.insert(i1 + (k - j1), None)
+    for i in range(1, len(tables)):
+        _put_trailing(
+            tables[i - 1], leads[i] if leads[i] is not None else [(None, Whitespace("\n"))]
+        )
+    if len(tables):
+        _put_trailing(tables[len(tables) - 1], tail)
+
+
+def _innermost_last(table: Any) -> Any:
+    """The table whose end is the end of ``table`` in the file (its last sub-table, if any)."""
+    from tomlkit.items import AoT, Table
+
+    body = table.value.body
+    while body and body[-1][0] is not None and isinstance(body[-1][1], Table | AoT):
+        last = body[-1][1]
+        if isinstance(last, AoT):
+            if not len(last):
+                break
+            last = last[len(last) - 1]
+        table = last
+        body = table.value.body
+    return table
+
+
+def _take_trailing(table: Any) -> list:
+    """Remove and return the comments and blank lines at the end of ``table`` in the file."""
+    from tomlkit.items import Comment, Whitespace
+
+    body = _innermost_last(table).value.body
+    taken = []
+    while body and body[-1][0] is None and isinstance(body[-1][1], Comment | Whitespace):
+        taken.insert(0, body.pop())
+    return taken
+
+
+def _put_trailing(table: Any, items: list) -> None:
+    _innermost_last(table).value.body.extend(items)
+
+
+def _fresh(value: Any, leave_out_empty: bool) -> Any:
+    import tomlkit
+
+    if isinstance(value, dict):
+        return _fresh_table(value, leave_out_empty)
+    if isinstance(value, list) and value and all(isinstance(v, dict) for v in value):
+        tables = tomlkit.aot()
+        for element in value:
+            tables.append(_fresh_table(element, leave_out_empty))
+        return tables
+    return tomlkit.item(value)
+
+
+def _fresh_table(data: Mapping[str, Any], leave_out_empty: bool, *, blank: bool = True) -> Any:
+    """A new table: plain values first, then sub-tables (an empty line between them, and after
+    the table when ``blank``); empty lists (the schema's default) left out when
+    ``leave_out_empty``."""
+    import tomlkit
+
+    table = tomlkit.table()
+    nested = []
+    for key, value in data.items():
+        if leave_out_empty and value == []:
+            continue
+        if isinstance(value, dict) or (
+            isinstance(value, list) and value and all(isinstance(v, dict) for v in value)
+        ):
+            nested.append((key, value))
+        else:
+            table.add(key, tomlkit.item(value))
+    if nested or blank:
+        table.add(tomlkit.nl())
+    for key, value in nested:
+        table.add(key, _fresh(value, leave_out_empty))
+    return table

@@ -1,10 +1,16 @@
-"""The schedule editor: one card per schedule, with add, duplicate and delete.
+"""The schedule editor: one card per schedule, with add, duplicate and delete (after a
+confirmation), and undo / redo of every edit.
 
 Two callbacks keep it quick. ``restructure`` redraws the cards when a scenario is loaded or a
 schedule is added, duplicated or deleted (keeping whatever the user typed). ``recompute`` runs on
 every edit: it validates through the planner, shows each problem beside its field, and
 re-simulates only the schedules whose numbers changed (the diagram is cached). When many
 schedules need computing at once, the work goes to a background worker with a progress bar.
+
+Undo and redo walk a bounded history of valid versions of the scenario (``drafts.remember``,
+``drafts.step``), kept in a store in the browser; a version is restored by loading it into the
+editor, as a file is. Ctrl+Z and Ctrl+Y (or Ctrl+Shift+Z) press the buttons when the cursor is
+not in a text field (the field's own undo works there).
 """
 
 from __future__ import annotations
@@ -33,7 +39,35 @@ HIDDEN = {"display": "none"}
 def layout() -> html.Section:
     return html.Section(
         [
-            html.H2("Schedules"),
+            html.Div(
+                [
+                    html.H2("Schedules"),
+                    html.Div(
+                        [
+                            html.Button(
+                                "Undo",
+                                id=ids.UNDO_BUTTON,
+                                className="button small",
+                                disabled=True,
+                                title="Undo the last change (Ctrl+Z)",
+                            ),
+                            html.Button(
+                                "Redo",
+                                id=ids.REDO_BUTTON,
+                                className="button small",
+                                disabled=True,
+                                title="Redo the change undone (Ctrl+Y)",
+                            ),
+                        ],
+                        className="undo-buttons",
+                        role="group",
+                        **{"aria-label": "Undo and redo"},
+                    ),
+                ],
+                className="panel-head",
+            ),
+            html.Div(id=ids.UNDO_MESSAGE, className="undo-message", role="status"),
+            dcc.ConfirmDialog(id=ids.DELETE_CONFIRM, message=""),
             html.P(
                 "Change any number and press Enter (or leave the field): the schedule is "
                 "simulated again and every view updates.",
@@ -176,7 +210,10 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
                         className="button small",
                     ),
                     html.Button(
-                        "Delete", id=ids.schedule_button(index, "delete"), className="button small"
+                        "Delete",
+                        id=ids.schedule_button(index, "delete"),
+                        className="button small",
+                        title="Delete this schedule (asks first; Undo brings it back)",
                     ),
                 ],
                 className="card-head",
@@ -240,9 +277,64 @@ def restructure(
             data = drafts.duplicate(data, index)
         elif trigger["action"] == "delete":
             data = drafts.delete(data, index)
+        else:
+            return no_update, no_update
     else:
         return no_update, no_update
     return render(data), {**draft, "data": data}
+
+
+def structure(
+    loaded,
+    add,
+    buttons,
+    confirmed,
+    add_kind,
+    draft,
+    values,
+    value_ids,
+    action_values,
+    action_ids,
+    pending,
+    *,
+    trigger=None,
+    trigger_value=None,
+):
+    """``restructure`` with a question before a delete -> (editor cards, draft store, delete
+    question shown, its text, schedule awaiting deletion, undo message). A Delete click only
+    asks; confirming deletes the schedule asked about, if it is still where it was."""
+    nothing = (no_update,) * 6
+    args = (loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids)
+    is_delete = (
+        isinstance(trigger, dict)
+        and trigger.get("type") == ids.SCHEDULE_BUTTON
+        and trigger.get("action") == "delete"
+    )
+    if is_delete or trigger == ids.DELETE_CONFIRM:
+        if not draft or not trigger_value:
+            return nothing  # a button just drawn (n_clicks None) is not a click
+        schedules = drafts.merge_fields(
+            draft["data"],
+            list(zip(value_ids, values, strict=True)),
+            list(zip(action_ids, action_values, strict=True)),
+        ).get("schedules", [])
+        index = trigger["index"] if is_delete else (pending or {}).get("index", -1)
+        name = schedules[index].get("name") if 0 <= index < len(schedules) else None
+        if is_delete:
+            if name is None:
+                return nothing
+            question = f"Delete schedule {index + 1}, “{name}”? Undo (or Ctrl+Z) brings it back."
+            return no_update, no_update, True, question, {"index": index, "name": name}, no_update
+        if name is None or name != pending.get("name"):
+            text = "Not deleted: the schedules changed while the question was open."
+            return no_update, no_update, False, no_update, None, text
+        cards, new_draft = restructure(
+            *args, trigger=ids.schedule_button(index, "delete"), trigger_value=trigger_value
+        )
+        text = f"Deleted schedule {index + 1}, “{name}”. Undo (or Ctrl+Z) brings it back."
+        return cards, new_draft, False, no_update, None, text
+    cards, new_draft = restructure(*args, trigger=trigger, trigger_value=trigger_value)
+    return cards, new_draft, no_update, no_update, no_update, no_update
 
 
 def recompute(
@@ -289,7 +381,13 @@ def recompute(
     todo = compute.missing(scenario)
     valid = compute.dump(scenario)
     key = compute.scenario_key(valid)
-    new = {"source": source, "data": valid, "key": key, "stale": False}
+    new = {
+        "source": source,
+        "data": valid,
+        "key": key,
+        "stale": False,
+        "serial": draft.get("serial", 0),
+    }
     if len(todo) > FAST_LIMIT:
         new["complete"] = False
         status = html.Span(
@@ -414,6 +512,46 @@ def result_lines(working, _ready, result_ids):
     return lines
 
 
+def history_controls(history: dict | None) -> tuple[bool, bool, str, str]:
+    """(undo disabled, redo disabled, undo title, redo title) for this history."""
+    history = history or {}
+    past, future = history.get("past") or [], history.get("future") or []
+    present = history.get("present") or {}
+    undo_title = f"Undo: {present.get('what')} (Ctrl+Z)" if past else "Nothing to undo"
+    redo_title = f"Redo: {future[0].get('what')} (Ctrl+Y)" if future else "Nothing to redo"
+    return not past, not future, undo_title, redo_title
+
+
+def record(working, history, baseline, loaded=None):
+    """The working store changed -> (history, undo / redo controls)."""
+    new = drafts.remember(history, working, baseline, (loaded or {}).get("serial", 0))
+    if new is None:
+        return (no_update,) * 5
+    return new, *history_controls(new)
+
+
+def undo_redo(_undo, _redo, history, loaded, working, *, trigger=None):
+    """Undo or Redo -> (loaded store, history, undo / redo controls, message). The version
+    restored goes into the editor as a loaded file does; values still to fix are simply
+    dropped by an undo (back to the last valid version)."""
+    direction = -1 if trigger == ids.UNDO_BUTTON else 1
+    present = (history or {}).get("present")
+    source = (working or {}).get("source") or (loaded or {}).get("source", "<editor>")
+    serial = (loaded or {}).get("serial", 0) + 1
+    if direction < 0 and present and (working or {}).get("stale"):
+        store = {"source": source, "data": present["data"], "serial": serial}
+        text = "Undone: the values still to fix (back to the last valid ones)."
+        return store, no_update, *history_controls(history), text
+    stepped = drafts.step(history, direction)
+    if stepped is None:
+        text = "Nothing to undo." if direction < 0 else "Nothing to redo."
+        return no_update, no_update, *history_controls(history), text
+    new, shown, what = stepped
+    store = {"source": source, "data": shown["data"], "serial": serial}
+    text = f"{'Undone' if direction < 0 else 'Redone'}: {what}."
+    return store, new, *history_controls(new), text
+
+
 def compare_in_background(set_progress, pending):
     """Background worker: every missing schedule, with progress; results go to the disk cache."""
     if not pending:
@@ -432,39 +570,86 @@ def compare_in_background(set_progress, pending):
 # ---------------------------------------------------------------------------------------------
 
 
+# In the browser: a working store older than the editor's draft (the answer to an earlier
+# recompute arriving after a later one, when files are picked in quick succession) hands the
+# draft back, marked, which runs the recompute of what the editor shows once more (once per
+# draft: the mark stops a second round).
+CATCH_UP_JS = """
+function (working, draft) {
+    var late = working && draft && (working.serial || 0) < (draft.serial || 0);
+    if (!late || draft.caught_up === draft.serial) { return window.dash_clientside.no_update; }
+    return Object.assign({}, draft, {caught_up: draft.serial});
+}
+"""
+
+
+def register_page_script(clientside_callback) -> None:
+    """The editor's part of the page script (registered by ``create_app``)."""
+    clientside_callback(
+        CATCH_UP_JS,
+        Output(ids.DRAFT, "data", allow_duplicate=True),
+        Input(ids.WORKING, "data"),
+        State(ids.DRAFT, "data"),
+        prevent_initial_call=True,
+    )
+
+
 def register(callback, settings: Settings) -> None:
-    def on_structure(
-        loaded, add, buttons, add_kind, draft, values, value_ids, action_values, action_ids
-    ):
-        trigger = ctx.triggered_id
+    def on_structure(*args):
         value = ctx.triggered[0]["value"] if ctx.triggered else None
-        return restructure(
-            loaded,
-            add,
-            buttons,
-            add_kind,
-            draft,
-            values,
-            value_ids,
-            action_values,
-            action_ids,
-            trigger=trigger,
-            trigger_value=value,
-        )
+        return structure(*args, trigger=ctx.triggered_id, trigger_value=value)
 
     callback(
         Output(ids.EDITOR, "children"),
         Output(ids.DRAFT, "data"),
+        Output(ids.DELETE_CONFIRM, "displayed"),
+        Output(ids.DELETE_CONFIRM, "message"),
+        Output(ids.DELETE_PENDING, "data"),
+        Output(ids.UNDO_MESSAGE, "children"),
         Input(ids.LOADED, "data"),
         Input(ids.ADD_BUTTON, "n_clicks"),
         Input(ids.ALL_SCHEDULE_BUTTONS, "n_clicks"),
+        Input(ids.DELETE_CONFIRM, "submit_n_clicks"),
         State(ids.ADD_KIND, "value"),
         State(ids.DRAFT, "data"),
         State(ids.ALL_SCHEDULE_FIELDS, "value"),
         State(ids.ALL_SCHEDULE_FIELDS, "id"),
         State(ids.ALL_ACTION_FIELDS, "value"),
         State(ids.ALL_ACTION_FIELDS, "id"),
+        State(ids.DELETE_PENDING, "data"),
     )(on_structure)
+
+    history_outputs = (
+        (ids.UNDO_BUTTON, "disabled"),
+        (ids.REDO_BUTTON, "disabled"),
+        (ids.UNDO_BUTTON, "title"),
+        (ids.REDO_BUTTON, "title"),
+    )
+    callback(
+        Output(ids.HISTORY, "data"),
+        *(Output(*output) for output in history_outputs),
+        Input(ids.WORKING, "data"),
+        State(ids.HISTORY, "data"),
+        State(ids.BASELINE, "data"),
+        State(ids.LOADED, "data"),
+        prevent_initial_call=True,
+    )(record)
+
+    def on_undo(undo, redo, history, loaded, working):
+        return undo_redo(undo, redo, history, loaded, working, trigger=ctx.triggered_id)
+
+    callback(
+        Output(ids.LOADED, "data", allow_duplicate=True),
+        Output(ids.HISTORY, "data", allow_duplicate=True),
+        *(Output(*output, allow_duplicate=True) for output in history_outputs),
+        Output(ids.UNDO_MESSAGE, "children", allow_duplicate=True),
+        Input(ids.UNDO_BUTTON, "n_clicks"),
+        Input(ids.REDO_BUTTON, "n_clicks"),
+        State(ids.HISTORY, "data"),
+        State(ids.LOADED, "data"),
+        State(ids.WORKING, "data"),
+        prevent_initial_call=True,
+    )(on_undo)
 
     callback(
         Output(ids.ALL_FIELD_MESSAGES, "children"),

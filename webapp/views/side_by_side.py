@@ -1,5 +1,6 @@
 """Side by side: two to four chosen schedules in small multiples with shared axes, each on the
-equilibrium curve (``planner.figures.small_multiples_figure``), ready to present."""
+equilibrium curve (``planner.figures.small_multiples_figure``), ready to present. While the
+schedule editor has values to fix, the figure is said to be for the last valid values."""
 
 from __future__ import annotations
 
@@ -17,6 +18,9 @@ from webapp.views.common import (
 )
 
 FEWEST, MOST = 2, 4
+LAST_VALID = (
+    "This figure is for the last valid values: fix the values marked in the schedule editor."
+)
 
 
 def layout() -> html.Div:
@@ -69,7 +73,8 @@ def draw(working, _ready, chosen, tab):
     comparison = working_comparison(working)
     if comparison is None:
         return placeholder_figure("No results yet"), ""
-    return side_figure(comparison, chosen), ""
+    note = LAST_VALID if working.get("stale") else ""
+    return side_figure(comparison, chosen), note
 
 
 def register(callback, settings: Settings) -> None:

@@ -1,5 +1,6 @@
 """The comparison table: one row per schedule from ``planner.report.comparison_rows``, plus
-whether it recovers; a click on a column heading sorts by it (again: the other way)."""
+whether it recovers; a click on a column heading sorts by it (again: the other way). While the
+schedule editor has values to fix, the table says that its rows are for the last valid ones."""
 
 from __future__ import annotations
 
@@ -11,6 +12,10 @@ from webapp.settings import Settings
 from webapp.views.common import export_buttons, working_comparison
 
 RECOVERED = "Recovered"
+LAST_VALID = (
+    "These rows are for the last valid values: fix the values marked in the schedule editor "
+    "to see the table for what is typed there."
+)
 TEXT_COLUMNS = ("Schedule", "Verdict", "Why infeasible")
 MONEY_COLUMNS = ("Total cost", "Present value")
 
@@ -153,7 +158,10 @@ def fill(working, _ready, _clicks, sort, *, trigger=None, trigger_value=None):
         sort = sort or {}
         descending = not sort.get("descending") if sort.get("column") == column else False
         sort = {"column": column, "descending": descending}
-    return table(working_comparison(working), sort), sort
+    children = table(working_comparison(working), sort)
+    if (working or {}).get("stale") and len(children) == 2:
+        children = [html.Caption(LAST_VALID, className="stale-note"), *children]
+    return children, sort
 
 
 def register(callback, settings: Settings) -> None:
