@@ -23,7 +23,7 @@ _LAZY = {
     "System": "planner.models.base",
     "compile_model": "planner.models.base",
     "BUILTIN_MODELS": "planner.models.library",
-    "check_name": "planner.models.library",
+    "check_name": "planner.models.formula",
     "formula_spec": "planner.models.library",
 }
 """Public names whose modules import sympy (and numpy), by the module that defines them."""

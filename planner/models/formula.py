@@ -1,10 +1,10 @@
-"""Whitelist parser that turns one user-written right-hand side into a sympy expression.
+"""Whitelist parser for user-written right-hand sides, with one set of checks for two builders.
 
 Users type formulas such as ``a - b*x + x**2/(1 + x**2)`` into scenario files. That text is
 untrusted, so it is never handed to Python's evaluator nor to sympy's string parser (both can
 run arbitrary code). Instead the text is split into a syntax tree with :func:`ast.parse` (pure
 parsing, nothing runs) and the tree is walked here; each node is either translated into the
-matching sympy object or refused with a message that says what is wrong and what is allowed.
+matching expression or refused with a message that says what is wrong and what is allowed.
 
 Besides the whitelist, guards keep a hostile or mistyped formula from exhausting time or memory,
 or from meaning something other than what it shows:
@@ -25,28 +25,47 @@ or from meaning something other than what it shows:
 - A limit on the estimated size of the first and second derivatives that compiling the formula
   builds (a product of n factors has second derivatives of n**3 terms).
 
-The functions are built from classes of this module rather than sympy's own: sympy takes
-symbols as complex, so ``Abs`` and ``Max`` differentiate into forms (``Derivative(re(x), x)``,
-``DiracDelta``) that no numeric code can be printed from, and asking whether ``tanh(tanh(...))``
-is real or zero takes time exponential in the depth. Every model here is real-valued and needs
-Jacobians and Hessians; the classes print as sympy's functions.
+One walk and one set of checks run on either of two algebras, so the two cannot drift apart:
+
+- :func:`parse_formula` builds sympy expressions (:mod:`planner.models.formula_sympy`), which the
+  model library differentiates and compiles. It is the reference.
+- :func:`check_formula` builds light expressions (:mod:`planner.models.formula_light`) that
+  follow sympy's automatic simplification without importing sympy, so that validating a scenario
+  (``planner check``) stays quick. Where the light algebra does not model what sympy would do it
+  raises :class:`UndecidedError`, and :func:`check_equations` then builds the formulas with sympy.
+
+This module imports neither sympy nor numpy.
 """
 
 from __future__ import annotations
 
 import ast
 import math
+import re
 import unicodedata
 import warnings
-from collections.abc import Callable, Collection, Mapping
+from collections.abc import Callable, Collection, Mapping, Sequence
 from functools import reduce
 from types import MappingProxyType
-from typing import Any, ClassVar, NamedTuple
+from typing import TYPE_CHECKING, Any, NamedTuple, TypeVar
 
 import mpmath
-import sympy
 
 from planner.errors import FormulaError
+from planner.models.formula_light import LIGHT, UndecidedError
+
+if TYPE_CHECKING:
+    import sympy
+
+Expression = Any
+"""A sympy expression or a light one (:mod:`planner.models.formula_light`): the walker and the
+checks read both through the same attributes (``is_Add``, ``args``, ``free_symbols``, ...)."""
+
+Algebra = Any
+"""Where expressions are built: :data:`planner.models.formula_sympy.SYMPY` (the reference) or
+:data:`planner.models.formula_light.LIGHT`."""
+
+_Parsed = TypeVar("_Parsed")
 
 MAX_FORMULA_LENGTH = 500
 """Longest formula (in characters, after stripping surrounding whitespace) that is accepted."""
@@ -129,278 +148,64 @@ _ASCII_HINTS: Mapping[str, str] = MappingProxyType(
 
 
 # --------------------------------------------------------------------------------------------
-# real-valued functions
-
-
-class _RealFunction(sympy.Function):
-    """A function of real arguments printed to numeric code as a plain sympy primitive.
-
-    Code printers (numpy, math) call ``_numpycode`` / ``_pythoncode`` and so on; each prints
-    :meth:`primitive`, e.g. ``Max(a, b)``, which every printer knows. Primitives are built
-    unevaluated: sympy's Max would otherwise insist on comparing a constant argument such as
-    exp(0.5) (a parameter value the engine substituted) and refuse it. Plain text shows the
-    name a formula author writes (``max(a, b)``).
-    """
-
-    display: ClassVar[str] = ""
-
-    def primitive(self) -> sympy.Expr:  # pragma: no cover - every subclass overrides it
-        raise NotImplementedError
-
-    def _print_primitive(self, printer: Any, **settings: Any) -> str:
-        # Bracketed: the printer took this for a function call, which binds tighter than any
-        # operator, while the primitive may be a sum ((sign(u) + 1)/2).
-        return f"({printer._print(self.primitive(), **settings)})"
-
-    _pythoncode = _numpycode = _mpmathcode = _lambdacode = _print_primitive
-
-    def _sympystr(self, printer: Any) -> str:
-        return f"{self.display}({', '.join(printer._print(arg) for arg in self.args)})"
-
-
-class RealSign(_RealFunction):
-    """sign(u): -1, 0 or 1; its derivative is zero (wherever it exists)."""
-
-    nargs = 1
-    display = "sign"
-
-    @classmethod
-    def eval(cls, value: sympy.Expr) -> sympy.Expr | None:
-        return sympy.sign(value) if value.is_Number else None
-
-    def fdiff(self, argindex: int = 1) -> sympy.Expr:
-        return sympy.Integer(0)
-
-    def primitive(self) -> sympy.Expr:
-        return sympy.sign(self.args[0], evaluate=False)
-
-
-class UnitStep(_RealFunction):
-    """step(u): 0 below zero, 1/2 at zero, 1 above; its derivative is zero (wherever it exists)."""
-
-    nargs = 1
-    display = "step"
-
-    @classmethod
-    def eval(cls, value: sympy.Expr) -> sympy.Expr | None:
-        return (sympy.sign(value) + 1) / 2 if value.is_Number else None
-
-    def fdiff(self, argindex: int = 1) -> sympy.Expr:
-        return sympy.Integer(0)
-
-    def primitive(self) -> sympy.Expr:
-        return (sympy.sign(self.args[0], evaluate=False) + 1) / 2
-
-
-class RealAbs(_RealFunction):
-    """|u| for real u; derivative sign(u)."""
-
-    nargs = 1
-    display = "abs"
-
-    @classmethod
-    def eval(cls, value: sympy.Expr) -> sympy.Expr | None:
-        return abs(value) if value.is_Number else None
-
-    def fdiff(self, argindex: int = 1) -> sympy.Expr:
-        return RealSign(self.args[0])
-
-    def primitive(self) -> sympy.Expr:
-        return sympy.Abs(self.args[0], evaluate=False)
-
-
-class _Extreme(_RealFunction):
-    """The larger (``direction`` 1) or smaller (-1) of two real values; the derivative in each
-    argument is a step, 1/2 at a tie."""
-
-    nargs = 2
-    direction: ClassVar[int] = 1
-    sympy_function: ClassVar[Any] = None
-
-    @classmethod
-    def eval(cls, first: sympy.Expr, second: sympy.Expr) -> sympy.Expr | None:
-        if first == second:
-            return first
-        if first.is_Number and second.is_Number:
-            if sympy.nan in (first, second):
-                return sympy.nan
-            return first if bool(cls.direction * (first - second) >= 0) else second
-        return None
-
-    def fdiff(self, argindex: int = 1) -> sympy.Expr:
-        first, second = self.args
-        lead = first - second if argindex == 1 else second - first
-        return UnitStep(self.direction * lead)
-
-    def primitive(self) -> sympy.Expr:
-        return type(self).sympy_function(*self.args, evaluate=False)
-
-
-class RealMax(_Extreme):
-    """max(a, b)."""
-
-    display, direction, sympy_function = "max", 1, sympy.Max
-
-
-class RealMin(_Extreme):
-    """min(a, b)."""
-
-    display, direction, sympy_function = "min", -1, sympy.Min
-
-
-class _Elementary(_RealFunction):
-    """A real function of one real argument: sympy's function of the same name without its
-    automatic rewriting and assumption queries. Asked whether ``tanh(tanh(...(x)))`` is real
-    or zero, sympy splits every level into real and imaginary parts, which costs time
-    exponential in the depth (ten levels took nine seconds, each further level three times
-    longer). Nothing is evaluated here either: a constant argument is folded by the parser, and
-    one that appears later (a parameter value substituted by the engine) is left to numpy.
-    """
-
-    nargs = 1
-    sympy_function: ClassVar[Any] = None
-    derivative: ClassVar[Callable[[sympy.Expr], sympy.Expr]]
-
-    def fdiff(self, argindex: int = 1) -> sympy.Expr:
-        return type(self).derivative(self.args[0])
-
-    def primitive(self) -> sympy.Expr:
-        return type(self).sympy_function(self.args[0], evaluate=False)
-
-
-class RealExp(_Elementary):
-    """exp(u)."""
-
-    display, sympy_function = "exp", sympy.exp
-    derivative = staticmethod(lambda u: RealExp(u))
-
-
-class RealLog(_Elementary):
-    """log(u), the natural logarithm."""
-
-    display, sympy_function = "log", sympy.log
-    derivative = staticmethod(lambda u: 1 / u)
-
-
-class RealTanh(_Elementary):
-    """tanh(u)."""
-
-    display, sympy_function = "tanh", sympy.tanh
-    derivative = staticmethod(lambda u: 1 - RealTanh(u) ** 2)
-
-
-class RealSinh(_Elementary):
-    """sinh(u)."""
-
-    display, sympy_function = "sinh", sympy.sinh
-    derivative = staticmethod(lambda u: RealCosh(u))
-
-
-class RealCosh(_Elementary):
-    """cosh(u)."""
-
-    display, sympy_function = "cosh", sympy.cosh
-    derivative = staticmethod(lambda u: RealSinh(u))
-
-
-class RealSin(_Elementary):
-    """sin(u)."""
-
-    display, sympy_function = "sin", sympy.sin
-    derivative = staticmethod(lambda u: RealCos(u))
-
-
-class RealCos(_Elementary):
-    """cos(u)."""
-
-    display, sympy_function = "cos", sympy.cos
-    derivative = staticmethod(lambda u: -RealSin(u))
-
-
-def _extreme(kind: type[_Extreme], *arguments: sympy.Expr) -> sympy.Expr:
-    """max or min of any number of arguments as a balanced tree of two-argument functions (a
-    chain would nest as deep as there are arguments, and compiling recurses that deep); the
-    numbers among the arguments are combined first and repeated arguments count once."""
-    numbers = [argument for argument in arguments if argument.is_Number]
-    level = list(dict.fromkeys(argument for argument in arguments if not argument.is_Number))
-    if numbers:
-        level.append(reduce(kind, numbers))
-    while len(level) > 1:
-        paired = [kind(*level[i : i + 2]) for i in range(0, len(level) - 1, 2)]
-        level = paired + level[len(paired) * 2 :]
-    return level[0]
-
-
-def real_max(*arguments: sympy.Expr) -> sympy.Expr:
-    """max(a, b, ...) of real values."""
-    return _extreme(RealMax, *arguments)
-
-
-def real_min(*arguments: sympy.Expr) -> sympy.Expr:
-    """min(a, b, ...) of real values."""
-    return _extreme(RealMin, *arguments)
-
-
-# --------------------------------------------------------------------------------------------
 # the whitelist
 
 
 def _analytic(function: Callable[..., Any]) -> Callable[..., Any]:
-    """``function`` of the private mpmath context, applied to checked sympy Numbers."""
+    """``function`` of the private mpmath context, applied to checked Numbers."""
     return lambda *numbers: function(*(_to_mpf(number) for number in numbers))
 
 
-def _to_mpf(number: sympy.Expr) -> Any:
-    """A checked sympy Number (at most 1e300 in magnitude) as an mpf of the private context."""
+def _to_mpf(number: Expression) -> Any:
+    """A checked Number (at most 1e300 in magnitude) as an mpf of the private context."""
     return _MP.mpf(float(number))
 
 
 class FunctionSpec(NamedTuple):
     """A function a formula may call.
 
-    ``function`` builds the sympy expression; ``value`` computes the result when every argument
-    is a number (returning an mpmath number of the private context, or an exact sympy Number);
-    ``max_args`` is None when any number of arguments from ``min_args`` upward is accepted;
-    ``scaled`` marks functions whose argument scale is limited (:data:`MAX_ARGUMENT_SCALE`).
+    ``analytic`` computes the result when every argument is a number (an mpmath number of the
+    private context); None for abs, min and max, whose expressions (in either algebra) compute
+    themselves from numbers, exactly. ``max_args`` is None when any number of arguments from
+    ``min_args`` upward is accepted; ``scaled`` marks functions whose argument scale is limited
+    (:data:`MAX_ARGUMENT_SCALE`).
     """
 
-    function: Callable[..., sympy.Expr]
     min_args: int
     max_args: int | None
-    value: Callable[..., Any]
+    analytic: Callable[..., Any] | None
     scaled: bool = False
 
 
 ALLOWED_FUNCTIONS: Mapping[str, FunctionSpec] = MappingProxyType(
     {
-        "exp": FunctionSpec(RealExp, 1, 1, _analytic(_MP.exp), scaled=True),
-        "log": FunctionSpec(RealLog, 1, 1, _analytic(_MP.log)),
-        "sqrt": FunctionSpec(sympy.sqrt, 1, 1, _analytic(_MP.sqrt)),
-        "tanh": FunctionSpec(RealTanh, 1, 1, _analytic(_MP.tanh), scaled=True),
-        "sinh": FunctionSpec(RealSinh, 1, 1, _analytic(_MP.sinh), scaled=True),
-        "cosh": FunctionSpec(RealCosh, 1, 1, _analytic(_MP.cosh), scaled=True),
-        "sin": FunctionSpec(RealSin, 1, 1, _analytic(_MP.sin), scaled=True),
-        "cos": FunctionSpec(RealCos, 1, 1, _analytic(_MP.cos), scaled=True),
-        "abs": FunctionSpec(RealAbs, 1, 1, RealAbs),
-        "min": FunctionSpec(real_min, 2, None, real_min),
-        "max": FunctionSpec(real_max, 2, None, real_max),
+        "exp": FunctionSpec(1, 1, _analytic(_MP.exp), scaled=True),
+        "log": FunctionSpec(1, 1, _analytic(_MP.log)),
+        "sqrt": FunctionSpec(1, 1, _analytic(_MP.sqrt)),
+        "tanh": FunctionSpec(1, 1, _analytic(_MP.tanh), scaled=True),
+        "sinh": FunctionSpec(1, 1, _analytic(_MP.sinh), scaled=True),
+        "cosh": FunctionSpec(1, 1, _analytic(_MP.cosh), scaled=True),
+        "sin": FunctionSpec(1, 1, _analytic(_MP.sin), scaled=True),
+        "cos": FunctionSpec(1, 1, _analytic(_MP.cos), scaled=True),
+        "abs": FunctionSpec(1, 1, None),
+        "min": FunctionSpec(2, None, None),
+        "max": FunctionSpec(2, None, None),
     }
 )
 """Every function a formula may call, by the name the user writes."""
 
-_VALUE_OF: Mapping[type, Callable[..., Any]] = MappingProxyType(
-    {
-        **{
-            spec.function: spec.value
-            for spec in ALLOWED_FUNCTIONS.values()
-            if isinstance(spec.function, type)
-        },
-        RealMax: real_max,
-        RealMin: real_min,
-    }
-)
-"""Numeric value of each function class sympy may leave in a built expression (for folding
-constants that appear only once sympy combines terms)."""
+_EXPONENTIALS = frozenset({"exp", "sinh", "cosh"})
+"""Functions that count as one level of exponential nesting (:data:`MAX_EXPONENTIAL_NESTING`)."""
+
+_PIECEWISE_LINEAR = frozenset({"abs", "max", "min"})
+"""Functions whose second derivatives vanish (:func:`derivative_work`)."""
+
+
+def _function_name(expr: Expression) -> str | None:
+    """The formula name of a function node in either algebra (``exp``, ``max``...), else None."""
+    name = getattr(expr, "display", None)
+    return name if isinstance(name, str) else None
+
 
 _CONSTANTS: Mapping[str, float] = MappingProxyType({"pi": math.pi})
 """Named constants usable without declaring them (a declared name of the same spelling wins)."""
@@ -454,7 +259,7 @@ _REFUSED_CONSTRUCTS: Mapping[type[ast.AST], str] = MappingProxyType(
 
 
 # --------------------------------------------------------------------------------------------
-# entry point and text checks
+# entry points and text checks
 
 
 def parse_formula(
@@ -469,8 +274,34 @@ def parse_formula(
     (and unary ``+``/``-``) and calls to :data:`ALLOWED_FUNCTIONS`. Anything else raises
     :class:`FormulaError` with a message that says what was refused and why, so the user can
     fix the scenario file without reading code. Constant parts come back as numbers (exact
-    fractions or doubles).
+    fractions or doubles). Imports sympy.
     """
+    from planner.models.formula_sympy import SYMPY
+
+    return _read(text, symbols, states, SYMPY)
+
+
+def check_formula(
+    text: str, names: Collection[str], states: Collection[str] | None = None
+) -> Expression:
+    """Check one formula as :func:`parse_formula` would, without sympy.
+
+    ``names`` are the declared names, ``states`` as for :func:`parse_formula`. Raises the
+    :class:`FormulaError` that :func:`parse_formula` raises, with the same message; where
+    :func:`parse_formula` returns a sympy expression, returns the light expression of the same
+    shape. Raises :class:`UndecidedError` where the light algebra does not model sympy's result
+    (then only :func:`parse_formula` can tell).
+    """
+    return _read(text, {name: LIGHT.symbol(name) for name in names}, states, LIGHT)
+
+
+def _read(
+    text: str,
+    symbols: Mapping[str, Expression],
+    states: Collection[str] | None,
+    algebra: Algebra,
+) -> Expression:
+    """The text checks, the walk and the size of the derivatives, in ``algebra``."""
     if not isinstance(text, str):
         raise FormulaError(f"formula must be text, got {type(text).__name__}")
     source = text.strip()
@@ -485,7 +316,7 @@ def parse_formula(
     _check_bracket_depth(source)
     tree = _syntax_tree(source)
     try:
-        result = _Builder(source, symbols).build(tree)
+        result = _Builder(source, symbols, algebra).build(tree)
     except RecursionError:  # pragma: no cover - the depth limits keep recursion shallow
         raise FormulaError("formula is nested too deeply or too complex") from None
     names = symbols if states is None else [name for name in states if name in symbols]
@@ -494,10 +325,52 @@ def parse_formula(
     if work > MAX_DERIVATIVE_WORK:
         raise FormulaError(
             f"formula is too complex to differentiate: its derivatives would hold about "
-            f"{work:,.0f} terms (the limit is {MAX_DERIVATIVE_WORK:,}); use fewer factors in "
+            f"{work:,} terms (the limit is {MAX_DERIVATIVE_WORK:,}); use fewer factors in "
             "long products or fewer nested functions"
         )
     return result
+
+
+def read_equations(equations: Mapping[str, str], read: Callable[[str], _Parsed]) -> list[_Parsed]:
+    """``read`` applied to each right-hand side in order; a refusal is raised again as
+    ``FormulaError(variable, reason)``, naming the variable whose formula failed."""
+    parsed = []
+    for variable, text in equations.items():
+        try:
+            parsed.append(read(text))
+        except FormulaError as error:
+            raise FormulaError(variable, str(error)) from None
+    return parsed
+
+
+def check_equations(equations: Mapping[str, str], parameter_names: Sequence[str]) -> None:
+    """Check a formula model's right-hand sides as the model library builds them
+    (:func:`planner.models.library.formula_spec`), raising the same
+    ``FormulaError(variable, reason)``, without sympy when the light algebra decides every
+    formula; otherwise the formulas are built with sympy, the reference."""
+    variables = tuple(equations)
+    names = (*variables, *parameter_names)
+    try:
+        read_equations(equations, lambda text: check_formula(text, names, variables))
+    except UndecidedError:
+        from planner.models.library import formula_spec
+
+        formula_spec(equations, tuple(parameter_names))
+
+
+_NAME = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,31}")
+_RESERVED = frozenset({*ALLOWED_FUNCTIONS, *_CONSTANTS})
+
+
+def check_name(name: str) -> str | None:
+    """Why ``name`` cannot be a variable or parameter name, or None when it can."""
+    if not _NAME.fullmatch(name):
+        rule = "names start with a letter and hold only letters, digits and '_' (at most 32)"
+        odd = unusual_character(name)
+        return rule if odd is None else f"{odd}; {rule}"
+    if name in _RESERVED:
+        return f"{name!r} is a function or constant name; choose another"
+    return None
 
 
 def unusual_character(text: str) -> str | None:
@@ -575,30 +448,32 @@ def _syntax_tree(source: str) -> ast.Expression:
 
 
 class _Builder:
-    """Walks one syntax tree and builds the sympy expression, refusing anything off the list.
+    """Walks one syntax tree and builds the expression in ``algebra``, refusing anything off
+    the list.
 
-    Invariant: every constant part of an expression built here is a sympy Number within
+    Invariant: every constant part of an expression built here is a Number within
     :data:`MIN_CONSTANT` .. :data:`MAX_CONSTANT` (or zero); sympy never sees a symbolic constant.
     """
 
-    def __init__(self, source: str, symbols: Mapping[str, sympy.Symbol]) -> None:
+    def __init__(self, source: str, symbols: Mapping[str, Expression], algebra: Algebra) -> None:
         self._source = source
         self._symbols = symbols
-        self._heights: dict[sympy.Expr, int] = {}
+        self._algebra = algebra
+        self._heights: dict[Expression, int] = {}
 
-    def build(self, tree: ast.Expression) -> sympy.Expr:
+    def build(self, tree: ast.Expression) -> Expression:
         """Translate the whole tree into one expression."""
         if not isinstance(tree, ast.Expression):  # pragma: no cover - ast.parse in eval mode
             raise FormulaError("not a valid formula: expected a single expression")
         result = self._node(tree.body, 0)
-        if not isinstance(result, sympy.Expr):  # pragma: no cover - every branch builds an Expr
+        if not isinstance(result, self._algebra.Expr):  # pragma: no cover - always an Expr
             raise FormulaError("formula does not describe a number")
         return result
 
     # ----------------------------------------------------------------------------------------
     # dispatch
 
-    def _node(self, node: ast.AST, depth: int) -> sympy.Expr:
+    def _node(self, node: ast.AST, depth: int) -> Expression:
         """Build one node, enforcing the nesting limit and refusing unknown node types."""
         if depth > MAX_DEPTH:
             raise FormulaError(f"formula is nested too deeply (more than {MAX_DEPTH} levels)")
@@ -620,8 +495,8 @@ class _Builder:
     # ----------------------------------------------------------------------------------------
     # leaves
 
-    def _constant(self, node: ast.Constant) -> sympy.Expr:
-        """Numbers become exact sympy Integers or Floats; every other literal is refused."""
+    def _constant(self, node: ast.Constant) -> Expression:
+        """Numbers become exact Integers or Floats; every other literal is refused."""
         value = node.value
         if isinstance(value, bool):
             raise self._refuse("True and False are not allowed", node)
@@ -632,7 +507,7 @@ class _Builder:
         if isinstance(value, int):
             if abs(value) > MAX_CONSTANT:
                 raise self._refuse(self._constant_range_message(), node)
-            return sympy.Integer(value)
+            return self._algebra.integer(value)
         if isinstance(value, float):
             written_as_zero = value == 0.0 and not any(
                 digit in "123456789" for digit in self._mantissa(node)
@@ -643,7 +518,7 @@ class _Builder:
                 or (abs(value) < MIN_CONSTANT and not written_as_zero)
             ):
                 raise self._refuse(self._constant_range_message(), node)
-            return sympy.Float(value)
+            return self._algebra.real(value)
         raise self._refuse(f"the literal {value!r} is not allowed", node)
 
     def _mantissa(self, node: ast.Constant) -> str:
@@ -656,14 +531,14 @@ class _Builder:
         """The one message for every out-of-range literal, so users see the same limit."""
         return f"numbers must be finite and {_LIMIT_RANGE}"
 
-    def _name(self, node: ast.Name) -> sympy.Expr:
+    def _name(self, node: ast.Name) -> Expression:
         """A name is a declared symbol or a known constant; anything else is a user mistake."""
         name = node.id
         _refuse_private(name)
         if name in self._symbols:
             return self._symbols[name]
         if name in _CONSTANTS:
-            return sympy.Float(_CONSTANTS[name])
+            return self._algebra.real(_CONSTANTS[name])
         declared = ", ".join(sorted(self._symbols)) or "(none)"
         hint = ""
         if name == "e":
@@ -675,7 +550,7 @@ class _Builder:
     # ----------------------------------------------------------------------------------------
     # operators
 
-    def _binary(self, node: ast.BinOp, depth: int) -> sympy.Expr:
+    def _binary(self, node: ast.BinOp, depth: int) -> Expression:
         """Dispatch a binary operator: sum and product chains, powers, or a refusal."""
         if isinstance(node.op, _ADDITIVE):
             return self._chain(node, _ADDITIVE, depth)
@@ -692,7 +567,7 @@ class _Builder:
 
     def _chain(
         self, node: ast.BinOp, group: tuple[type[ast.operator], ...], depth: int
-    ) -> sympy.Expr:
+    ) -> Expression:
         """Build ``a + b - c + ...`` (or ``a * b / c ...``) as one level of nesting.
 
         Python nests such chains to the left, one tree level per operator, so a plain sum of
@@ -712,7 +587,7 @@ class _Builder:
             result = self._combine(_BINARY_ACTIONS[type(op)], node, result, operand)
         return result
 
-    def _unary(self, node: ast.UnaryOp, depth: int) -> sympy.Expr:
+    def _unary(self, node: ast.UnaryOp, depth: int) -> Expression:
         """Unary minus negates, unary plus is a no-op; other unary operators are refused."""
         if isinstance(node.op, ast.USub):
             return self._combine(_negate, node, self._node(node.operand, depth + 1))
@@ -723,7 +598,7 @@ class _Builder:
         )
         raise self._refuse(reason, node)
 
-    def _power(self, base: sympy.Expr, exponent: sympy.Expr, node: ast.AST) -> sympy.Expr:
+    def _power(self, base: Expression, exponent: Expression, node: ast.AST) -> Expression:
         """Build ``base**exponent`` after checking it cannot create a gigantic number.
 
         The checks run before sympy sees the power, because sympy evaluates integer powers of
@@ -753,14 +628,14 @@ class _Builder:
             )
         if base.is_Number and exponent.is_Number:
             return self._fold(lambda: _constant_power(base, exponent), node)
-        result = self._combine(sympy.Pow, node, base, exponent)
+        result = self._combine(self._algebra.power, node, base, exponent)
         self._check_nesting(result, node)
         return result
 
     # ----------------------------------------------------------------------------------------
     # function calls
 
-    def _call(self, node: ast.Call, depth: int) -> sympy.Expr:
+    def _call(self, node: ast.Call, depth: int) -> Expression:
         """Call a whitelisted function by name, with the right number of positional arguments."""
         name = self._function_name(node)
         spec = ALLOWED_FUNCTIONS[name]
@@ -773,7 +648,7 @@ class _Builder:
             raise self._refuse(f"{name} takes {_arity(spec)} (got {count})", node)
         arguments = [self._node(arg, depth + 1) for arg in node.args]
         if all(argument.is_Number for argument in arguments):
-            return self._fold(lambda: spec.value(*arguments), node)
+            return self._fold(lambda: self._value(name, arguments), node)
         if spec.scaled:
             scale = _scale_log10(arguments[0])
             if scale > math.log10(MAX_ARGUMENT_SCALE):
@@ -783,9 +658,32 @@ class _Builder:
                     f"{name} of it would be rounding noise or overflow",
                     node,
                 )
-        result = self._combine(spec.function, node, *arguments)
+        result = self._combine(lambda *args: self._apply(name, args), node, *arguments)
         self._check_nesting(result, node)
         return result
+
+    def _apply(self, name: str, arguments: Sequence[Expression]) -> Expression:
+        """The expression of ``name(*arguments)``; max and min of several arguments become a
+        balanced tree of two-argument calls (a chain would nest as deep as there are
+        arguments, and compiling recurses that deep), numbers combined first and repeated
+        arguments counted once."""
+        function = self._algebra.function(name)
+        if name not in ("max", "min"):
+            return function(*arguments)
+        numbers = [argument for argument in arguments if argument.is_Number]
+        level = list(dict.fromkeys(argument for argument in arguments if not argument.is_Number))
+        if numbers:
+            level.append(reduce(function, numbers))
+        while len(level) > 1:
+            paired = [function(*level[i : i + 2]) for i in range(0, len(level) - 1, 2)]
+            level = paired + level[len(paired) * 2 :]
+        return level[0]
+
+    def _value(self, name: str, numbers: Sequence[Expression]) -> Any:
+        """``name`` of checked numbers: an mpmath number for the analytic functions; abs, min
+        and max compute themselves exactly."""
+        analytic = ALLOWED_FUNCTIONS[name].analytic
+        return self._apply(name, numbers) if analytic is None else analytic(*numbers)
 
     def _function_name(self, node: ast.Call) -> str:
         """Return the called function's name, refusing anything but a whitelisted plain name."""
@@ -812,10 +710,10 @@ class _Builder:
     # building, folding and checking
 
     def _combine(
-        self, action: Callable[..., sympy.Expr], node: ast.AST, *args: sympy.Expr
-    ) -> sympy.Expr:
+        self, action: Callable[..., Expression], node: ast.AST, *args: Expression
+    ) -> Expression:
         """Apply one operation: folded to a number when every operand is one, else built by
-        sympy and checked (numbers in range, no merged huge exponent, constants folded)."""
+        the algebra and checked (numbers in range, no merged huge exponent, constants folded)."""
         if all(arg.is_Number for arg in args):
             return self._fold(lambda: action(*args), node)
         try:
@@ -824,8 +722,8 @@ class _Builder:
             raise self._refuse(f"cannot be computed ({error})", node) from None
         return self._checked(result, node)
 
-    def _fold(self, compute: Callable[[], Any], node: ast.AST) -> sympy.Expr:
-        """Compute a constant part and return it as a checked sympy Number."""
+    def _fold(self, compute: Callable[[], Any], node: ast.AST) -> Expression:
+        """Compute a constant part and return it as a checked Number."""
         try:
             value = compute()
         except ZeroDivisionError:
@@ -834,9 +732,9 @@ class _Builder:
             raise self._refuse(f"cannot be computed ({error})", node) from None
         return self._number(value, node)
 
-    def _number(self, value: Any, node: ast.AST) -> sympy.Expr:
-        """A folded value (an mpmath number of the private context or a sympy Number) as a
-        sympy Number, refused when undefined, complex or out of range."""
+    def _number(self, value: Any, node: ast.AST) -> Expression:
+        """A folded value (an mpmath number of the private context or a Number) as a Number,
+        refused when undefined, complex or out of range."""
         if isinstance(value, _MP.mpc):
             if value.imag != 0:
                 raise self._refuse(_COMPLEX, node)
@@ -846,8 +744,8 @@ class _Builder:
                 raise self._refuse(_UNDEFINED, node)
             if value != 0:
                 self._check_magnitude(abs(value), node)
-            return sympy.Float(float(value))
-        if value is sympy.I:
+            return self._algebra.real(float(value))
+        if self._algebra.is_imaginary_unit(value):
             raise self._refuse(_COMPLEX, node)
         if not (value.is_Rational or value.is_Float):  # nan (0/0), oo, zoo (1/0)
             raise self._refuse(_UNDEFINED, node)
@@ -874,11 +772,12 @@ class _Builder:
                 f"{_power_of_ten(MIN_CONSTANT)} in magnitude)"
             )
 
-    def _evaluate(self, expr: sympy.Expr, node: ast.AST) -> sympy.Expr:
+    def _evaluate(self, expr: Expression, node: ast.AST) -> Expression:
         """Value of a constant expression that sympy formed from checked numbers, computed
         bottom-up with every intermediate number checked."""
         if expr.is_Number or (expr.is_Atom and not expr.is_NumberSymbol):
             return self._number(expr, node)
+        self._algebra.constant(expr)
         if expr.is_NumberSymbol:
             return self._number(_MP.mpf(float(expr)), node)
         values = [self._evaluate(arg, node) for arg in expr.args]
@@ -888,40 +787,55 @@ class _Builder:
             return reduce(lambda a, b: self._fold(lambda: a * b, node), values)
         if expr.is_Pow:
             return self._fold(lambda: _constant_power(*values), node)
-        value = _VALUE_OF.get(expr.func)
-        if value is None:
+        name = _function_name(expr)
+        if name not in ALLOWED_FUNCTIONS:
             raise self._refuse(f"cannot be computed as a number ({expr.func})", node)
-        return self._fold(lambda: value(*values), node)
+        return self._fold(lambda: self._value(name, values), node)
 
-    def _checked(self, expr: sympy.Expr, node: ast.AST) -> sympy.Expr:
-        """Check an expression sympy built from checked parts; fold constants it formed."""
+    def _checked(self, expr: Expression, node: ast.AST) -> Expression:
+        """Check an expression the algebra built from checked parts; fold constants it formed.
+
+        sympy reports the first problem in its order of arguments. The light algebra orders
+        arguments differently, so it looks at every part and, when they hold different
+        problems, leaves the verdict to sympy.
+        """
         if not expr.free_symbols:
             return self._evaluate(expr, node)
-        constants: dict[sympy.Expr, sympy.Expr] = {}
+        constants: dict[Expression, Expression] = {}
+        problems: list[FormulaError] = []
         stack = [expr]
         while stack:
             part = stack.pop()
-            if part.is_Atom:
-                if not part.is_Symbol:
-                    self._evaluate(part, node)
-            elif not part.free_symbols:
-                constants[part] = self._evaluate(part, node)
-            else:
-                if part.is_Pow and part.exp.is_Number and abs(part.exp) > MAX_EXPONENT:
-                    raise self._refuse(
-                        f"powers combine to an exponent of {_short(part.exp)}, more than the "
-                        f"limit {MAX_EXPONENT}",
-                        node,
-                    )
-                stack.extend(part.args)
+            try:
+                if part.is_Atom:
+                    if not part.is_Symbol:
+                        self._evaluate(part, node)
+                elif not part.free_symbols:
+                    constants[part] = self._evaluate(part, node)
+                else:
+                    if part.is_Pow and part.exp.is_Number and abs(part.exp) > MAX_EXPONENT:
+                        raise self._refuse(
+                            f"powers combine to an exponent of {_short(part.exp)}, more than "
+                            f"the limit {MAX_EXPONENT}",
+                            node,
+                        )
+                    stack.extend(part.args)
+            except FormulaError as problem:
+                if self._algebra.ordered:
+                    raise
+                problems.append(problem)
+        if problems:
+            if len({str(problem) for problem in problems}) > 1:
+                raise UndecidedError("several problems in one step")
+            raise problems[0]
         if not constants:
             return expr
         try:
-            return expr.xreplace(constants)
+            return self._algebra.xreplace(expr, constants)
         except (ArithmeticError, TypeError, ValueError) as error:  # pragma: no cover
             raise self._refuse(f"cannot be computed ({error})", node) from None
 
-    def _check_nesting(self, expr: sympy.Expr, node: ast.AST) -> None:
+    def _check_nesting(self, expr: Expression, node: ast.AST) -> None:
         """Refuse exponentials nested deeper than MAX_EXPONENTIAL_NESTING."""
         height = self._exponential_height(expr)
         if height > MAX_EXPONENTIAL_NESTING:
@@ -931,7 +845,7 @@ class _Builder:
                 node,
             )
 
-    def _exponential_height(self, expr: sympy.Expr) -> int:
+    def _exponential_height(self, expr: Expression) -> int:
         """How many exponentials are nested in ``expr`` (remembered per sub-expression)."""
         if expr.is_Atom:
             return 0
@@ -939,7 +853,7 @@ class _Builder:
         if known is not None:
             return known
         inner = max(self._exponential_height(arg) for arg in expr.args)
-        exponential = isinstance(expr, (RealExp, RealSinh, RealCosh)) or (
+        exponential = _function_name(expr) in _EXPONENTIALS or (
             expr.is_Pow and not expr.exp.is_Number
         )
         height = inner + 1 if exponential else inner
@@ -958,11 +872,11 @@ class _Builder:
         return FormulaError(f"{reason}, in {self._segment(node)!r}")
 
 
-def _negate(value: sympy.Expr) -> sympy.Expr:
+def _negate(value: Expression) -> Expression:
     return -value
 
 
-_BINARY_ACTIONS: Mapping[type[ast.operator], Callable[[sympy.Expr, sympy.Expr], sympy.Expr]] = (
+_BINARY_ACTIONS: Mapping[type[ast.operator], Callable[[Expression, Expression], Expression]] = (
     MappingProxyType(
         {
             ast.Add: lambda a, b: a + b,
@@ -972,10 +886,10 @@ _BINARY_ACTIONS: Mapping[type[ast.operator], Callable[[sympy.Expr, sympy.Expr], 
         }
     )
 )
-"""The sympy operation for each operator of a sum or product chain."""
+"""The operation for each operator of a sum or product chain (both algebras' operators)."""
 
 
-def _constant_power(base: sympy.Expr, exponent: sympy.Expr) -> Any:
+def _constant_power(base: Expression, exponent: Expression) -> Any:
     """``base**exponent`` of two checked numbers: exact for a rational base and an integer
     exponent (the power guards bound its size), else in double precision (mpmath)."""
     if base.is_zero and exponent.is_negative:
@@ -985,7 +899,7 @@ def _constant_power(base: sympy.Expr, exponent: sympy.Expr) -> Any:
     return _MP.power(_to_mpf(base), _to_mpf(exponent))
 
 
-def _scale_log10(expr: sympy.Expr) -> float:
+def _scale_log10(expr: Expression) -> float:
     """log10 of the largest factor by which ``expr`` scales its names, or of the largest number
     it holds: 20 for 1e20*x, for x + 1e20 and for (1e10*x)**2. Numbers inside other functions
     do not count; each function's own argument is checked when it is built."""
@@ -994,7 +908,8 @@ def _scale_log10(expr: sympy.Expr) -> float:
     if expr.is_Add:
         return max(_scale_log10(term) for term in expr.args)
     if expr.is_Mul:
-        return sum(_scale_log10(factor) for factor in expr.args)
+        # fsum rounds once, whatever the order in which an algebra keeps the factors
+        return math.fsum(_scale_log10(factor) for factor in expr.args)
     if expr.is_Pow and expr.exp.is_Number:
         return _scale_log10(expr.base) * float(expr.exp)
     return 0.0
@@ -1016,13 +931,13 @@ def _arity(spec: FunctionSpec) -> str:
     return f"{spec.min_args} to {spec.max_args} arguments"  # pragma: no cover - none yet
 
 
-def _short(number: sympy.Expr) -> str:
+def _short(number: Expression) -> str:
     """A number as text, shortened so a message never quotes hundreds of digits."""
     text = str(number)
     return text if len(text) <= _SEGMENT_CHARS else text[: _SEGMENT_CHARS - 3] + "..."
 
 
-def _magnitude(number: sympy.Expr) -> float:
+def _magnitude(number: Expression) -> float:
     """|number| as a float (inf when it does not fit), without building big intermediate values."""
     try:
         return abs(float(number))
@@ -1030,7 +945,7 @@ def _magnitude(number: sympy.Expr) -> float:
         return math.inf
 
 
-def _number_digits(expr: sympy.Expr) -> float:
+def _number_digits(expr: Expression) -> float:
     """Upper estimate of the decimal order of magnitude of the numbers inside ``expr``.
 
     Only the parts sympy multiplies out automatically count: numeric factors of a product and
@@ -1046,8 +961,8 @@ def _number_digits(expr: sympy.Expr) -> float:
     return 0.0
 
 
-def _digits_of_number(number: sympy.Expr) -> float:
-    """Decimal order of magnitude of a sympy Number, large or tiny: 1e-5 and 1e5 both give 5."""
+def _digits_of_number(number: Expression) -> float:
+    """Decimal order of magnitude of a Number, large or tiny: 1e-5 and 1e5 both give 5."""
     if number.is_Rational:
         numerator, denominator = number.as_numer_denom()
         numerator = abs(int(numerator))
@@ -1063,7 +978,7 @@ def _digits_of_number(number: sympy.Expr) -> float:
     return math.inf  # infinities and nan
 
 
-def _exponent_reach(expr: sympy.Expr) -> float:
+def _exponent_reach(expr: Expression) -> float:
     """The factor by which sympy would multiply a constant exponent applied to ``expr``.
 
     sympy merges ``(x**8)**8`` into ``x**64`` and distributes a power over a product, so the
@@ -1083,21 +998,22 @@ def _exponent_reach(expr: sympy.Expr) -> float:
 # how much work differentiating a formula takes
 
 
-_TERM_OVERHEAD = 2.0
+_TERM_OVERHEAD = 2
 """Nodes each product-rule or chain-rule term adds besides its factors (the product itself and a
-numeric coefficient)."""
+numeric coefficient). Sizes are whole numbers, so the estimate is exact and does not depend on
+the order in which an algebra keeps the arguments of a sum or product."""
 
 
 class _DerivativeSizes(NamedTuple):
     """Estimated node counts of an expression and of its derivatives: ``first[v]`` of d/dv,
     ``second[(v, w)]`` of d2/dv dw (only pairs with a differentiated name come up)."""
 
-    size: float
-    first: dict[sympy.Symbol, float]
-    second: dict[tuple[sympy.Symbol, sympy.Symbol], float]
+    size: int
+    first: dict[Expression, int]
+    second: dict[tuple[Expression, Expression], int]
 
 
-def derivative_work(expr: sympy.Expr, states: Collection[sympy.Symbol]) -> float:
+def derivative_work(expr: Expression, states: Collection[Expression]) -> int:
     """Estimated total size of the derivatives the model library builds from ``expr``.
 
     Those are d/ds and d2/ds ds' for the states s, d/du and d2/ds du for the control u (any
@@ -1107,13 +1023,13 @@ def derivative_work(expr: sympy.Expr, states: Collection[sympy.Symbol]) -> float
     """
     sizes = _derivative_sizes(expr, frozenset(states), {})
     controls = [name for name in sizes.first if name not in states] or [None]
-    state_work = sum(sizes.first.get(s, 0.0) for s in states) + sum(
-        (1.0 if v == w else 2.0) * size
+    state_work = sum(sizes.first.get(s, 0) for s in states) + sum(
+        (1 if v == w else 2) * size
         for (v, w), size in sizes.second.items()
         if v in states and w in states
     )
     control_work = max(
-        sizes.first.get(u, 0.0)
+        sizes.first.get(u, 0)
         + sum(size for (v, w), size in sizes.second.items() if u in (v, w) and v != w)
         for u in controls
     )
@@ -1121,16 +1037,16 @@ def derivative_work(expr: sympy.Expr, states: Collection[sympy.Symbol]) -> float
 
 
 def _derivative_sizes(
-    expr: sympy.Expr, states: frozenset[sympy.Symbol], memo: dict[sympy.Expr, _DerivativeSizes]
+    expr: Expression, states: frozenset[Expression], memo: dict[Expression, _DerivativeSizes]
 ) -> _DerivativeSizes:
     """Sizes of ``expr`` and its derivatives, bottom-up (see :func:`derivative_work`)."""
     known = memo.get(expr)
     if known is not None:
         return known
     if expr.is_Symbol:
-        result = _DerivativeSizes(1.0, {expr: 1.0}, {})
+        result = _DerivativeSizes(1, {expr: 1}, {})
     elif expr.is_Atom:
-        result = _DerivativeSizes(1.0, {}, {})
+        result = _DerivativeSizes(1, {}, {})
     else:
         parts = [_derivative_sizes(arg, states, memo) for arg in expr.args]
         if expr.is_Add:
@@ -1140,24 +1056,24 @@ def _derivative_sizes(
         else:
             if expr.is_Pow and expr.exp.is_Number:
                 parts = parts[:1]  # a constant exponent is no argument to differentiate
-            piecewise_linear = isinstance(expr, (RealAbs, RealMax, RealMin))
-            growth = 2.0 if expr.is_Pow and len(parts) == 2 else 1.0
+            piecewise_linear = _function_name(expr) in _PIECEWISE_LINEAR
+            growth = 2 if expr.is_Pow and len(parts) == 2 else 1
             result = _function_sizes(parts, states, not piecewise_linear, growth)
     memo[expr] = result
     return result
 
 
-def _ordered(v: sympy.Symbol, w: sympy.Symbol) -> tuple[sympy.Symbol, sympy.Symbol]:
+def _ordered(v: Expression, w: Expression) -> tuple[Expression, Expression]:
     """The pair (v, w) in one fixed order, so d2/dv dw and d2/dw dv share an entry."""
     return (v, w) if v.name <= w.name else (w, v)
 
 
 def _add_cross_terms(
-    second: dict[tuple[sympy.Symbol, sympy.Symbol], float],
+    second: dict[tuple[Expression, Expression], int],
     left: _DerivativeSizes,
     right: _DerivativeSizes,
-    states: frozenset[sympy.Symbol],
-    base: float,
+    states: frozenset[Expression],
+    base: int,
 ) -> None:
     """Count the terms d(left)/dv * d(right)/dw (``base`` nodes besides the two derivatives)
     into the second derivatives d2/dv dw, for every pair of names with a state among them."""
@@ -1165,37 +1081,37 @@ def _add_cross_terms(
         for w, right_size in right.first.items():
             if v in states or w in states:
                 key = _ordered(v, w)
-                second[key] = second.get(key, 0.0) + base + left_size + right_size
+                second[key] = second.get(key, 0) + base + left_size + right_size
 
 
 def _sum_sizes(parts: list[_DerivativeSizes]) -> _DerivativeSizes:
     """A sum differentiates term by term."""
-    first: dict[sympy.Symbol, float] = {}
-    second: dict[tuple[sympy.Symbol, sympy.Symbol], float] = {}
+    first: dict[Expression, int] = {}
+    second: dict[tuple[Expression, Expression], int] = {}
     for part in parts:
         for name, size in part.first.items():
-            first[name] = first.get(name, 1.0) + size
+            first[name] = first.get(name, 1) + size
         for pair, size in part.second.items():
-            second[pair] = second.get(pair, 1.0) + size
-    return _DerivativeSizes(1.0 + sum(part.size for part in parts), first, second)
+            second[pair] = second.get(pair, 1) + size
+    return _DerivativeSizes(1 + sum(part.size for part in parts), first, second)
 
 
 def _product_sizes(
-    parts: list[_DerivativeSizes], states: frozenset[sympy.Symbol]
+    parts: list[_DerivativeSizes], states: frozenset[Expression]
 ) -> _DerivativeSizes:
     """Product rule: d(f g h) = f' g h + f g' h + f g h'; each term is nearly the whole."""
-    whole = 1.0 + sum(part.size for part in parts)
-    first: dict[sympy.Symbol, float] = {}
+    whole = 1 + sum(part.size for part in parts)
+    first: dict[Expression, int] = {}
     for part in parts:
         for name, size in part.first.items():
-            first[name] = first.get(name, 0.0) + whole - part.size + size + _TERM_OVERHEAD
-    second: dict[tuple[sympy.Symbol, sympy.Symbol], float] = {}
+            first[name] = first.get(name, 0) + whole - part.size + size + _TERM_OVERHEAD
+    second: dict[tuple[Expression, Expression], int] = {}
     for i, left in enumerate(parts):
         for j, right in enumerate(parts):
             if i == j:
                 for pair, size in left.second.items():
                     extra = whole - left.size + size + _TERM_OVERHEAD
-                    second[pair] = second.get(pair, 0.0) + extra
+                    second[pair] = second.get(pair, 0) + extra
                 continue
             base = whole - left.size - right.size + _TERM_OVERHEAD
             _add_cross_terms(second, left, right, states, base)
@@ -1203,7 +1119,7 @@ def _product_sizes(
 
 
 def _function_sizes(
-    parts: list[_DerivativeSizes], states: frozenset[sympy.Symbol], curved: bool, growth: float
+    parts: list[_DerivativeSizes], states: frozenset[Expression], curved: bool, growth: int
 ) -> _DerivativeSizes:
     """Chain rule for g(u1, u2, ...): dg = sum g_i(u) du_i, and once more for d2g.
 
@@ -1211,15 +1127,15 @@ def _function_sizes(
     variable exponent, b**e*(e'*log(b) + e*b'/b)), plus a coefficient. For a piecewise linear
     g (abs, min, max) the second derivatives g_ij vanish, and with them the cross terms.
     """
-    whole = 1.0 + sum(part.size for part in parts)
+    whole = 1 + sum(part.size for part in parts)
     outer = growth * whole + _TERM_OVERHEAD
-    first: dict[sympy.Symbol, float] = {}
-    second: dict[tuple[sympy.Symbol, sympy.Symbol], float] = {}
+    first: dict[Expression, int] = {}
+    second: dict[tuple[Expression, Expression], int] = {}
     for left in parts:
         for name, size in left.first.items():
-            first[name] = first.get(name, 0.0) + outer + size
+            first[name] = first.get(name, 0) + outer + size
         for pair, size in left.second.items():
-            second[pair] = second.get(pair, 0.0) + outer + size
+            second[pair] = second.get(pair, 0) + outer + size
         for right in parts if curved else ():
             _add_cross_terms(second, left, right, states, growth * outer)
     return _DerivativeSizes(whole, first, second)

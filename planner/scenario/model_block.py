@@ -83,8 +83,10 @@ class FormulaModel(Strict):
     @model_validator(mode="after")
     def _check_formulas(self) -> FormulaModel:
         # Whether a formula is defined (1/0, sqrt(-1), x/(x - x)) depends on how sympy
-        # simplifies it, so checking formulas needs sympy; only formula models pay for that.
-        from planner.models.library import check_name
+        # simplifies it; check_equations follows sympy's simplification without importing it
+        # (and builds the formulas with sympy only where it cannot tell), so checking a file
+        # stays quick. The equations themselves are built when a command computes.
+        from planner.models.formula import check_equations, check_name
 
         problems: list[tuple[Loc, str]] = []
         for block, names in (("equations", self.equations), ("parameters", self.parameters)):
@@ -95,7 +97,7 @@ class FormulaModel(Strict):
             problems.append((("parameters", name), "is also a variable; use distinct names"))
         if not problems:
             try:
-                _ = self.spec
+                check_equations(self.equations, tuple(self.parameters))
             except FormulaError as error:
                 variable, reason = error.args
                 problems.append((("equations", variable), reason))
