@@ -51,10 +51,7 @@ def _write(args: argparse.Namespace, option: str, content: str | bytes) -> None:
     from planner.textfiles import write_user_text
 
     path = getattr(args, option)
-    if isinstance(content, bytes):
-        _write_bytes(path, content, overwrite=args.force)
-    else:
-        write_user_text(path, content, overwrite=args.force)
+    write_user_text(path, content, overwrite=args.force)
     LOG.info("wrote %s", path)
 
 
@@ -66,53 +63,6 @@ def _write_page(args: argparse.Namespace, text: str) -> None:
         from planner.briefing import print_pdf
 
         _write(args, "pdf", print_pdf(text))
-
-
-def _write_bytes(path: str, data: bytes, *, overwrite: bool) -> None:
-    """Bytes (an image, a Parquet file) written as :func:`planner.textfiles.write_user_text`
-    writes text: a temporary in the same folder, flushed to disk, then linked (no overwrite)
-    or renamed (``overwrite``) into place; an InputError naming the file if that fails.
-
-    Kept here only until planner.textfiles writes bytes itself (asked of its owner); then this
-    becomes a call to it."""
-    import contextlib
-    import tempfile
-
-    from planner.textfiles import (
-        TEMPORARY_SUFFIX,
-        _sync_folder,
-        _umask,
-        clean_stale_temporaries,
-    )
-
-    folder, name = os.path.split(os.path.abspath(path))
-    clean_stale_temporaries(folder)
-    exists = Problem(path, "(file)", "exists already; choose another name (or overwrite)")
-    try:
-        handle, temporary = tempfile.mkstemp(
-            dir=folder, prefix=f".{name}.", suffix=TEMPORARY_SUFFIX
-        )
-        try:
-            with os.fdopen(handle, "wb") as stream:
-                stream.write(data)
-                stream.flush()
-                os.fsync(stream.fileno())
-            os.chmod(temporary, 0o666 & ~_umask())
-            if overwrite:
-                os.replace(temporary, path)
-            else:
-                os.link(temporary, path)  # fails if the name appeared meanwhile
-                os.unlink(temporary)
-        except BaseException:
-            with contextlib.suppress(OSError):
-                os.unlink(temporary)
-            raise
-        _sync_folder(folder)
-    except FileExistsError:
-        raise InputError([exists]) from None
-    except OSError as error:
-        reason = f"cannot write: {error.strerror or error}"
-        raise InputError([Problem(path, "(file)", reason)]) from None
 
 
 def _check_outputs(args: argparse.Namespace) -> None:

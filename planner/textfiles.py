@@ -49,8 +49,11 @@ def clean_stale_temporaries(folder: str | os.PathLike[str]) -> int:
     return removed
 
 
-def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool = False) -> Path:
-    """Write ``text`` atomically: a temporary file in the same folder, flushed to disk (fsync),
+def write_user_text(
+    path: str | os.PathLike[str], text: str | bytes, *, overwrite: bool = False
+) -> Path:
+    """Write ``text`` (UTF-8; bytes, e.g. an image or a Parquet table, as given) atomically: a
+    temporary file in the same folder, flushed to disk (fsync),
     then renamed over the name, so a crash leaves either the old file or the new one, never a
     half-written one. An existing file is kept (InputError) unless ``overwrite``.
 
@@ -76,8 +79,9 @@ def write_user_text(path: str | os.PathLike[str], text: str, *, overwrite: bool 
             [Problem(str(path), "(file)", f"cannot write: {error.strerror or error}")]
         ) from None
     try:
-        with os.fdopen(handle, "w", encoding="utf-8") as stream:
-            stream.write(text)
+        data = text if isinstance(text, bytes) else text.encode("utf-8")
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(data)
             stream.flush()
             os.fsync(stream.fileno())
         os.chmod(temporary, 0o666 & ~_umask() if mode is None else mode)
