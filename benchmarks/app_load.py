@@ -35,7 +35,7 @@ from webapp.serve import DEFAULT_WORKERS  # noqa: E402
 
 MAX_REQUESTS = 100_000  # per client, a bound beside the duration
 REQUEST_TIMEOUT = 10.0  # seconds
-EDITED_SCHEDULE = 1  # in alder-mere.toml: "Deep cut to 0.6 for 6 years, relax to 1.5"
+EDITED_SCHEDULE = 1  # in alder-mere.toml: "Deep cut to 0.06 for 6 years, relax to 0.15"
 TARGET_P95 = 1.0  # seconds
 
 
@@ -142,7 +142,7 @@ def run(clients: int, duration: float, scenario: Path, workers: int = 1) -> dict
                     break
                 with lock:
                     n = next(counter)
-                floor = f"{0.45 + (n % 9000) * 1e-4:.4f}"  # a new value each time: no cache hit
+                floor = f"{0.045 + (n % 9000) * 1e-5:.5f}"  # a new value each time: no cache hit
                 body = json.dumps(
                     recompute_body(callback_id, draft, {(EDITED_SCHEDULE, "floor"): floor})
                 )

@@ -152,7 +152,7 @@ def test_diagram_and_sweep_frames(alder):
     assert list(frame.columns[-len(alder.spec.variables) :]) == list(alder.spec.variables)
     assert len(found.figure().data) > 0 and CAUTION in found._repr_html_()
 
-    swept = planner.hysteresis_sweep(alder, step=0.1)
+    swept = planner.hysteresis_sweep(alder, step=0.01)
     frame = swept.to_frame()
     assert set(frame["direction"]) == {"up", "down"}
     assert frame["control"].dtype == np.float64
@@ -163,7 +163,7 @@ def test_diagram_and_sweep_frames(alder):
 def test_frontier_frame_follows_its_table(alder):
     from planner.frontier import frontier_rows
 
-    result = planner.overshoot_frontier(alder, depths=[0.05, 0.3])
+    result = planner.overshoot_frontier(alder, depths=[0.005, 0.03])
     frame = result.to_frame()
     _, rows = frontier_rows(result)
     assert len(frame) == 2 and frame["achievable"].dtype == bool

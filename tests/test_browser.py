@@ -96,11 +96,11 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     expect(result).to_contain_text("recovers")
     cost_before = result.locator(".cost-total").inner_text()
     floor = page.locator(dom_id(ids.schedule_field(1, "floor")))
-    floor.fill("1.3")
+    floor.fill("0.13")
     floor.press("Enter")
     expect(result).to_contain_text("stays in the undesired regime")
     assert result.locator(".cost-total").inner_text() != cost_before
-    row = page.locator(f"#{ids.TABLE} tr[data-schedule^='Deep cut to 0.6']")
+    row = page.locator(f"#{ids.TABLE} tr[data-schedule^='Deep cut to 0.06']")
     expect(row.locator("td[data-column='Verdict']")).to_have_text("stays in the undesired regime")
     shot("floor-edited")
 
@@ -111,7 +111,7 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     expect(message).to_contain_text("Floor: ")
     expect(floor.locator("xpath=..")).to_have_class(re.compile("invalid"))
     shot("bad-value-message")
-    floor.fill("1.3")
+    floor.fill("0.13")
     floor.press("Enter")
     expect(message).to_be_empty()
 
@@ -147,18 +147,18 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
             tag
         ), tag
     assert CAUTION in html.unescape(text)
-    assert "New overshoot schedule" in text and "Deep cut to 0.6" in text
+    assert "New overshoot schedule" in text and "Deep cut to 0.06" in text
     shot("briefing-exported")
 
     # Upload a malformed file: the message names the field; the edited scenario stays.
     malformed = tmp_path / "malformed.toml"
     source = (default_scenario_dir() / "alder-mere.toml").read_text(encoding="utf-8")
-    malformed.write_text(source.replace("floor = 0.6", 'floor = "deep"'), encoding="utf-8")
+    malformed.write_text(source.replace("floor = 0.06", 'floor = "deep"'), encoding="utf-8")
     page.locator(f"#{ids.UPLOAD} input[type=file]").set_input_files(str(malformed))
     load_message = page.locator(f"#{ids.LOAD_MESSAGE}")
     expect(load_message).to_contain_text("malformed.toml: schedules.1.floor")
     expect(cards).to_have_count(6)
-    expect(page.locator(dom_id(ids.schedule_field(1, "floor")))).to_have_value("1.3")
+    expect(page.locator(dom_id(ids.schedule_field(1, "floor")))).to_have_value("0.13")
     shot("malformed-upload")
 
     # Save as a new file; saving again under that name asks first and Cancel writes nothing.
@@ -167,7 +167,7 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     expect(page.locator(f"#{ids.SAVE_MESSAGE}")).to_contain_text("Saved alder-mere-edited.toml")
     saved_file = served["saved"] / "alder-mere-edited.toml"
     saved = load_scenario(saved_file)
-    assert len(saved.schedules) == 6 and saved.schedules[1].floor == 1.3
+    assert len(saved.schedules) == 6 and saved.schedules[1].floor == 0.13
     written = saved_file.read_bytes()
     page.locator(f"#{ids.SAVE_BUTTON}").click()
     expect(page.locator(f"#{ids.SAVE_CONFIRM}")).to_contain_text("exists already")
@@ -180,7 +180,7 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     page.reload()
     choose("alder-mere-edited.toml")
     expect(cards).to_have_count(6)
-    expect(page.locator(dom_id(ids.schedule_field(1, "floor")))).to_have_value("1.3")
+    expect(page.locator(dom_id(ids.schedule_field(1, "floor")))).to_have_value("0.13")
     expect(page.locator(dom_id(ids.schedule_result(1)))).to_contain_text(
         "stays in the undesired regime"
     )
@@ -188,7 +188,7 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
 
     # The slow sweep runs in the background with a progress bar, then draws the loop.
     page.get_by_text("Slow sweep", exact=True).click()
-    page.locator(f"#{ids.SWEEP_STEP}").fill("0.05")
+    page.locator(f"#{ids.SWEEP_STEP}").fill("0.005")
     page.locator(f"#{ids.SWEEP_RUN}").click()
     expect(page.locator(f"#{ids.SWEEP_GRAPH} .gtitle")).to_contain_text(
         "quasi-static sweep", timeout=30_000

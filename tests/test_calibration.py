@@ -43,11 +43,11 @@ ROOT = Path(__file__).resolve().parent.parent
 ALDER = ROOT / "scenarios" / "alder-mere.toml"
 DEMO = ROOT / "scenarios" / "data" / "alder-mere-monitoring.csv"
 DEMO_SCRIPT = ROOT / "scenarios" / "data" / "make_demo_record.py"
-TRUE = {"s": 1.2, "r": 6.0}  # alder-mere's own values; m = 4 and q = 8 are held
+TRUE = {"s": 1.2, "r": 0.6}  # alder-mere's own values; m = 0.4 and q = 8 are held
 KNOTS = np.arange(0.0, 30.0, 5.0)  # loads recorded every fifth year, interpolated between
-LOAD_PLAN = np.array([3.0, 1.0, 2.8, 0.95, 2.5, 1.0])  # all above the recovery threshold 0.86
+LOAD_PLAN = np.array([0.3, 0.1, 0.28, 0.095, 0.25, 0.1])  # all above the recovery threshold 0.086
 YEARS = np.arange(30.0)
-INITIAL_P = 7.6
+INITIAL_P = 0.76
 
 
 @cache
@@ -72,7 +72,7 @@ def _states_at(system, x0, path: ControlPath, years: np.ndarray) -> np.ndarray:
     return integrate(problem, save=Save(at=tuple(years))).samples[:, :, 0].T
 
 
-def _synthetic(rng, *, noise=0.05, load_spread=0.05, parameters=TRUE):
+def _synthetic(rng, *, noise=0.05, load_spread=0.005, parameters=TRUE):
     """A record from the recycling model with known parameters: loads at the knots (plus a small
     random change), lake P from the engine times log-normal measurement error."""
     loads = LOAD_PLAN + load_spread * rng.standard_normal(LOAD_PLAN.size)
@@ -82,7 +82,7 @@ def _synthetic(rng, *, noise=0.05, load_spread=0.05, parameters=TRUE):
     return parse_record(_csv(YEARS, loads, observed, load_years=KNOTS), "<synthetic>")
 
 
-def _reference_folds(s: float, r: float, m: float = 4.0, q: float = 8.0) -> list[tuple]:
+def _reference_folds(s: float, r: float, m: float = 0.4, q: float = 8.0) -> list[tuple]:
     """(load, P) of every fold of dP/dt = L - s P + r P^q/(m^q + P^q), by load: where
     L(P) = s P - r P^q/(m^q + P^q) has dL/dP = 0 (Carpenter, Ludwig & Brock 1999); scipy brentq
     on sign changes of the closed-form derivative."""
@@ -90,7 +90,7 @@ def _reference_folds(s: float, r: float, m: float = 4.0, q: float = 8.0) -> list
     def slope(P):
         return s - r * q * m**q * P ** (q - 1) / (m**q + P**q) ** 2
 
-    grid = np.linspace(0.01, 20.0, 4000)
+    grid = np.linspace(0.001, 2.0, 4000)
     values = slope(grid)
     folds = []
     for i in np.nonzero(np.sign(values[:-1]) != np.sign(values[1:]))[0]:
@@ -99,7 +99,7 @@ def _reference_folds(s: float, r: float, m: float = 4.0, q: float = 8.0) -> list
     return sorted(folds)
 
 
-def _reference_recovery(s: float, r: float, m: float = 4.0, q: float = 8.0) -> tuple[float, float]:
+def _reference_recovery(s: float, r: float, m: float = 0.4, q: float = 8.0) -> tuple[float, float]:
     """(load, P) of the recovery fold: the lower of the two fold loads (see _reference_folds)."""
     return _reference_folds(s, r, m, q)[0]
 
@@ -149,7 +149,7 @@ def test_fit_agrees_with_a_plain_scipy_least_squares_fit():
     loads = record.column("load")
     known = np.isfinite(loads)
     years, observed = record.times, record.column("P")
-    m, q = 4.0, 8.0
+    m, q = 0.4, 8.0
 
     def model(z):
         s, r, p0 = np.exp(z)
@@ -161,7 +161,7 @@ def test_fit_agrees_with_a_plain_scipy_least_squares_fit():
         ).y[0]
 
     residual = lambda z: np.log(model(z)) - np.log(observed)  # noqa: E731
-    start = np.log([1.0, 5.0, observed[0]])
+    start = np.log([1.0, 0.5, observed[0]])
     reference = least_squares(residual, start, jac="3-point", x_scale="jac", xtol=1e-12)
     s2 = np.sum(reference.fun**2) / (observed.size - 3)
     errors = np.sqrt(np.diag(s2 * np.linalg.inv(reference.jac.T @ reference.jac)))
@@ -183,7 +183,7 @@ def test_threshold_interval_follows_the_delta_method_with_envelope_gradients():
     )
     s, r = fit.parameter("s").value, fit.parameter("r").value
     load, P = _reference_recovery(s, r)
-    f = P**8 / (4.0**8 + P**8)
+    f = P**8 / (0.4**8 + P**8)
     gradient = np.array([s * P, -r * f, 0.0])
     spread = stats.t.ppf(0.975, fit.dof) * np.sqrt(gradient @ fit.covariance @ gradient)
     threshold = fit.thresholds["recovery"]
@@ -222,7 +222,7 @@ def test_residual_bootstrap_counts_and_agrees_with_the_covariance_intervals():
         assert b_low < c_high and c_low < b_high
 
 
-def _scipy_refit(record, target, start, m=4.0, q=8.0):
+def _scipy_refit(record, target, start, m=0.4, q=8.0):
     """One replicate refitted with scipy alone: least_squares (trust region reflective) on
     (log s, log r, log P0) around solve_ivp (LSODA, rtol 1e-10) of the recycling model and its
     forward sensitivities written out by hand, integrated knot to knot of the load path."""
@@ -356,11 +356,11 @@ def _replace_parameters(scenario, values):
     [
         # Replicates of a fit of Alder Mere, then a lake past the cusp (no fold at all), one
         # whose recovery fold lies below the searched loads, and a strongly hysteretic one.
-        ("fit", {"s": [4.0, 0.3, 1.5], "r": [6.0, 6.0, 6.2]}),
+        ("fit", {"s": [4.0, 0.3, 1.5], "r": [0.6, 0.6, 0.62]}),
         # Water and sediment, the demo: a Hopf point on the turbid branch before its fold.
         (
             "brellow-reservoir.toml",
-            {"r": [0.029, 0.031, 1.0, 0.05], "b": [0.002, 0.0021, 0.002, 0.0002]},
+            {"r": [0.145, 0.155, 5.0, 0.25], "b": [0.01, 0.0105, 0.01, 0.001]},
         ),
         # The same model with a faster sediment pool (invented b = 0.3, r = 1.0), whose turbid
         # state stays stable up to its fold; larger changes of r need the staged Newton.
@@ -416,7 +416,7 @@ FAST_SEDIMENT = {"b": 0.3, "r": 1.0}
 
 def test_replicate_thresholds_defer_to_full_diagrams_when_a_member_has_a_hopf_point():
     """A member whose turbid state is an unstable spiral next to its recovery fold (the demo's
-    slow sediment, b = 0.002) has its threshold at a Hopf point, which Newton on the fold
+    slow sediment, b = 0.01) has its threshold at a Hopf point, which Newton on the fold
     cannot find: the shortcut declines for the whole set (then a full diagram per member
     decides). At the fold the second eigenvalue of the Jacobian is positive there (numpy)."""
     scenario = _replace_parameters(
@@ -424,8 +424,8 @@ def test_replicate_thresholds_defer_to_full_diagrams_when_a_member_has_a_hopf_po
     )
     diagram = diagram_for(scenario)
     assert replicate_thresholds(diagram, {"b": np.array([0.3, 0.25])}) is not None
-    assert replicate_thresholds(diagram, {"b": np.array([0.3, 0.002])}) is None
-    slow = diagram_for(_replace_parameters(scenario, {"b": 0.002}))
+    assert replicate_thresholds(diagram, {"b": np.array([0.3, 0.01])}) is None
+    slow = diagram_for(_replace_parameters(scenario, {"b": 0.01}))
     fold = [f for f in slow.folds if f.kind == "recovery"][0]
     assert np.max(np.linalg.eigvals(slow.system.jac(fold.state, fold.control)).real) > 0
     assert slow.recovery.kind == "hopf"
@@ -440,7 +440,7 @@ def test_replicate_thresholds_defer_to_full_diagrams_without_a_window():
     assert diagram.window is None
     assert replicate_thresholds(diagram, {"s": np.array([3.9, 4.1])}) is None
 
-    record = _synthetic(np.random.default_rng(4), parameters={"s": 4.0, "r": 6.0})
+    record = _synthetic(np.random.default_rng(4), parameters={"s": 4.0, "r": 0.6})
     fit = fit_record(
         scenario, observations_for(record, scenario), fit=["s", "r"], log=True, bootstrap=3
     )
@@ -453,15 +453,15 @@ def test_replicate_thresholds_defer_to_full_diagrams_without_a_window():
 
 @cache
 def _flat_fit():
-    """A fit of s and r to a lake held at one load (2.0) on its clear branch, where
-    P = L / s with almost no recycling (r P^8 / (m^8 + P^8) ~ r (P / m)^8 at P ~ 1.7, m = 4:
+    """A fit of s and r to a lake held at one load (0.2) on its clear branch, where
+    P = L / s with almost no recycling (r P^8 / (m^8 + P^8) ~ r (P / m)^8 at P ~ 0.17, m = 0.4:
     Carpenter, Ludwig & Brock 1999), so r is not identifiable; equilibrium by scipy brentq."""
     scenario = _alder()
     rng = np.random.default_rng(2)
     years = np.arange(25.0)
-    equilibrium = brentq(lambda P: 2.0 - 1.2 * P + 6.0 * P**8 / (4.0**8 + P**8), 0.1, 2.5)
+    equilibrium = brentq(lambda P: 0.2 - 1.2 * P + 0.6 * P**8 / (0.4**8 + P**8), 0.01, 0.25)
     observed = equilibrium * np.exp(0.03 * rng.standard_normal(years.size))
-    record = parse_record(_csv(years, np.full(years.size, 2.0), observed), "<flat>")
+    record = parse_record(_csv(years, np.full(years.size, 0.2), observed), "<flat>")
     return fit_record(
         scenario, observations_for(record, scenario), fit=["s", "r"], log=True, bootstrap=0
     )
@@ -485,14 +485,24 @@ def test_warns_when_the_record_cannot_tell_the_parameters_apart():
     assert informative.identifiable, informative.warnings
 
 
+SLOW_SEDIMENT = {"b": 0.002, "r": 0.03}
+"""Invented: the Brellow demo with a sediment pool that turns over in decades, as in Carpenter
+2005 (b = 0.001, r = 0.019 per year); its sediment P starts near the turbid equilibrium of that
+pool (23.75 g P / m2)."""
+
+
 def test_two_variable_model_with_unobserved_sediment_is_fitted_and_flagged():
-    """The water-and-sediment model (Carpenter 2005) observed only in water P: the fit runs
-    through the same code path, its 95% interval of r covers the true value, and the
-    unobserved sediment pool's initial value is reported as poorly determined."""
-    scenario = load_scenario(ROOT / "scenarios" / "brellow-reservoir.toml")
+    """The water-and-sediment model (Carpenter 2005) with a slow sediment pool, observed only
+    in water P: the fit runs through the same code path, its 95% interval of r covers the true
+    value, and the unobserved sediment pool's initial value, which 40 years of water P barely
+    inform, is reported as poorly determined."""
+    scenario = _replace_parameters(
+        load_scenario(ROOT / "scenarios" / "brellow-reservoir.toml"), SLOW_SEDIMENT
+    )
+    scenario = scenario.model_copy(update={"state": {"X": 0.875, "M": 23.75}})
     rng = np.random.default_rng(2)
     years, knots = np.arange(40.0), np.arange(0.0, 40.0, 5.0)
-    loads = np.array([0.8, 0.6, 0.9, 0.5, 0.7, 0.4, 0.6, 0.5])
+    loads = np.array([0.2, 0.15, 0.225, 0.125, 0.175, 0.1, 0.15, 0.125])
     modelled = _states_at(
         scenario.system(), scenario.initial_state, ControlPath(knots, loads), years
     )
@@ -562,7 +572,7 @@ variable = "x"
 def test_too_few_points_and_bad_parameter_names_are_input_errors():
     scenario = _alder()
     years = np.arange(5.0)
-    record = parse_record(_csv(years, np.full(5, 2.0), np.full(5, 1.7)), "short.csv")
+    record = parse_record(_csv(years, np.full(5, 0.2), np.full(5, 0.17)), "short.csv")
     observations = observations_for(record, scenario)
     with pytest.raises(InputError) as error:
         fit_record(scenario, observations, fit=["s", "r"], bootstrap=0)
@@ -765,15 +775,15 @@ def test_ensemble_on_the_fitted_scenario_agrees_with_compare(tmp_path):
 
     low, high = fit.thresholds["recovery"].bootstrap_interval
     held = fitted.schedules[0]
-    assert held.name == "Cut to 1.2 and hold" and min(p[1] for p in held.points) > 2 * high
+    assert held.name == "Cut to 0.12 and hold" and min(p[1] for p in held.points) > 2 * high
     deep = {
-        "name": "Cut to 0.05 for 15 years",
+        "name": "Cut to 0.005 for 15 years",
         "kind": "overshoot",
         "start": 0.0,
-        "floor": 0.05,
+        "floor": 0.005,
         "down_years": 5.0,
         "hold_years": 15.0,
-        "relax_to": 1.0,
+        "relax_to": 0.1,
         "up_years": 3.0,
     }
     assert deep["floor"] < low / 2
@@ -830,7 +840,7 @@ def test_a_record_too_long_for_a_fit_is_refused_before_any_work(tmp_path):
 
     times = 1975.0 + np.arange(MAX_FIT_ROWS + 1) / 365.0
     lines = ["year [yr],L [g P / m2 / yr],P [g P / m2]"]
-    lines += [f"{t:.5f},2.6,7.0" for t in times]
+    lines += [f"{t:.5f},0.26,0.7" for t in times]
     path = tmp_path / "daily.csv"
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     with pytest.raises(InputError) as error:

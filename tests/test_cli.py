@@ -38,14 +38,14 @@ def _diagram_json() -> dict:
 
 def _reference_folds(path: Path) -> list[tuple[float, float]]:
     """(L, P) where L(P) = s P - r P^q/(m^q + P^q) has dL/dP = 0: scipy brentq on sign
-    changes of the closed-form derivative over 0 < P < 20."""
+    changes of the closed-form derivative over 0 < P < 2 (g P / m2)."""
     p = tomllib.loads(path.read_text(encoding="utf-8"))["model"]["parameters"]
     s, r, m, q = p["s"], p["r"], p["m"], p["q"]
 
     def slope(P):
         return s - r * q * m**q * P ** (q - 1) / (m**q + P**q) ** 2
 
-    grid = np.linspace(0.01, 20.0, 2000)
+    grid = np.linspace(0.001, 2.0, 2000)
     values = slope(grid)
     folds = []
     for i in np.nonzero(np.sign(values[:-1]) * np.sign(values[1:]) < 0)[0]:
@@ -134,7 +134,7 @@ def test_diagram_html(tmp_path, capsys):
 
 
 def test_invalid_file_exits_2_naming_file_and_field(tmp_path, capsys):
-    text = ALDER.read_text(encoding="utf-8").replace("P = 7.1", "P = 7.1\nZ = 1.0", 1)
+    text = ALDER.read_text(encoding="utf-8").replace("P = 0.71", "P = 0.71\nZ = 1.0", 1)
     bad = tmp_path / "bad.toml"
     bad.write_text(text, encoding="utf-8")
     for command in (["check", str(bad)], ["diagram", str(bad), "--json"]):

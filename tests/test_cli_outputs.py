@@ -120,7 +120,7 @@ def test_sweep_and_frontier_parquet_agree_with_their_json(tmp_path):
     the numbers of the JSON printed by the same run, as floats."""
     sweep_file, frontier_file = tmp_path / "sweep.parquet", tmp_path / "frontier.parquet"
     data = json.loads(
-        _ok(["sweep", str(ALDER), "--step", "0.1", "--json", "--parquet", str(sweep_file)])
+        _ok(["sweep", str(ALDER), "--step", "0.01", "--json", "--parquet", str(sweep_file)])
     )
     frame = _parquet(sweep_file)
     points = [(way, p) for way in ("up", "down") for p in data[way]]
@@ -129,7 +129,7 @@ def test_sweep_and_frontier_parquet_agree_with_their_json(tmp_path):
     np.testing.assert_array_equal(frame["P"], [p["state"]["P"] for _, p in points])
     assert frame["control"].dtype == np.float64 and frame["P"].dtype == np.float64
 
-    argv = ["frontier", str(ALDER), "--depths", "0.1,0.3", "--json"]
+    argv = ["frontier", str(ALDER), "--depths", "0.01,0.03", "--json"]
     data = json.loads(_ok([*argv, "--parquet", str(frontier_file)]))
     frame = _parquet(frontier_file)
     assert len(frame) == len(data["points"]) == 2
@@ -253,11 +253,11 @@ def test_svg_and_pdf_figures(tmp_path):
     trailer ending ``%%EOF``, ISO 32000-1:2008, sections 7.5.2 and 7.5.5): the suffix, in
     either case, chooses the format."""
     svg, pdf = tmp_path / "loop.svg", tmp_path / "frontier.PDF"
-    _ok(["sweep", str(ALDER), "--step", "0.1", "--figure", str(svg)])
+    _ok(["sweep", str(ALDER), "--step", "0.01", "--figure", str(svg)])
     root = ElementTree.parse(svg).getroot()
     assert root.tag == f"{{{SVG_NAMESPACE}}}svg"
     assert "P" in svg.read_text(encoding="utf-8")  # the axis title: a drawn figure, not a shell
-    _ok(["frontier", str(ALDER), "--depths", "0.1,0.3", "--figure", str(pdf)])
+    _ok(["frontier", str(ALDER), "--depths", "0.01,0.03", "--figure", str(pdf)])
     data = pdf.read_bytes()
     assert data.startswith(PDF_HEADER) and data.rstrip().endswith(PDF_END)
 
@@ -383,8 +383,8 @@ def _spy(monkeypatch, name: str) -> list:
         ("load", ["check", str(ALDER)]),
         ("diagram", ["diagram", str(ALDER)]),
         ("compare", ["compare", str(ALDER)]),
-        ("hysteresis_sweep", ["sweep", str(ALDER), "--step", "0.2"]),
-        ("overshoot_frontier", ["frontier", str(ALDER), "--depths", "0.3"]),
+        ("hysteresis_sweep", ["sweep", str(ALDER), "--step", "0.02"]),
+        ("overshoot_frontier", ["frontier", str(ALDER), "--depths", "0.03"]),
         ("cheapest_schedule", ["search", str(ALDER), "--family", "overshoot"]),
         ("chance_of_recovery", ["ensemble", str(ALDER), "--members", "4"]),
         ("fit", ["fit", str(MONITORING), "--scenario", str(ALDER), "--bootstrap", "0"]),

@@ -45,7 +45,7 @@ def _noisy_alder(members: int = 600) -> dict:
     data["uncertainty"] = {
         **data["uncertainty"],
         "members": members,
-        "process_noise": {"P": 0.1},
+        "process_noise": {"P": 0.01},
         "steps_per_year": 40,
     }
     data["schedules"] = data["schedules"][:2]
@@ -446,7 +446,7 @@ def test_cli_json_has_the_promised_keys(tmp_path):
     result = json.loads(out)
     assert [s["name"] for s in result["schedules"]] == [
         "Cut to zero over 4 years",
-        "Cut to 0.4 plus long inactivation",
+        "Cut to 0.04 plus long inactivation",
     ]
     for entry in result["schedules"]:
         assert isinstance(entry["p_recovered"], float)

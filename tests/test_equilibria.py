@@ -573,7 +573,7 @@ def test_locate_separatrix_and_basins(offset):
 # --------------------------------------------------------------------------------------------
 # Thresholds: where a regime stops being a stable attractor along its branch
 
-SEDIMENT_HOPF = dict(s=0.7, h=0.15, b=0.002, r=0.03, m=2.4, q=8.0)
+SEDIMENT_HOPF = dict(s=0.7, h=0.15, b=0.01, r=0.15, m=0.6, q=8.0)
 """Invented demo parameters (the Brellow Reservoir demo) for the Carpenter 2005 model, where the
 turbid equilibrium loses stability at a Hopf point before its fold."""
 
@@ -594,7 +594,7 @@ def _sediment_hopf_reference() -> tuple[float, float, float]:
     g = p["s"] * X - p["b"] * M - recycled
     jacobian = sympy.Matrix([f, g]).jacobian([X, M])
     solution = sympy.nsolve(
-        [f, g, jacobian.trace()], [X, M, L], [2.9, 76.0, 0.59], tol=1e-25, prec=40
+        [f, g, jacobian.trace()], [X, M, L], [0.72, 4.0, 0.146], tol=1e-25, prec=40
     )
     values = {X: solution[0], M: solution[1], L: solution[2]}
     assert float(jacobian.det().subs(values)) > 0  # a Hopf point, not a saddle
@@ -612,10 +612,10 @@ def test_hopf_before_the_fold_is_the_recovery_threshold():
     """
     L_hopf, X_hopf, M_hopf = _sediment_hopf_reference()
     system = compile_model(BUILTIN_MODELS["recycling-sediment"], "L").bind(
-        {"L": 0.8, **SEDIMENT_HOPF}
+        {"L": 0.2, **SEDIMENT_HOPF}
     )
     diagram = compute_diagram(
-        system, (0.0, 1.5), reference_state=np.array([4.0, 150.0]), current_control=0.8
+        system, (0.0, 0.375), reference_state=np.array([1.0, 7.5]), current_control=0.2
     )
     fold = [f for f in diagram.folds if f.kind == "recovery"][0]
     assert fold.control < L_hopf  # the Hopf point comes first as the load falls
@@ -625,7 +625,7 @@ def test_hopf_before_the_fold_is_the_recovery_threshold():
     assert diagram.window.recovery == diagram.recovery_threshold
     # between the fold and the Hopf point the turbid state is no attractor: the lake leaves it
     held = 0.5 * (fold.control + L_hopf)
-    turbid = [e for e in diagram.equilibria_at(L_hopf + 0.01) if e.stable]
+    turbid = [e for e in diagram.equilibria_at(L_hopf + 0.0025) if e.stable]
     start = max(turbid, key=lambda e: e.state[0]).state
 
     def rhs(t, y):

@@ -68,7 +68,7 @@ def _independent_recovered(params, p0, times, loads, horizon, final_load):
         rtol=1e-10,
         atol=1e-12,
     ).y[0, -1]
-    grid = np.linspace(1e-9, 40.0, 40001)
+    grid = np.linspace(1e-9, 4.0, 40001)
     values = _rhs(grid, final_load, s, r, m, q)
     roots = [
         brentq(lambda x: _rhs(x, final_load, s, r, m, q), grid[i], grid[i + 1])
@@ -135,7 +135,7 @@ def test_frontier_is_non_increasing_and_each_point_checks_out_independently(alde
     depths = default_depths(scenario, threshold, 7)
     frontier = recovery_frontier(scenario, diagram=diagram, depths=depths, own_schedules=False)
     relax_to = frontier.relax_to
-    assert relax_to == 1.5  # the demo's own overshoot schedules relax to 1.5
+    assert relax_to == 0.15  # the demo's own overshoot schedules relax to 0.15
     holds = [p.hold_years for p in frontier.points]
     found = [d for d in holds if d is not None]
     assert len(found) >= 4 and holds[0] is None  # the shallowest cut needs beyond the horizon
@@ -156,18 +156,18 @@ def test_frontier_is_non_increasing_and_each_point_checks_out_independently(alde
 
 def test_converse_least_depth_checks_out_independently(alder):
     """For a given hold the least depth that recovers: an independent scipy integration
-    recovers 0.005 deeper and fails 0.005 shallower (the depth is found to 5e-4)."""
+    recovers 0.0005 deeper and fails 0.0005 shallower (the depth is found to 5e-5)."""
     scenario, diagram = alder
     threshold = diagram.recovery_threshold
     frontier = recovery_frontier(
-        scenario, diagram=diagram, depths=[0.2], hold_years=[2.0, 6.0], own_schedules=False
+        scenario, diagram=diagram, depths=[0.02], hold_years=[2.0, 6.0], own_schedules=False
     )
     depths = [c.depth for c in frontier.converse]
     assert depths[0] > depths[1] > 0  # a shorter hold needs a deeper cut
     for point in frontier.converse:
-        deeper, shallower = threshold - point.depth - 0.005, threshold - point.depth + 0.005
-        assert _overshoot_recovered(scenario, deeper, point.hold_years, 1.5)
-        assert not _overshoot_recovered(scenario, shallower, point.hold_years, 1.5)
+        deeper, shallower = threshold - point.depth - 0.0005, threshold - point.depth + 0.0005
+        assert _overshoot_recovered(scenario, deeper, point.hold_years, 0.15)
+        assert not _overshoot_recovered(scenario, shallower, point.hold_years, 0.15)
 
 
 def test_least_hold_follows_the_bottleneck_law_near_the_fold():
@@ -181,25 +181,25 @@ def test_least_hold_follows_the_bottleneck_law_near_the_fold():
     b = |d2f/dP2| / 2 there. Checks: the log-log slope of hold against depth is -0.5 +/- 0.05 and
     every hold is within 10 % of pi / sqrt(a b d) for depths 1e-5 .. 1e-3 of the range width.
     """
-    parameters = {"L": 2.6, "s": 1.2, "r": 6.0, "m": 4.0, "q": 8.0}  # the Alder Mere demo's
+    parameters = {"L": 0.26, "s": 1.2, "r": 0.6, "m": 0.4, "q": 8.0}  # the Alder Mere demo's
     P, L = sympy.symbols("P L")
     f = L - parameters["s"] * P + parameters["r"] * P**8 / (parameters["m"] ** 8 + P**8)
-    p_fold, l_fold = sympy.nsolve([f, sympy.diff(f, P)], [P, L], [5.0, 0.86])
+    p_fold, l_fold = sympy.nsolve([f, sympy.diff(f, P)], [P, L], [0.5, 0.086])
     at_fold = {P: p_fold, L: l_fold}
     a = abs(float(sympy.diff(f, L).subs(at_fold)))
     b = abs(float(sympy.diff(f, P, 2).subs(at_fold))) / 2
     data = {
         "name": "Bottleneck check",
         "model": {"kind": "recycling", "parameters": parameters},
-        "control": {"parameter": "L", "range": [0.0, 5.0]},
-        "state": {"P": 7.1},
+        "control": {"parameter": "L", "range": [0.0, 0.5]},
+        "state": {"P": 0.71},
         "target": {"variable": "P"},
         "simulation": {"horizon": 2000.0},
     }
     scenario = scenario_from_data(data)
-    depths = 5.0 * np.geomspace(1e-5, 1e-3, 5)
+    depths = 0.5 * np.geomspace(1e-5, 1e-3, 5)
     frontier = recovery_frontier(
-        scenario, relax_to=1.5, depths=depths, ramp_years=0.0, own_schedules=False
+        scenario, relax_to=0.15, depths=depths, ramp_years=0.0, own_schedules=False
     )
     assert frontier.recovery_threshold == pytest.approx(float(l_fold), abs=1e-9)
     holds = np.array([p.hold_years for p in frontier.points], dtype=float)
@@ -215,12 +215,12 @@ def test_frontier_cli_json_and_html(tmp_path, capsys):
     """`planner frontier FILE --depths ... --json` prints the contract fields; --html writes a
     page that carries the caution."""
     out = tmp_path / "frontier.html"
-    code = main(["frontier", str(ALDER), "--depths", "0.004,0.3", "--json", "--html", str(out)])
+    code = main(["frontier", str(ALDER), "--depths", "0.0004,0.03", "--json", "--html", str(out)])
     assert code == 0
     data = json.loads(capsys.readouterr().out)
     assert isinstance(data["recovery_threshold"], float)
-    assert data["relax_to"] == 1.5
-    assert [p["depth"] for p in data["points"]] == [0.004, 0.3]
+    assert data["relax_to"] == 0.15
+    assert [p["depth"] for p in data["points"]] == [0.0004, 0.03]
     assert data["points"][0]["hold_years"] is None
     assert isinstance(data["points"][1]["hold_years"], float)
     assert {o["name"] for o in data["own_schedules"]} == {
@@ -234,10 +234,10 @@ def test_frontier_cli_json_and_html(tmp_path, capsys):
     ("arguments", "field"),
     [
         ([str(TARNBY)], "control.range"),
-        ([str(ALDER), "--relax-to", "3.5"], "relax_to"),
-        ([str(ALDER), "--relax-to", "0.5"], "relax_to"),
-        ([str(ALDER), "--depths", "0.1,x"], "depths.1"),
-        ([str(ALDER), "--depths", "2.0"], "depths.0"),
+        ([str(ALDER), "--relax-to", "0.35"], "relax_to"),
+        ([str(ALDER), "--relax-to", "0.05"], "relax_to"),
+        ([str(ALDER), "--depths", "0.01,x"], "depths.1"),
+        ([str(ALDER), "--depths", "0.2"], "depths.0"),
     ],
 )
 def test_frontier_input_errors_exit_2_naming_the_field(arguments, field, capsys):
@@ -260,27 +260,27 @@ def _user_overshoot(floor, hold, ramp):
         "floor": floor,
         "down_years": ramp,
         "hold_years": hold,
-        "relax_to": 1.5,
+        "relax_to": 0.15,
         "up_years": ramp,
     }
 
 
 def test_a_users_ramped_schedule_gets_one_answer_without_a_rate_limit(alder_without_limit):
     """With no largest yearly change the family ramps over the default years, never jumps: a
-    user's overshoot with 2-year ramps (floor 0.6, hold 5 yr, relax to 1.5) is the family's
+    user's overshoot with 2-year ramps (floor 0.06, hold 5 yr, relax to 0.15) is the family's
     schedule, field for field. compare, the frontier's verdict and an independent scipy
     integration (Radau, Carpenter, Ludwig & Brock 1999 model, brentq equilibria) agree on it,
     and the frontier's least hold at that floor is consistent: it is at most 5 yr, compare
     recovers with it (and just above it) and fails more than the tolerance below it; the
     independent integration recovers 0.05 yr above and fails 0.05 yr below."""
     scenario, diagram = alder_without_limit
-    floor, ramp = 0.6, 2.0
+    floor, ramp = 0.06, 2.0
     data = _alder_data(max_change_per_year=None)
     data["schedules"] = [_user_overshoot(floor, 5.0, ramp)]
     users = scenario_from_data(data)
     threshold = diagram.recovery_threshold
     frontier = recovery_frontier(
-        users, diagram=diagram, relax_to=1.5, depths=[threshold - floor], own_schedules=True
+        users, diagram=diagram, relax_to=0.15, depths=[threshold - floor], own_schedules=True
     )
     family = frontier.family
     assert family.ramp_source == "default" and family.ramp == DEFAULT_RAMP_YEARS == ramp
@@ -296,15 +296,15 @@ def test_a_users_ramped_schedule_gets_one_answer_without_a_rate_limit(alder_with
     least = point.hold_years
     assert (point.ramp_down_years, point.ramp_up_years) == (ramp, ramp)
     assert compared(5.0) and verdicts(floor, 5.0)
-    assert _overshoot_recovered(users, floor, 5.0, 1.5, ramp_years=ramp)
+    assert _overshoot_recovered(users, floor, 5.0, 0.15, ramp_years=ramp)
     assert frontier.own[0].recovered and frontier.own[0].hold_years == 5.0
     assert least is not None and least <= 5.0
     for hold in (least, least + 0.5 * HOLD_TOLERANCE):
         assert compared(hold) and verdicts(floor, hold)
     below = least - 1.5 * HOLD_TOLERANCE
     assert not compared(below) and not verdicts(floor, below)
-    assert _overshoot_recovered(users, floor, least + MARGIN, 1.5, ramp_years=ramp)
-    assert not _overshoot_recovered(users, floor, least - MARGIN, 1.5, ramp_years=ramp)
+    assert _overshoot_recovered(users, floor, least + MARGIN, 0.15, ramp_years=ramp)
+    assert not _overshoot_recovered(users, floor, least - MARGIN, 0.15, ramp_years=ramp)
 
 
 def test_ramps_follow_the_rate_limit_and_keep_it(alder):
@@ -316,7 +316,7 @@ def test_ramps_follow_the_rate_limit_and_keep_it(alder):
     scenario, diagram = alder
     threshold = diagram.recovery_threshold
     frontier = recovery_frontier(
-        scenario, diagram=diagram, depths=[0.15, 0.3, 0.45], own_schedules=False
+        scenario, diagram=diagram, depths=[0.015, 0.03, 0.045], own_schedules=False
     )
     family = frontier.family
     data = frontier_json(frontier)
@@ -330,12 +330,12 @@ def test_ramps_follow_the_rate_limit_and_keep_it(alder):
     assert family.ramp_source == "rate limit"
     for point in frontier.points:
         floor = point.floor
-        down, up = (current - floor) / rate, (1.5 - floor) / rate
+        down, up = (current - floor) / rate, (0.15 - floor) / rate
         assert point.ramp_down_years == pytest.approx(down, rel=1e-12)
         assert point.ramp_up_years == pytest.approx(up, rel=1e-12)
         assert point.hold_years is not None
         below_down = down * (threshold - floor) / (current - floor)
-        below_up = up * (threshold - floor) / (1.5 - floor)
+        below_up = up * (threshold - floor) / (0.15 - floor)
         below = point.hold_years + below_down + below_up
         assert point.time_below_threshold == pytest.approx(below, rel=1e-9)
         schedule = family.schedule(floor, point.hold_years)
@@ -353,18 +353,18 @@ def test_a_later_start_shifts_the_schedule_not_the_least_hold():
     params = data["model"]["parameters"]
     load = params["L"]
     turbid = brentq(
-        lambda p: _rhs(p, load, params["s"], params["r"], params["m"], params["q"]), 5.0, 20.0
+        lambda p: _rhs(p, load, params["s"], params["r"], params["m"], params["q"]), 0.5, 2.0
     )
     data["state"] = {"P": turbid}
     scenario = scenario_from_data(data)
     diagram = diagram_for(scenario)
-    depth = diagram.recovery_threshold - 0.6
+    depth = diagram.recovery_threshold - 0.06
     holds = {}
     for start in (0.0, 3.0):
         frontier = recovery_frontier(
             scenario,
             diagram=diagram,
-            relax_to=1.5,
+            relax_to=0.15,
             depths=[depth],
             start_year=start,
             ramp_years=1.5,
@@ -373,7 +373,7 @@ def test_a_later_start_shifts_the_schedule_not_the_least_hold():
         assert frontier_json(frontier)["start_year"] == start
         assert frontier.family.ramp_source == "asked" and frontier.family.ramp == 1.5
         holds[start] = frontier.points[0].hold_years
-        schedule = frontier.family.schedule(0.6, holds[start])
+        schedule = frontier.family.schedule(0.06, holds[start])
         assert (schedule.start, schedule.down_years, schedule.up_years) == (start, 1.5, 1.5)
         outcome = compare(scenario, diagram=diagram, schedules=[schedule]).outcomes[0]
         assert outcome.recovered
@@ -403,8 +403,8 @@ def test_a_later_start_shifts_the_schedule_not_the_least_hold():
 )
 def test_bad_frontier_options_name_the_option(control, horizon, options, field, words):
     """Negative, non-finite or past-the-horizon start year and ramps, instant jumps or ramps
-    too short for the deepest floor under a largest yearly change (0.5 per year: 2.6 down to
-    0.4 needs 4.4 yr), default ramps that do not fit a 3-year horizon, and negative holds are
+    too short for the deepest floor under a largest yearly change (0.05 per year: 0.26 down to
+    0.04 needs 4.4 yr), default ramps that do not fit a 3-year horizon, and negative holds are
     InputErrors naming the option (common practice, no source)."""
     data = _alder_data(**control)
     if horizon is not None:
@@ -412,7 +412,7 @@ def test_bad_frontier_options_name_the_option(control, horizon, options, field, 
     scenario = scenario_from_data(data)
     with pytest.raises(InputError) as caught:
         recovery_frontier(
-            scenario, relax_to=1.5, own_schedules=False, source="lake.toml", **options
+            scenario, relax_to=0.15, own_schedules=False, source="lake.toml", **options
         )
     (problem,) = caught.value.problems
     assert (problem.source, problem.field) == ("lake.toml", field)
@@ -420,11 +420,11 @@ def test_bad_frontier_options_name_the_option(control, horizon, options, field, 
 
 
 def test_asked_ramps_that_keep_the_rate_limit_are_accepted(alder):
-    """Ramps of 4.4 yr keep a largest yearly change of 0.5 per year down to the floor 0.4 from
-    2.6 (2.2 / 4.4 = 0.5; common practice, no source): accepted, and compare finds the
+    """Ramps of 4.4 yr keep a largest yearly change of 0.05 per year down to the floor 0.04 from
+    0.26 (0.22 / 4.4 = 0.05; common practice, no source): accepted, and compare finds the
     family's schedule there feasible."""
     scenario, diagram = alder
-    depth = diagram.recovery_threshold - 0.4
+    depth = diagram.recovery_threshold - 0.04
     frontier = recovery_frontier(
         scenario, diagram=diagram, depths=[depth], ramp_years=4.4, own_schedules=False
     )
@@ -448,7 +448,7 @@ def test_outputs_name_hold_years_and_time_below_threshold(alder):
     ``time_below_threshold``; 'duration' appears nowhere (it means the time below the
     threshold in compare). The text states the ramps used (common practice, no source)."""
     scenario, diagram = alder
-    frontier = recovery_frontier(scenario, diagram=diagram, depths=[0.3], hold_years=[4.0])
+    frontier = recovery_frontier(scenario, diagram=diagram, depths=[0.03], hold_years=[4.0])
     data = frontier_json(frontier)
     assert "duration" not in _keys(data)
     for row in (*data["points"], *data["own_schedules"]):
@@ -458,7 +458,7 @@ def test_outputs_name_hold_years_and_time_below_threshold(alder):
     assert "least hold_years" in header and "time_below_threshold (yr)" in header
     text = frontier_text(frontier)
     assert "duration" not in text and "hold_years" in text and "time_below_threshold" in text
-    assert "largest yearly change, 0.5" in text
+    assert "largest yearly change, 0.05" in text
 
 
 def test_cli_options_and_their_stated_defaults(capsys):
@@ -469,7 +469,7 @@ def test_cli_options_and_their_stated_defaults(capsys):
     with pytest.raises(SystemExit):
         main(["frontier", "--help"])
     assert f"{DEFAULT_RAMP_YEARS:g} yr each" in " ".join(capsys.readouterr().out.split())
-    arguments = ["--depths", "0.3", "--start-year", "2", "--ramp-years", "4.5", "--json"]
+    arguments = ["--depths", "0.03", "--start-year", "2", "--ramp-years", "4.5", "--json"]
     assert main(["frontier", str(ALDER), *arguments]) == 0
     data = json.loads(capsys.readouterr().out)
     assert data["ramp"]["source"] == "asked" and data["ramp"]["years"] == 4.5

@@ -225,10 +225,10 @@ def test_cancel_kills_the_job_while_the_app_serves_other_users(
     edit = app_load.recompute_body(
         app_load.recompute_callback_id(page.app),
         draft,
-        {(app_load.EDITED_SCHEDULE, "floor"): "0.7"},
+        {(app_load.EDITED_SCHEDULE, "floor"): "0.07"},
     )
     reply = other.post(edit)
-    assert reply.status_code == 200 and b'"floor":0.7' in reply.get_data()
+    assert reply.status_code == 200 and b'"floor":0.07' in reply.get_data()
     assert _running(pids["job"])  # the other user was served while the job ran
 
     page.cancel_frontier(handles)
@@ -274,7 +274,7 @@ def test_a_job_that_finishes_delivers_its_result_and_leaves_nothing_behind(
     bistable lake under a slowly dialled load (Scheffer et al. 2001, Nature 413:591-596, figure 1),
     without a second copy of the caution the page already shows; its worker is reaped."""
     page = Page(_app(tmp_path, monkeypatch))
-    body = page.sweep_body(working, step="0.1")
+    body = page.sweep_body(working, step="0.01")
     handles = page.start(body)
     response = page.result(body, handles)
     assert response[ids.SWEEP_MESSAGE]["children"] == ""
@@ -288,14 +288,14 @@ def test_a_job_that_finishes_delivers_its_result_and_leaves_nothing_behind(
 
 def test_a_model_that_integrates_without_end_is_stopped_at_the_budget(tmp_path, monkeypatch):
     """A user formula that passes every check but makes each integration step tiny: the lake
-    model of the demo plus 0.01 sin(1e5 P), a wiggle far faster than any time scale of the lake
+    model of the demo plus 0.001 sin(1e6 P), a wiggle far faster than any time scale of the lake
     (the sweep of it runs for minutes). With a budget of 2 s the server kills the real planner
     work and the sweep's message says so."""
     data = tomllib.loads(ALDER.read_text(encoding="utf-8"))
     data.pop("uncertainty", None)
     data["model"] = {
         "kind": "formula",
-        "equations": {"P": "L - s*P + r*P**q/(m**q + P**q) + 0.01*sin(1e5*P)"},
+        "equations": {"P": "L - s*P + r*P**q/(m**q + P**q) + 0.001*sin(1e6*P)"},
         "parameters": data["model"]["parameters"],
     }
     scenario = scenario_from_data(data, "wiggle.toml")  # valid: nothing refuses it up front

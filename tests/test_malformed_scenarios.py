@@ -241,7 +241,7 @@ NAMED_CASES = {
         "horizon = 40.0", f"horizon = {'[' * 5000}{']' * 5000}"
     ),
     "table nested 3000 deep": f"deep = {'{a = ' * 3000}1{' }' * 3000}\n{ALDER}",
-    "integer of 5000 digits": ALDER.replace("P = 7.1", f"P = {'9' * 5000}"),
+    "integer of 5000 digits": ALDER.replace("P = 0.71", f"P = {'9' * 5000}"),
     "control of 900 KB": ALDER.replace('parameter = "L"', f'parameter = "{"L" * LONG}"'),
     "kind of 900 KB": ALDER.replace('kind = "path"', f'kind = "{"p" * LONG}"', 1),
     "key of 900 KB": ALDER.replace("horizon = 40.0", f"{'h' * LONG} = 1"),

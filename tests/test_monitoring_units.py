@@ -474,7 +474,7 @@ def test_demo_samples_are_what_the_script_writes_and_fit_back_to_their_true_valu
     assert means["left_out"] == len(demo.WINTER_YEARS)
     units = {c["unit"]: c["model_unit"] for c in result["reading"]["conversions"]}
     scenario = load_scenario(ALDER)
-    assert units == {"t/yr": scenario.control.unit, "ug/L": scenario.state_units["P"]}
+    assert units == {"kg/yr": scenario.control.unit, "ug/L": scenario.state_units["P"]}
     for name in ("s", "r", "m"):
         value = result["parameters"][name]["value"]
         assert value == pytest.approx(demo.TRUE_PARAMETERS[name], rel=0.05), name

@@ -35,7 +35,7 @@ def _overshoot(name, floor, hold, actions=()):
         "floor": floor,
         "down_years": 2.0,
         "hold_years": hold,
-        "relax_to": 1.5,
+        "relax_to": 0.15,
         "up_years": 1.0,
         "actions": list(actions),
     }
@@ -52,10 +52,10 @@ JUMP = {
     "cost": 400000.0,
 }
 SCHEDULES = [
-    _overshoot("Short hold with inactivation", 1.0, 1.0, [JUMP]),
-    _overshoot("Long deep hold with inactivation", 0.6, 8.0, [JUMP]),
-    _overshoot("Short shallow hold", 1.2, 1.0),
-    _overshoot("Long deep hold", 0.6, 8.0),
+    _overshoot("Short hold with inactivation", 0.1, 1.0, [JUMP]),
+    _overshoot("Long deep hold with inactivation", 0.06, 8.0, [JUMP]),
+    _overshoot("Short shallow hold", 0.12, 1.0),
+    _overshoot("Long deep hold", 0.06, 8.0),
 ]
 
 
@@ -81,13 +81,13 @@ def test_compare_and_ensemble_give_one_answer():
     assert verdicts == {Verdict.RECOVERED, Verdict.NOT_RECOVERED}
 
 
-@pytest.mark.parametrize(("floor", "hold"), [(1.0, 1.0), (0.6, 8.0), (0.8, 3.0), (1.2, 1.0)])
+@pytest.mark.parametrize(("floor", "hold"), [(0.1, 1.0), (0.06, 8.0), (0.08, 3.0), (0.12, 1.0)])
 def test_frontier_verdict_is_compares(floor, hold):
     """The frontier's fast verdict for (floor, hold) equals compare's verdict for the same
     schedule written out by the family (same engine, same settle, same attractor test)."""
-    scenario = _scenario([_overshoot("probe", 1.0, 1.0)])
+    scenario = _scenario([_overshoot("probe", 0.1, 1.0)])
     diagram = diagram_for(scenario)
-    family = family_for(scenario, "overshoot", 1.5)
+    family = family_for(scenario, "overshoot", 0.15)
     schedule = family.schedule(floor, hold)
     outcome = compare(scenario, diagram=diagram, schedules=[schedule]).outcomes[0]
     assert Verdicts(scenario, diagram, family)(floor, hold) == outcome.recovered
@@ -95,7 +95,7 @@ def test_frontier_verdict_is_compares(floor, hold):
 
 def test_a_relapse_after_a_jump_reads_the_same_in_compare_and_ensemble():
     """Water and sediment P (the Brellow demo): an inactivation at year 5 takes water P below
-    the target at once; at a load of 0.7 the lake stays clear, at 1.2 the sediment brings it
+    the target at once; at a load of 0.175 the lake stays clear, at 0.3 the sediment brings it
     back (a relapse). compare and a no-uncertainty ensemble agree on both, member by member."""
     data = tomllib.loads((DEMO.parent / "brellow-reservoir.toml").read_text(encoding="utf-8"))
     data.pop("uncertainty", None)
@@ -105,9 +105,9 @@ def test_a_relapse_after_a_jump_reads_the_same_in_compare_and_ensemble():
             "name": f"Hold {load} with inactivation",
             "kind": "path",
             "actions": [jump],
-            "points": [[0.0, 0.8], [3.0, load]],
+            "points": [[0.0, 0.2], [3.0, load]],
         }
-        for load in (0.7, 1.2)
+        for load in (0.175, 0.3)
     ]
     scenario = scenario_from_data(data)
     comparison = compare(scenario)

@@ -62,7 +62,7 @@ def _independent_recovered(params, p0, schedule, current, horizon):
         rtol=1e-10,
         atol=1e-12,
     ).y[0, -1]
-    grid = np.linspace(1e-9, 40, 40001)
+    grid = np.linspace(1e-9, 4.0, 40001)
     values = _recycling_rhs(grid, final, s, r, m, q)
     roots = [
         brentq(lambda x: _recycling_rhs(x, final, s, r, m, q), grid[i], grid[i + 1])
@@ -93,13 +93,13 @@ def test_verdicts_near_the_recovery_boundary_agree_with_independent_integration(
             floor=floor,
             down_years=4.0,
             hold_years=hold,
-            relax_to=1.5,
+            relax_to=0.15,
             up_years=2.0,
         )
 
     rng = np.random.default_rng(7)
     checked = 0
-    for floor in (0.5, 0.6, 0.7, 0.75):
+    for floor in (0.05, 0.06, 0.07, 0.075):
         low, high = 0.0, 20.0
         for _ in range(30):
             middle = 0.5 * (low + high)
@@ -171,7 +171,7 @@ def test_compare_json_contract(capsys):
         assert set(entry["cost"]) >= {"total", "present_value"}
         assert entry["cost"]["present_value"] <= entry["cost"]["total"]
     by_name = {s["name"]: s for s in data["schedules"]}
-    assert by_name["Cut to 1.2 and hold"]["recovered"] is False
+    assert by_name["Cut to 0.12 and hold"]["recovered"] is False
     assert by_name["Overnight cut (breaks the rate limit)"]["feasible"] is False
     assert by_name["Overnight cut (breaks the rate limit)"]["infeasible"]["time"] == 0.0
 
@@ -221,19 +221,19 @@ def test_relaxing_above_the_collapse_threshold_is_not_recovery():
     p = scenario.model.parameters
     s, r, m, q = p["s"], p["r"], p["m"], p["q"]
     slope = lambda x: s - r * q * m**q * x ** (q - 1) / (m**q + x**q) ** 2  # noqa: E731
-    x_fold = brentq(slope, 1.0, m)
+    x_fold = brentq(slope, 0.1, m)
     collapse = s * x_fold - r * x_fold**q / (m**q + x_fold**q)
     diagram = diagram_for(scenario)
     schedule = OvershootSchedule(
         kind="overshoot",
         name="back up",
         start=0.0,
-        floor=0.5,
+        floor=0.05,
         down_years=5.0,
         hold_years=6.0,
-        relax_to=collapse + 0.5,
+        relax_to=collapse + 0.05,
         up_years=8.0,
     )
     assert evaluate(scenario, diagram, schedule).verdict is Verdict.NOT_RECOVERED
-    assert diagram.desired_attractor(collapse + 0.5) is None
-    assert diagram.desired_attractor(collapse - 0.5) is not None
+    assert diagram.desired_attractor(collapse + 0.05) is None
+    assert diagram.desired_attractor(collapse - 0.05) is not None

@@ -319,7 +319,7 @@ def test_unknown_state_variable():
 
 def test_range_reversed():
     data = _data("alder-mere.toml")
-    data["control"]["range"] = [5.0, 0.0]
+    data["control"]["range"] = [0.5, 0.0]
     assert "control.range" in _fields(data)
 
 
@@ -345,7 +345,7 @@ def test_nan_and_inf_are_refused(where, value, field):
 @pytest.mark.parametrize("literal", ["nan", "inf", "-inf", "+nan"])
 def test_nan_and_inf_from_toml_text(literal):
     text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
-    text = text.replace("P = 7.1", f"P = {literal}")
+    text = text.replace("P = 0.71", f"P = {literal}")
     with pytest.raises(InputError) as caught:
         parse_scenario(text, "lake.toml")
     assert [p.field for p in caught.value.problems] == ["state.P"]
@@ -383,15 +383,15 @@ def test_unknown_key(block, typo, field):
 def test_floor_above_relax_to():
     data = _data("alder-mere.toml")
     assert data["schedules"][1]["kind"] == "overshoot"
-    data["schedules"][1]["floor"] = 2.0  # relax_to is 1.5
+    data["schedules"][1]["floor"] = 0.2  # relax_to is 0.15
     assert "schedules.1.relax_to" in _fields(data)
 
 
 def test_action_naming_an_unknown_variable():
     data = _data("brellow-reservoir.toml")
-    assert data["schedules"][1]["actions"][0]["kind"] == "scale-state"
-    data["schedules"][1]["actions"][0]["variable"] = "Q"
-    assert _fields(data) == ["schedules.1.actions.0.variable"]
+    assert data["schedules"][2]["actions"][0]["kind"] == "scale-state"
+    data["schedules"][2]["actions"][0]["variable"] = "Q"
+    assert _fields(data) == ["schedules.2.actions.0.variable"]
 
 
 def test_action_naming_an_unknown_parameter():
@@ -494,7 +494,7 @@ def test_a_value_of_another_type_is_refused(where, value, field, reason, strict)
     ("where", "value", "field", "reason"),
     [
         (("simulation", "horizon"), "40", "simulation.horizon", "expected a number, got '40'"),
-        (("state", "P"), "7.1", "state.P", "expected a number, got '7.1'"),
+        (("state", "P"), "0.71", "state.P", "expected a number, got '0.71'"),
         (
             ("uncertainty", "members"),
             2000.0,
@@ -511,10 +511,10 @@ def test_a_file_holds_numbers_as_numbers(where, value, field, reason):
 def test_the_editor_sends_numbers_as_typed_text():
     """The web editor's fields hold text; outside files, text that reads as a number is one."""
     data = _set(_data("alder-mere.toml"), ("simulation", "horizon"), "40")
-    _set(data, ("schedules", 0, "points"), [["0", "2.6"], ["3", "1.2"]])
+    _set(data, ("schedules", 0, "points"), [["0", "0.26"], ["3", "0.12"]])
     scenario = scenario_from_data(data)
     assert scenario.simulation.horizon == 40.0
-    assert scenario.schedules[0].points == ((0.0, 2.6), (3.0, 1.2))
+    assert scenario.schedules[0].points == ((0.0, 0.26), (3.0, 0.12))
 
 
 def test_true_as_the_horizon_in_a_file():
@@ -681,7 +681,7 @@ def test_an_integer_too_long_for_python_is_refused():
     """TOML v1.0.0: integers are 64-bit; Python itself refuses to read one of 5000 digits."""
     text = (SCENARIOS / "alder-mere.toml").read_text(encoding="utf-8")
     with pytest.raises(InputError) as caught:
-        parse_scenario(text.replace("P = 7.1", f"P = {'9' * 5000}"), "digits.toml")
+        parse_scenario(text.replace("P = 0.71", f"P = {'9' * 5000}"), "digits.toml")
     assert [(p.field, p.reason) for p in caught.value.problems] == [
         ("(file)", "not usable: an integer has too many digits")
     ]

@@ -274,7 +274,7 @@ def test_the_residence_time_from_the_outflow():
         "12 m",
         "0.205 m3/s",
     )
-    conversion = lake_conversion(_lake(**lake), "X", "g P / m2", "g P / m2 / yr", 0.8)
+    conversion = lake_conversion(_lake(**lake), "X", "g P / m2", "g P / m2 / yr", 0.2)
     by_hand = 3.6e6 * 12.0 / (0.205 * 365.25 * 86400)
     assert conversion.residence_time_yr == pytest.approx(by_hand, rel=EXACT)
 
@@ -368,13 +368,13 @@ def test_the_diagram_json_gives_lake_tp_and_its_trophic_state():
         assert entry["tp_ug_l"] == pytest.approx(tp, rel=EXACT)
         assert entry["oecd_class"] == oecd_class(tp)
         assert entry["tsi_tp"] == pytest.approx(float(tsi_tp(tp)), rel=EXACT)
-    assert lake["current"]["tp"]["state"] == 7.1
+    assert lake["current"]["tp"]["state"] == 0.71
     assert lake["current"]["tp"]["oecd_class"] == "hypertrophic"
     recovery = lake["thresholds"]["recovery"]
     assert recovery["control"] == pytest.approx(data["window"]["recovery"], rel=EXACT)
     assert recovery["load"] == pytest.approx(recovery["control"] * 2400.0, rel=EXACT)
     assert recovery["load_unit"] == "kg P/yr"
-    assert lake["current"]["load"] == pytest.approx(2.6 * 2400.0, rel=EXACT)
+    assert lake["current"]["load"] == pytest.approx(0.26 * 2400.0, rel=EXACT)
 
 
 def test_the_comparison_json_gives_each_schedule_its_lake_tp():
@@ -407,8 +407,8 @@ def test_the_texts_state_the_conversions():
     text = diagram_text(scenario, diagram, standing)
     assert "TP 323 ug/L = 1 g P / m2 over a mean depth of 3.1 m" in text  # 1000 / 3.1
     assert "1 g P / m2 / yr = 2,400 kg P/yr over an area of 2.4 km2" in text
-    assert "Now (P = 7.1 g P / m2): TP 2,290 ug/L: hypertrophic (OECD 1982)" in text
-    assert "Load now: 2.6 g P / m2 / yr (6,240 kg P/yr)" in text
+    assert "Now (P = 0.71 g P / m2): TP 229 ug/L: hypertrophic (OECD 1982)" in text  # 710 / 3.1
+    assert "Load now: 0.26 g P / m2 / yr (624 kg P/yr)" in text
 
 
 def test_without_a_lake_block_the_reports_are_as_before():

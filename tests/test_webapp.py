@@ -39,7 +39,7 @@ from webapp.views import frontier as frontier_view
 ROOT = Path(__file__).resolve().parent.parent
 DEMOS = files.default_scenario_dir()
 ALDER = "alder-mere.toml"
-DEEP_CUT = 1  # "Deep cut to 0.6 for 6 years, relax to 1.5": an overshoot schedule
+DEEP_CUT = 1  # "Deep cut to 0.06 for 6 years, relax to 0.15": an overshoot schedule
 
 
 # ---------------------------------------------------------------------------------------------
@@ -233,7 +233,7 @@ def test_a_path_outside_the_listing_is_refused(settings):
 
 
 def test_malformed_upload_names_the_field_and_keeps_the_scenario(settings):
-    text = (DEMOS / ALDER).read_text(encoding="utf-8").replace("floor = 0.6", 'floor = "deep"')
+    text = (DEMOS / ALDER).read_text(encoding="utf-8").replace("floor = 0.06", 'floor = "deep"')
     store, message, contents = scenario_panel.load_scenario_choice(
         None, upload_of(text), "bad.toml", {"serial": 1}, settings=settings, trigger=ids.UPLOAD
     )
@@ -293,13 +293,13 @@ def test_editing_a_floor_changes_verdict_and_cost_and_only_that_schedule_is_simu
     assert first["working"]["complete"] and not first["working"]["stale"]
     before = result_texts(first["working"], 5)
     counts = compute.counts()
-    second = run_recompute(draft, {(DEEP_CUT, "floor"): "1.3"}, working=first["working"])
+    second = run_recompute(draft, {(DEEP_CUT, "floor"): "0.13"}, working=first["working"])
     after = result_texts(second["working"], 5)
     assert (
         compute.counts()["outcomes"] == counts["outcomes"] + 1
     )  # the other four came from the cache
     assert compute.counts()["diagrams"] == counts["diagrams"]  # a schedule edit keeps the diagram
-    assert second["working"]["data"]["schedules"][DEEP_CUT]["floor"] == 1.3
+    assert second["working"]["data"]["schedules"][DEEP_CUT]["floor"] == 0.13
     assert "recovers" in before[DEEP_CUT] and "stays in the undesired regime" in after[DEEP_CUT]
     cost = lambda text: text.split("total cost ")[1].split(" EUR")[0]  # noqa: E731
     assert cost(before[DEEP_CUT]) != cost(after[DEEP_CUT])
@@ -330,9 +330,9 @@ def test_a_value_that_is_not_a_number_is_named_beside_its_field():
 
 def test_a_cross_field_rule_lands_on_its_field():
     draft = draft_of()
-    out = run_recompute(draft, {(DEEP_CUT, "relax_to"): "0.3"}, working=None)
+    out = run_recompute(draft, {(DEEP_CUT, "relax_to"): "0.03"}, working=None)
     joined = " | ".join(out["field_messages"])
-    assert "Relax to: must be at least the floor 0.6" in joined
+    assert "Relax to: must be at least the floor 0.06" in joined
 
 
 def test_action_fields_are_editable_and_checked():
@@ -345,18 +345,20 @@ def test_action_fields_are_editable_and_checked():
 
 def test_points_and_levels_are_typed_as_lists():
     draft = draft_of()
-    out = run_recompute(draft, {(0, "points"): "0, 2.6; 4, 1.0", (2, "levels"): "2, 1, 0.5"})
+    out = run_recompute(draft, {(0, "points"): "0, 0.26; 4, 0.1", (2, "levels"): "0.2, 0.1, 0.05"})
     schedules = out["working"]["data"]["schedules"]
-    assert schedules[0]["points"] == [[0.0, 2.6], [4.0, 1.0]]
-    assert schedules[2]["levels"] == [2.0, 1.0, 0.5]
-    broken = run_recompute(draft, {(0, "points"): "0, 2.6; 4"})
+    assert schedules[0]["points"] == [[0.0, 0.26], [4.0, 0.1]]
+    assert schedules[2]["levels"] == [0.2, 0.1, 0.05]
+    broken = run_recompute(draft, {(0, "points"): "0, 0.26; 4"})
     assert any(m.startswith("Points, item 2") for m in broken["field_messages"])
 
 
 def test_add_duplicate_and_delete_keep_what_was_typed():
     draft = draft_of()
     fields, actions = drafts.editor_values(draft["data"])
-    values = [("1.3" if i == ids.schedule_field(DEEP_CUT, "floor") else text) for i, text in fields]
+    values = [
+        ("0.13" if i == ids.schedule_field(DEEP_CUT, "floor") else text) for i, text in fields
+    ]
     args = (
         None,
         None,
@@ -370,7 +372,7 @@ def test_add_duplicate_and_delete_keep_what_was_typed():
     )
     cards, added = editor.restructure(*args, trigger=ids.ADD_BUTTON, trigger_value=1)
     assert len(cards) == 6 and added["data"]["schedules"][-1]["kind"] == "staircase"
-    assert added["data"]["schedules"][DEEP_CUT]["floor"] == "1.3"  # kept as typed
+    assert added["data"]["schedules"][DEEP_CUT]["floor"] == "0.13"  # kept as typed
     assert (
         run_recompute(added)["working"]["data"]["schedules"][-1]["name"] == "New staircase schedule"
     )
@@ -379,7 +381,7 @@ def test_add_duplicate_and_delete_keep_what_was_typed():
         1
     ]
     names = [s["name"] for s in copy["data"]["schedules"]]
-    assert names[:2] == ["Cut to 1.2 and hold", "Cut to 1.2 and hold (copy)"]
+    assert names[:2] == ["Cut to 0.12 and hold", "Cut to 0.12 and hold (copy)"]
     assert not run_recompute(copy)["working"]["stale"]  # the copy's name keeps names unique
 
     fewer = editor.restructure(*args, trigger=ids.schedule_button(0, "delete"), trigger_value=1)[1]
@@ -428,14 +430,14 @@ def test_many_schedules_go_to_the_background_worker(settings):
 
 def test_diagram_shows_every_path_with_units_and_hides_unchosen_ones():
     working = run_recompute(draft_of())["working"]
-    shown = ["Cut to 1.2 and hold"]
+    shown = ["Cut to 0.12 and hold"]
     figure = diagram.draw(working, None, shown, ids.TAB_DIAGRAM)
     assert (
         "g P / m2 / yr" in figure.layout.xaxis.title.text
         and "g P / m2" in figure.layout.yaxis.title.text
     )
     hidden = {t.legendgroup for t in figure.data if t.visible == "legendonly"}
-    assert "Deep cut to 0.6 for 6 years, relax to 1.5" in hidden and shown[0] not in hidden
+    assert "Deep cut to 0.06 for 6 years, relax to 0.15" in hidden and shown[0] not in hidden
     assert diagram.draw(working, None, shown, ids.TAB_SERIES) is no_update  # not drawn off-screen
     options, value = diagram.shown_choices(working, None, None)
     assert value == [o["value"] for o in options] and len(value) == 5
@@ -488,9 +490,9 @@ def test_side_by_side_wants_two_to_four():
 def test_sweep_runs_with_progress_and_checks_its_step():
     working = run_recompute(draft_of("tarnby-water.toml"))["working"]
     reported = []
-    figure, summary, message = sweep.run_sweep(reported.append, 1, working, "0.1")
+    figure, summary, message = sweep.run_sweep(reported.append, 1, working, "0.01")
     assert message == "" and "quasi-static sweep" in figure.layout.title.text
-    assert "Quasi-static sweep in steps of 0.1" in summary
+    assert "Quasi-static sweep in steps of 0.01" in summary
     assert reported and all(0 <= int(value) <= 100 for value, _ in reported)
     _, _, refused = sweep.run_sweep(reported.append, 1, working, "-1")
     assert refused.startswith("step: must be a positive number")
@@ -516,7 +518,7 @@ def test_frontier_view_draws_the_frontier_and_explains_an_irreversible_lake():
 
     working = run_recompute(draft_of())["working"]
     reported = []
-    depths = [0.1, 0.3, 0.5]
+    depths = [0.01, 0.03, 0.05]
     figure, message = frontier_view.run_frontier(reported.append, 1, working, depths=depths)
     assert message == "" and len(figure.data) > 0
     assert reported and all(0 <= int(value) <= 100 for value, _ in reported)
@@ -527,7 +529,7 @@ def test_frontier_view_draws_the_frontier_and_explains_an_irreversible_lake():
         for p in expected.points
     )
     tarnby = run_recompute(draft_of("tarnby-water.toml"))["working"]
-    _, refused = frontier_view.run_frontier(reported.append, 1, tarnby, depths=[0.1])
+    _, refused = frontier_view.run_frontier(reported.append, 1, tarnby, depths=[0.01])
     assert "not reachable by load cuts alone" in refused and "Traceback" not in refused
 
 
@@ -538,16 +540,16 @@ def test_frontier_takes_the_ramp_and_start_year_typed():
 
     working = run_recompute(draft_of())["working"]
     figure, message = frontier_view.run_frontier(
-        lambda *_: None, 1, working, "1", "5", depths=[0.3]
+        lambda *_: None, 1, working, "1", "5", depths=[0.03]
     )
     assert message == ""
     expected = recovery_frontier(
-        compute.scenario_of(working["data"]), depths=[0.3], start_year=1.0, ramp_years=5.0
+        compute.scenario_of(working["data"]), depths=[0.03], start_year=1.0, ramp_years=5.0
     )
     drawn = [y for trace in figure.data for y in (trace.y or ()) if y]
     assert any(abs(expected.points[0].hold_years - y) < 1e-12 for y in drawn)
     assert "5" in figure.layout.title.subtitle.text
-    _, refused = frontier_view.run_frontier(lambda *_: None, 1, working, "", "soon", depths=[0.3])
+    _, refused = frontier_view.run_frontier(lambda *_: None, 1, working, "", "soon", depths=[0.03])
     assert "ramp years" in refused and "not a number" in refused
 
 
@@ -607,7 +609,7 @@ def test_data_view_fits_the_demo_record_and_names_a_bad_cell():
     )
     assert message == "" and len(fit_fig.data) > 0 and len(diagram_fig.data) > 0
     assert record.name in summary and reported
-    bad = text.replace("1977,1.482,1.074", "1977,1.482,cloudy")
+    bad = text.replace("1977,0.1482,0.1074", "1977,0.1482,cloudy")
     *_, problems = data_view.run_fit(reported.append, upload_of(bad), "bad.csv", working)
     line = text_of(problems)
     assert line.startswith("bad.csv: row 7, column TP:") and "Traceback" not in line
@@ -620,18 +622,18 @@ def test_data_view_fits_the_demo_record_and_names_a_bad_cell():
 
 
 def test_save_as_writes_a_new_file_and_asks_before_overwriting(settings):
-    working = run_recompute(draft_of(), {(DEEP_CUT, "floor"): "1.3"})["working"]
+    working = run_recompute(draft_of(), {(DEEP_CUT, "floor"): "0.13"})["working"]
     message, style, _, pending, options, value = scenario_panel.save_as(
         "my plan", working, None, settings=settings, trigger=ids.SAVE_BUTTON
     )
     target = settings.save_folder / "my plan.toml"
     assert "Saved my plan.toml" in text_of(message) and value == "1/my plan.toml"
-    assert load_scenario(target).schedules[DEEP_CUT].floor == 1.3
+    assert load_scenario(target).schedules[DEEP_CUT].floor == 0.13
     assert any(o["value"] == value for o in options)
     assert [p.name for p in settings.save_folder.iterdir()] == ["my plan.toml"]  # no temporary left
     written = target.read_bytes()
 
-    changed = run_recompute(draft_of(), {(DEEP_CUT, "floor"): "0.8"})["working"]
+    changed = run_recompute(draft_of(), {(DEEP_CUT, "floor"): "0.08"})["working"]
     out = scenario_panel.save_as(
         "my plan.toml", changed, None, settings=settings, trigger=ids.SAVE_BUTTON
     )
@@ -647,7 +649,7 @@ def test_save_as_writes_a_new_file_and_asks_before_overwriting(settings):
         "ignored", changed, "my plan.toml", settings=settings, trigger=ids.SAVE_OVERWRITE
     )
     assert "Saved my plan.toml" in text_of(done[0])
-    assert load_scenario(target).schedules[DEEP_CUT].floor == 0.8
+    assert load_scenario(target).schedules[DEEP_CUT].floor == 0.08
 
 
 @pytest.mark.parametrize("name", ["", "../escape", "a/b", ".hidden", "x" * 90])
@@ -749,13 +751,13 @@ def test_table_exports_as_csv():
     download, name = export.build_export("table", "csv", working, None, None, None, ALDER)
     rows = list(csv.reader(download["content"].splitlines()))
     assert name.endswith(".csv") and rows[0][:3] == ["Schedule", "Verdict", "Recovered"]
-    assert len(rows) == 6 and rows[2][0] == "Deep cut to 0.6 for 6 years, relax to 1.5"
+    assert len(rows) == 6 and rows[2][0] == "Deep cut to 0.06 for 6 years, relax to 0.15"
 
 
 @pytest.mark.parametrize("what", ["diagram", "series", "side"])
 def test_figures_export_as_html_pages_with_the_caution(what):
     working = run_recompute(draft_of())["working"]
-    side = ["Cut to 1.2 and hold", "Deep cut to 0.6 for 6 years, relax to 1.5"]
+    side = ["Cut to 0.12 and hold", "Deep cut to 0.06 for 6 years, relax to 0.15"]
     download, name = export.build_export(what, "html", working, None, side, None, ALDER)
     assert name == f"alder-mere-{what}.html"
     assert CAUTION in download["content"] and "plotly" in download["content"]
@@ -810,12 +812,12 @@ def test_the_recompute_endpoint_answers_the_load_benchmark_request(folders, tmp_
     scenarios, _ = folders
     app = create_app(scenarios, cache_dir=tmp_path / "cache")
     body = app_load.recompute_body(
-        app_load.recompute_callback_id(app), draft_of(), {(DEEP_CUT, "floor"): "1.3"}
+        app_load.recompute_callback_id(app), draft_of(), {(DEEP_CUT, "floor"): "0.13"}
     )
     reply = app.server.test_client().post("/_dash-update-component", json=body)
     assert reply.status_code == 200
     response = reply.get_json()["response"]
-    assert response[ids.WORKING]["data"]["data"]["schedules"][DEEP_CUT]["floor"] == 1.3
+    assert response[ids.WORKING]["data"]["data"]["schedules"][DEEP_CUT]["floor"] == 0.13
 
 
 def test_a_failing_callback_shows_a_plain_line_not_a_traceback(folders, tmp_path):
@@ -869,7 +871,7 @@ def test_two_worker_processes_serve_pages_and_recomputes(folders):
         app_load = load_benchmark("app_load")
         callback_id = app_load.recompute_callback_id(create_app(scenarios))
         body = json.dumps(
-            app_load.recompute_body(callback_id, draft_of(), {(DEEP_CUT, "floor"): "1.3"})
+            app_load.recompute_body(callback_id, draft_of(), {(DEEP_CUT, "floor"): "0.13"})
         )
         statuses = []
         for _ in range(6):  # several connections, so both workers take some
@@ -884,7 +886,7 @@ def test_two_worker_processes_serve_pages_and_recomputes(folders):
             )
             reply = connection.getresponse()
             statuses.append(reply.status)
-            assert b'"floor":1.3' in reply.read()
+            assert b'"floor":0.13' in reply.read()
             connection.close()
         assert statuses == [200] * 12
     finally:
@@ -899,7 +901,7 @@ def test_summary_says_an_unreachable_threshold_in_words():
     text = text_of(diagram.describe(working).children)
     assert "Recovery threshold not reachable by load cuts alone" in text
     assert "External P load (0 g P / m2 / yr)" in text  # units keep their case
-    assert "-0.66" not in text.split("Full summary")[0]
+    assert "-0.066" not in text.split("Full summary")[0]
 
 
 def test_a_deeply_nested_file_in_the_folder_does_not_stop_the_app(folders, tmp_path):

@@ -12,8 +12,9 @@ those of the scenario file, which play the manager's first guess).
 alder-mere-monitoring.csv, a yearly record in the model's own units: the yearly external load
 (g P / m2 / yr) follows an invented history (rising farm and town loads, a plateau, then cuts)
 times a log-normal weather factor; the load is recorded exactly. Lake total phosphorus
-(g P / m2) is the modelled state at each year, times a log-normal measurement error. A few
-values are left out as gaps.
+(g P / m2) is the modelled state at each year, times a log-normal measurement error. Both are
+written to 4 decimals (0.1 g P / m2 is 32 ug/L TP over the lake's mean depth of 3.1 m; 0.1 g P /
+m2 / yr is 240 kg P / yr over its 2.4 km2). A few values are left out as gaps.
 
 alder-mere-samples.csv, the same lake as a limnologist's sampling record, in the trade's units:
 
@@ -24,10 +25,10 @@ alder-mere-samples.csv, the same lake as a limnologist's sampling record, in the
 - ``TP [ug/L]``: the modelled lake P at the sampling date, times a log-normal measurement error,
   converted to a concentration over the mean depth of the scenario's ``[lake]`` block with pint
   (planner.units: C = areal store / mean depth), rounded to whole ug/L;
-- ``load [t/yr]``: the year's external load estimate (its own weather draw on the invented
-  history above), converted to a lake-wide load over the lake's area with pint, repeated on each
-  sampling date of the year; in the model the yearly load applies at the middle of its year
-  (a yearly mean rate), linear in between;
+- ``load [kg/yr]``: the year's external load estimate (its own weather draw on the invented
+  history above), converted to a lake-wide load over the lake's area with pint, rounded to whole
+  kg, repeated on each sampling date of the year; in the model the yearly load applies at the
+  middle of its year (a yearly mean rate), linear in between;
 - the line ``# season: growing`` asks the planner for growing-season means of TP (May to
   September, so the winter samples are left out); loads are averaged over each calendar year.
 
@@ -57,8 +58,8 @@ OUTPUT = HERE / "alder-mere-monitoring.csv"
 SAMPLES_OUTPUT = HERE / "alder-mere-samples.csv"
 SEED = 20240611
 FIRST_YEAR, LAST_YEAR = 1975, 2024
-TRUE_PARAMETERS = {"s": 1.25, "r": 6.5, "m": 3.9, "q": 8.0}
-INITIAL_P = 1.0  # g P / m2 in the first year
+TRUE_PARAMETERS = {"s": 1.25, "r": 0.65, "m": 0.39, "q": 8.0}
+INITIAL_P = 0.1  # g P / m2 in the first year (32 ug/L TP over the mean depth of 3.1 m)
 WEATHER_SPREAD = 0.08  # standard deviation of the log of the yearly weather factor on the load
 MEASUREMENT_SPREAD = 0.06  # standard deviation of the log of the TP measurement error
 TP_GAPS = (1991, 2013)  # years without a TP sample
@@ -71,8 +72,9 @@ WINTER_YEARS = (1990, 1999, 2008, 2016)  # years with one extra sample in Januar
 
 
 def load_history(years: np.ndarray) -> np.ndarray:
-    """Invented trend of the yearly load (g P / m2 / yr): rising to 2000, a plateau, then cuts."""
-    return np.interp(years, [1975, 2000, 2008, 2024], [1.3, 3.35, 3.3, 2.2])
+    """Invented trend of the yearly load (g P / m2 / yr): rising to 2000, a plateau, then cuts
+    (over the lake's 2.4 km2, from 312 kg P / yr to 804, then down to 528)."""
+    return np.interp(years, [1975, 2000, 2008, 2024], [0.13, 0.335, 0.33, 0.22])
 
 
 def build_record() -> str:
@@ -95,8 +97,8 @@ def build_record() -> str:
         "year,load [g P / m2 / yr],TP [g P / m2]",
     ]
     for year, load, tp in zip(years, loads, measured, strict=True):
-        load_cell = "" if year in LOAD_GAPS else f"{load:.3f}"
-        tp_cell = "" if year in TP_GAPS else f"{tp:.3f}"
+        load_cell = "" if year in LOAD_GAPS else f"{load:.4f}"
+        tp_cell = "" if year in TP_GAPS else f"{tp:.4f}"
         lines.append(f"{year:.0f},{load_cell},{tp_cell}")
     return "\n".join(lines) + "\n"
 
@@ -131,8 +133,8 @@ def build_samples() -> str:
     truth = integrate(problem, save=Save(at=tuple(times))).samples[:, 0, 0]
     measured = truth * np.exp(MEASUREMENT_SPREAD * rng.standard_normal(times.size))
     tp = tp_concentration(measured, state_unit, depth=depth, area=area).to("ug / L").magnitude
-    tonnes = total_load(quantity(loads, load_unit), area, "t / yr").magnitude
-    by_year = dict(zip(years.tolist(), tonnes, strict=True))
+    kilograms = total_load(quantity(loads, load_unit), area, "kg / yr").magnitude
+    by_year = dict(zip(years.tolist(), kilograms, strict=True))
     gaps = ", ".join(str(y) for y in SAMPLE_GAPS)
     lines = [
         "# Alder Mere (an invented lake): SYNTHETIC sampling record, not real data.",
@@ -145,10 +147,10 @@ def build_samples() -> str:
         "# load: the year's external load estimate, repeated on each sampling date of the year.",
         f"# No sampling in {gaps}.",
         "# season: growing",
-        "date,load [t/yr],TP [ug/L]",
+        "date,load [kg/yr],TP [ug/L]",
     ]
     for date, value in zip(dates, tp, strict=True):
-        lines.append(f"{date.isoformat()},{by_year[date.year]:.2f},{value:.0f}")
+        lines.append(f"{date.isoformat()},{by_year[date.year]:.0f},{value:.0f}")
     return "\n".join(lines) + "\n"
 
 
