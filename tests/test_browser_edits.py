@@ -129,7 +129,7 @@ def test_another_lakes_sweep_is_marked_stale_and_its_export_refused(page, ui):
     expect(ui.cards).to_have_count(TARNBY_COUNT)
     ui.shows("Tarnby Water")
     ui.tab("Slow sweep")
-    page.locator(f"#{ids.SWEEP_STEP}").fill("0.1")
+    page.locator(f"#{ids.SWEEP_STEP}").fill("0.01")
     page.locator(f"#{ids.SWEEP_RUN}").click()
     graph = page.locator(f"#{ids.SWEEP_GRAPH}")
     expect(graph.locator(".gtitle")).to_contain_text("Tarnby Water")

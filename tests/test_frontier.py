@@ -227,7 +227,7 @@ def test_frontier_cli_json_and_html(tmp_path, capsys):
         s.name for s in load_scenario(ALDER).schedules if s.kind == "overshoot"
     }
     page = out.read_text(encoding="utf-8")
-    assert "screening tool" in page and "Least hold at each depth" in page
+    assert "screening tool" in page and "Least hold at the floor (yr)" in page
 
 
 @pytest.mark.parametrize(

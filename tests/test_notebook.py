@@ -131,8 +131,8 @@ def test_the_thresholds_in_words_are_the_folds_of_the_model(executed):
     assert probe["recovery"] == pytest.approx(recovery, rel=1e-6)
     assert probe["collapse"] == pytest.approx(collapse, rel=1e-6)
     words = "".join(_texts(_tagged(notebook, "thresholds")))
-    assert re.search(rf"rises above {collapse:.2f} ", words)
-    assert re.search(rf"falls below {recovery:.2f} ", words)
+    assert re.search(rf"rises above {collapse:.3g} ", words)
+    assert re.search(rf"falls below {recovery:.3g} ", words)
 
 
 def test_the_ensemble_is_small_and_gives_chances(executed):
