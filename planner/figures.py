@@ -261,6 +261,149 @@ def _schedule_index(scenario, name: str, fallback: int) -> int:
 
 
 # ---------------------------------------------------------------------------------------------
+# Trophic state beside lake P: a second axis in ug/L and the OECD class boundaries
+
+TROPHIC_LINE = dict(color="#9DBFAE", width=1, dash="solid")
+"""OECD class boundaries: thin, light and solid (no schedule colour, not the black or grey of
+the equilibria, not the reserved "dash" and "dot")."""
+TROPHIC_NOTE = dict(size=FONT_SIZE - 2, color="#5C7F6E")
+TP_AXIS_ROOM = 80  # px right of the plot for the ug/L tick labels and their title
+TP_TICKS = 6  # about this many ug/L ticks on the second axis
+
+
+def _lake_tp(scenario, variable: str):
+    """The scenario's lake conversion when ``variable`` is its lake P and it has a ``[lake]``
+    block that reads that variable as TP; else None (the figure stays as it was)."""
+    from planner.units import scenario_lake_conversion
+
+    if variable != scenario.target.variable:
+        return None
+    conversion = scenario_lake_conversion(scenario)
+    if conversion is None or conversion.tp_per_state is None:
+        return None
+    return conversion
+
+
+def _nice_steps(low: float, high: float, count: int = TP_TICKS) -> np.ndarray:
+    """Round values (1, 2 or 5 times a power of ten apart) from ``low`` to ``high``."""
+    span = high - low
+    if not span > 0:
+        return np.array([low])
+    raw = span / count
+    power = 10.0 ** math.floor(math.log10(raw))
+    step = next(f * power for f in (1, 2, 2.5, 5, 10) if f * power >= raw)
+    first = math.ceil(low / step) * step
+    return np.arange(first, high + step * 1e-9, step)
+
+
+def _axis_values(fig: go.Figure, axis: str) -> list[float]:
+    """Every finite y value of the traces drawn against the y-axis ``axis`` ("y", "y2"...)."""
+    values: list[float] = []
+    for trace in fig.data:
+        if (getattr(trace, "yaxis", None) or "y") != axis or trace.y is None:
+            continue
+        ys = np.asarray([v for v in trace.y if v is not None], dtype=float)
+        values.extend(ys[np.isfinite(ys)].tolist())
+    return values
+
+
+def add_tp_axis(fig: go.Figure, scenario, variable: str, *, axis: str = "y") -> bool:
+    """Beside the y-axis ``axis`` that shows lake P ``variable`` in the model's unit, a second
+    axis in ug/L (each tick's label is :meth:`LakeConversion.tp` of its position) and the OECD
+    (1982) class boundaries as thin labelled lines where they fall inside the drawn values.
+    Nothing without a ``[lake]`` block (or when the variable is not read as TP); True when added.
+    """
+    from planner.limnology import OECD_CLASSES, OECD_UPPER_TP
+
+    conversion = _lake_tp(scenario, variable)
+    values = _axis_values(fig, axis)
+    if conversion is None or not values:
+        return False
+    per_state = conversion.tp(1.0)  # ug/L per unit of the state: the conversions are linear
+    low, high = min(values), max(values)  # boundaries only inside these: none widens the axis
+    positions = _nice_steps(conversion.tp(min(low, 0.0)), conversion.tp(high)) / per_state
+    name = "yaxis" + axis[1:]
+    primary = fig.layout[name]
+    used = [int(k[5:] or 1) for k in fig.layout.to_plotly_json() if k.startswith("yaxis")]
+    number = max([*used, 1]) + 1
+    fig.update_layout(
+        {
+            f"yaxis{number}": dict(
+                overlaying=axis,
+                matches=axis,
+                anchor=primary.anchor or "x",
+                side="right",
+                showgrid=False,
+                zeroline=False,
+                tickmode="array",
+                tickvals=positions.tolist(),
+                ticktext=[significant(conversion.tp(p), 2) for p in positions],
+                title_text="lake TP (ug/L)",
+            )
+        }
+    )
+    fig.add_trace(  # an axis is drawn only with a trace on it: this one shows nothing
+        go.Scatter(
+            x=[None],
+            y=[None],
+            yaxis=f"y{number}",
+            xaxis=primary.anchor or "x",
+            showlegend=False,
+            hoverinfo="skip",
+        )
+    )
+    for boundary, above in zip(OECD_UPPER_TP, OECD_CLASSES[1:], strict=True):
+        at = boundary / per_state
+        if low < at < high:
+            fig.add_shape(
+                type="line",
+                xref=f"{primary.anchor or 'x'} domain",
+                yref=axis,
+                x0=0,
+                x1=1,
+                y0=at,
+                y1=at,
+                line=TROPHIC_LINE,
+                layer="below",
+            )
+            fig.add_annotation(
+                xref=f"{primary.anchor or 'x'} domain",
+                yref=axis,
+                x=0.005,
+                y=at,
+                xanchor="left",
+                yanchor="bottom",
+                showarrow=False,
+                text=f"{above} above {significant(boundary)} ug/L (OECD)",
+                font=TROPHIC_NOTE,
+            )
+    margin = fig.layout.margin.r or 0
+    fig.update_layout(margin_r=max(margin, TP_AXIS_ROOM))
+    return True
+
+
+def _trophic_figure_words(scenario, variable: str) -> str:
+    """The second axis and the trophic class of today's state and of the target in words
+    ("" without a ``[lake]`` block)."""
+    from planner.limnology import trophic_brief, trophic_state
+
+    conversion = _lake_tp(scenario, variable)
+    if conversion is None:
+        return ""
+    k = scenario.model_info.variables.index(variable)
+    now = trophic_brief(trophic_state(conversion.tp(scenario.initial_state[k])))
+    words = (
+        f" Right axis: lake TP in ug/L ({conversion.tp_words(1.0)}), with the OECD (1982) class "
+        f"boundaries at 10, 35 and 100 ug/L drawn where they fall in range. Today: {now}"
+    )
+    target = scenario.target.threshold
+    if target is not None:
+        goal = trophic_state(conversion.tp(target))
+        words += f"; the target: TP {significant(goal.tp_ug_l)} ug/L, {goal.oecd_class}"
+    return words + "."
+
+
+# ---------------------------------------------------------------------------------------------
 # The equilibrium curve, schedules over time, sweeps, side by side
 
 
@@ -428,6 +571,8 @@ def hysteresis_figure(
     )
     fig.update_xaxes(range=[low - 0.02 * (high - low), high + 0.02 * (high - low)])
     words = _diagram_words(scenario, diagram, variable)
+    if add_tp_axis(fig, scenario, variable):
+        words += _trophic_figure_words(scenario, variable)
     if standing is not None:
         words += f" {standing_words(scenario, standing)}"
     drawn = [run.name for run in trajectories if shown is None or run.name in shown]
@@ -540,6 +685,8 @@ def time_series_figure(comparison, *, names: Sequence[str] | None = None) -> go.
     if target is not None:
         words += f", with the water-quality target at {_target_words(scenario)}"
     words += f". {_outcomes_words(scenario, drawn)}" if drawn else "."
+    if add_tp_axis(fig, scenario, variable, axis="y2"):
+        words += _trophic_figure_words(scenario, variable)
     return _finish(fig, "time series", words, plot_height=2 * PLOT_HEIGHT * 0.6)
 
 
@@ -579,6 +726,8 @@ def sweep_figure(scenario, sweep, diagram: Diagram | None = None) -> go.Figure:
     )
     if diagram is not None:
         words += " " + _thresholds_words(diagram, scenario.control.unit)
+    if diagram is not None or add_tp_axis(fig, scenario, variable):  # the diagram has its own
+        words += _trophic_figure_words(scenario, variable)
     return _finish(fig, "sweep", words)
 
 
@@ -643,6 +792,9 @@ def small_multiples_figure(comparison, names: Sequence[str]) -> go.Figure:
         + _diagram_words(scenario, diagram, scenario.target.variable)
         + f" {_outcomes_words(scenario, chosen)}"
     )
+    last = f"y{columns}" if columns > 1 else "y"  # the second axis right of the last column
+    if add_tp_axis(fig, scenario, scenario.target.variable, axis=last):
+        words += _trophic_figure_words(scenario, scenario.target.variable)
     return _finish(fig, "side by side", words, plot_height=PLOT_HEIGHT * 0.85)
 
 
@@ -939,6 +1091,7 @@ def fit_figure(fit) -> go.Figure:
     columns = observations.columns
     fig = make_subplots(rows=1 + len(columns), cols=1, shared_xaxes=True, vertical_spacing=0.07)
     years = _record_years(fit, fit.trajectory.times)
+    trophic = ""
     loads = record.column(observations.control_column)
     fig.add_trace(
         go.Scatter(
@@ -992,6 +1145,8 @@ def fit_figure(fit) -> go.Figure:
         )
         unit = record.unit(column) or scenario.state_units.get(variable, "")
         fig.update_yaxes(title_text=f"{column} ({unit})" if unit else column, row=row, col=1)
+        if add_tp_axis(fig, scenario, variable, axis="y" if row == 1 else f"y{row}"):
+            trophic = _trophic_figure_words(scenario, variable)
     fig.update_yaxes(title_text=scenario.control.axis_title, row=1, col=1)
     time_unit = record.time_unit or "year"
     fig.update_xaxes(title_text=f"{record.time_name} ({time_unit})", row=1 + len(columns), col=1)
@@ -1004,7 +1159,9 @@ def fit_figure(fit) -> go.Figure:
     words = (
         f"The monitoring record {PurePath(record.source).name} from {record.times[0]:g} to "
         f"{record.times[-1]:g}: the recorded load ({scenario.control.unit}, top) and the "
-        f"observed {observed} (points) against the fitted model (lines). " + _fitted_words(fit)
+        f"observed {observed} (points) against the fitted model (lines). "
+        + _fitted_words(fit)
+        + trophic
     )
     return _finish(fig, "fit", words, plot_height=240 + 200 * len(columns))
 
@@ -1086,6 +1243,7 @@ def fit_hysteresis_figure(fit, *, variable: str | None = None) -> go.Figure:
         + _diagram_words(scenario, fit.diagram, variable)
         + " "
         + _fitted_words(fit)
+        + _trophic_figure_words(scenario, variable)
     )
     return _finish(fig, "fit diagram", words)
 
@@ -1312,4 +1470,6 @@ def ensemble_fan_figure(ensemble, name: str) -> go.Figure:
         f"{_with_unit(float(level[0.05][-1]), '')} and {_with_unit(float(level[0.95][-1]), unit)}"
     )
     words += "." if target is None else f"; the target is {_target_words(scenario)}."
+    if add_tp_axis(fig, scenario, variable):
+        words += _trophic_figure_words(scenario, variable)
     return _finish(fig, "ensemble spread", words)
