@@ -88,34 +88,32 @@ class Page:
     def callback_key(self, output_id: str) -> str:
         return next(key for key in self.app.callback_map if f"{output_id}." in key)
 
-    def run_body(self, outputs: list[tuple[str, str]], run: str, states: list) -> dict:
-        """What the page posts when the Run button ``run`` is pressed: ``outputs`` and
-        ``states`` as (component id, property[, value])."""
+    def run_body(self, run: str, values: dict[str, object]) -> dict:
+        """What the page posts when the Run button ``run`` is pressed, read from the app's own
+        callback map (its outputs and states), the states' values from ``values`` by id."""
+        key, spec = next(
+            (key, spec)
+            for key, spec in self.app.callback_map.items()
+            if {"id": run, "property": "n_clicks"} in spec["inputs"]
+        )
+        declared = spec["output"] if isinstance(spec["output"], list) else [spec["output"]]
+        outputs = [{"id": str(o.component_id), "property": o.component_property} for o in declared]
         return {
-            "output": self.callback_key(outputs[0][0]),
-            "outputs": [{"id": i, "property": prop} for i, prop in outputs],
+            "output": key,
+            "outputs": outputs,
             "inputs": [{"id": run, "property": "n_clicks", "value": 1}],
             "changedPropIds": [f"{run}.n_clicks"],
-            "state": [{"id": i, "property": prop, "value": v} for i, prop, v in states],
+            "state": [
+                {"id": st["id"], "property": st["property"], "value": values.get(st["id"])}
+                for st in spec["state"]
+            ],
         }
 
     def frontier_body(self, working: dict) -> dict:
-        outputs = [(ids.FRONTIER_GRAPH, "figure"), (ids.FRONTIER_MESSAGE, "children")]
-        states = [
-            (ids.WORKING, "data", working),
-            (ids.FRONTIER_START_YEAR, "value", ""),
-            (ids.FRONTIER_RAMP_YEARS, "value", ""),
-        ]
-        return self.run_body(outputs, ids.FRONTIER_RUN, states)
+        return self.run_body(ids.FRONTIER_RUN, {ids.WORKING: working})
 
     def sweep_body(self, working: dict, step: str = "") -> dict:
-        outputs = [
-            (ids.SWEEP_GRAPH, "figure"),
-            (ids.SWEEP_SUMMARY, "children"),
-            (ids.SWEEP_MESSAGE, "children"),
-        ]
-        states = [(ids.WORKING, "data", working), (ids.SWEEP_STEP, "value", step)]
-        return self.run_body(outputs, ids.SWEEP_RUN, states)
+        return self.run_body(ids.SWEEP_RUN, {ids.WORKING: working, ids.SWEEP_STEP: step})
 
     def start(self, body: dict) -> dict:
         """Press the job's Run button -> the job's handles."""

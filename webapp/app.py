@@ -12,6 +12,7 @@ the editor's Undo / Redo when the cursor is not in a text field.
 from __future__ import annotations
 
 import atexit
+import json
 import logging
 import os
 import shutil
@@ -21,7 +22,6 @@ from pathlib import Path
 from urllib.parse import urlsplit
 
 import dash
-import diskcache
 from dash import Dash, Input, Output, dcc, html
 from flask import Response, request
 
@@ -225,6 +225,47 @@ def page(settings: Settings) -> html.Div:
     )
 
 
+# Where a file refused by an upload box's own checks (size, type) is explained: the message area
+# of its view; any other box says it in an alert.
+UPLOAD_MESSAGES = {ids.UPLOAD: ids.LOAD_MESSAGE, ids.DATA_UPLOAD: ids.DATA_MESSAGE}
+# The limit an upload box names: the scenario box's own cap is looser than the file cap the
+# server applies, so the message names the one the user can act on.
+UPLOAD_LIMITS = {ids.UPLOAD: MAX_SCENARIO_BYTES}
+
+
+def _uploads(component) -> list[dict]:
+    """Every dcc.Upload in a layout: its id, accepted types, size limit and message area."""
+    found = []
+    if isinstance(component, dcc.Upload):
+        ident = component.id
+        found.append(
+            {
+                "id": ident,
+                "accept": getattr(component, "accept", None) or "",
+                "max_size": getattr(component, "max_size", -1),
+                "limit": UPLOAD_LIMITS.get(ident, getattr(component, "max_size", -1)),
+                "message": UPLOAD_MESSAGES.get(ident),
+            }
+        )
+    children = getattr(component, "children", None)
+    if isinstance(children, (list, tuple)):
+        for child in children:
+            found.extend(_uploads(child))
+    elif children is not None and hasattr(children, "to_plotly_json"):
+        found.extend(_uploads(children))
+    return found
+
+
+def index_string(template: str, layout) -> str:
+    """Dash's page template with the language set (``lang="en"``) and the upload boxes'
+    limits handed to the page script (``assets/shell.js``), which says why a file is refused."""
+    config = json.dumps({"uploads": _uploads(layout)}).replace("</", "<\\/")
+    page_html = template.replace("<html>", '<html lang="en">', 1)
+    return page_html.replace(
+        "{%scripts%}", f"<script>window.plannerShell = {config};</script>\n{{%scripts%}}", 1
+    )
+
+
 LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
 
 
@@ -249,6 +290,7 @@ def create_app(
     save_dir: str | os.PathLike[str] | None = None,
     cache_dir: str | os.PathLike[str] | None = None,
     allowed_hosts: tuple[str, ...] = LOOPBACK_NAMES,
+    job_seconds: float | None = None,
 ) -> Dash:
     """Build the app over the scenario files in ``scenario_dir`` (default: the bundled demos).
 
@@ -257,8 +299,10 @@ def create_app(
     name of its own at this machine (DNS rebinding).
 
     "Save as" writes into ``save_dir`` (default: ``scenario_dir``); ``cache_dir`` holds the
-    background workers' job queue and results (default: a temporary folder removed at exit).
-    Raises InputError naming the folder when one cannot be used.
+    background workers' job queue and results (default: a temporary folder removed at exit);
+    ``job_seconds`` is the wall-clock budget of one long job (default: ``PLANNER_JOB_SECONDS``
+    or ``compute.JOB_SECONDS``). Raises InputError naming the folder (or the setting) when one
+    cannot be used.
     """
     scenario_folder = _folder(
         scenario_dir if scenario_dir is not None else files.default_scenario_dir(),
@@ -275,11 +319,12 @@ def create_app(
         atexit.register(shutil.rmtree, cache_folder, ignore_errors=True)
     else:
         cache_folder = _folder(cache_dir, "cache folder", create=True)
-    settings = Settings(tuple(folders), len(folders) - 1, cache_folder)
+    budget = {} if job_seconds is None else {"job_seconds": job_seconds}
+    settings = Settings(tuple(folders), len(folders) - 1, cache_folder, **budget)
     clean_stale_temporaries(save_folder)  # left by saves killed before their rename
 
     compute.use_disk(cache_folder / "results")
-    manager = dash.DiskcacheManager(diskcache.Cache(str(cache_folder / "jobs")))
+    manager = settings.jobs  # every long job, the editor's comparison too, runs under its budget
     app = Dash(
         __name__,
         title=TITLE,
@@ -291,6 +336,7 @@ def create_app(
     # Uploads arrive base64-encoded inside a callback request; anything far above the scenario
     # size cap is refused before it is read.
     app.server.config["MAX_CONTENT_LENGTH"] = 8 * MAX_SCENARIO_BYTES
+    app.index_string = index_string(app.index_string, page(settings))
     app.layout = partial(page, settings)
     _allow_only(app.server, allowed_hosts)
     # dash.callback's global registry is handed to the first app that serves a request, so a

@@ -13,6 +13,8 @@ import re
 from dataclasses import dataclass
 
 from planner.errors import Problem
+from planner.models.info import ParameterInfo
+from planner.models.kinds import BUILTIN_INFO
 from webapp import ids
 
 # Field labels are our own; the key is the scenario-file key (used in every message).
@@ -51,6 +53,19 @@ ACTION_FIELDS: dict[str, tuple[tuple[str, str, str], ...]] = {
         ("decay_years", "Then fades over (years)", "number"),
         ("cost", "One-off cost", "money"),
     ),
+    "in-lake-measure": (
+        ("name", "Name", "text"),
+        ("measure", "Measure (catalogue entry)", "text"),
+        ("lake_type", "Lake type (shallow or deep)", "text"),
+        ("parameter", "Parameter it multiplies", "text"),
+        ("start", "First dose in year", "number"),
+        ("doses", "Doses", "number"),
+        ("every_years", "Years between doses", "number"),
+        ("effect", "Share of the parameter left (blank: catalogue)", "number"),
+        ("longevity_years", "Years each dose works (blank: catalogue)", "number"),
+        ("capital_cost", "Cost of each dose", "money"),
+        ("running_cost", "Running cost per year", "money"),
+    ),
 }
 KIND_LABELS = {
     "path": "Path: points joined by straight lines",
@@ -60,7 +75,9 @@ KIND_LABELS = {
 ACTION_LABELS = {
     "scale-state": "One-off change of a state",
     "parameter-pulse": "Temporary change of a parameter",
+    "in-lake-measure": "In-lake measure from the catalogue",
 }
+OPTIONAL_ACTION_FIELDS = {"every_years", "effect", "longevity_years"}  # blank: left out
 SCHEDULE_KINDS = tuple(KIND_FIELDS)
 _SPLIT = re.compile(r"[,\s]+")
 
@@ -148,7 +165,11 @@ def merge_fields(
             continue
         styles = {key: style for key, _, style in ACTION_FIELDS.get(actions[a].get("kind"), ())}
         if field in styles:
-            actions[a][field] = parse_text(value, styles[field])
+            parsed = parse_text(value, styles[field])
+            if parsed == "" and field in OPTIONAL_ACTION_FIELDS:
+                actions[a].pop(field, None)  # blank: the catalogue's figure (or none)
+            else:
+                actions[a][field] = parsed
     return merged
 
 
@@ -157,7 +178,7 @@ class Placement:
     """Where a problem is shown: beside a schedule field, an action field, the schedule as a
     whole, or (scenario-wide) in the status line."""
 
-    kind: str  # "field", "action", "schedule" or "scenario"
+    kind: str  # "field", "action", "schedule", "parameter" or "scenario"
     index: int | None = None
     action: int | None = None
     field: str | None = None
@@ -166,6 +187,10 @@ class Placement:
 def place(problem: Problem, data: dict) -> Placement:
     """Which part of the editor a problem (dotted path ``schedules.2.floor``) belongs to."""
     parts = problem.field.split(".")
+    if len(parts) == 3 and parts[:2] == ["model", "parameters"]:
+        if parts[2] in data.get("model", {}).get("parameters", {}):
+            return Placement("parameter", field=parts[2])
+        return Placement("scenario")
     if len(parts) < 2 or parts[0] != "schedules" or not parts[1].isdigit():
         return Placement("scenario")
     index = int(parts[1])
@@ -191,6 +216,8 @@ def message_text(problem: Problem, where: Placement, data: dict) -> str:
     of a list, counted from 1), or "Schedule N" counted from 1 as the cards are; never the
     file's internal path (schedules.1.floor) where the message sits beside its field."""
     parts = problem.field.split(".")
+    if where.kind == "parameter":
+        return f"{parameter_label(data, where.field)}: {problem.reason}"
     if where.kind in ("field", "action") and where.index is not None:
         schedule = data["schedules"][where.index]
         if where.kind == "field":
@@ -210,6 +237,184 @@ def message_text(problem: Problem, where: Placement, data: dict) -> str:
             words.append(f"{int(part) + 1}" if part.isdigit() else part.replace("_", " "))
         return f"{' '.join(words)}: {problem.reason}"
     return f"{problem.field}: {problem.reason}"
+
+
+def blame(problems: list[Problem], data: dict) -> list[Problem]:
+    """The problems with each one moved to the field actually at fault.
+
+    The schema checks an overshoot's Relax to against its floor; when the floor is the odd one
+    out (above today's value of the control, so no cut at all), the message goes to Floor.
+    """
+    control = data.get("control", {})
+    today = data.get("model", {}).get("parameters", {}).get(control.get("parameter"))
+    unit = control.get("unit", "")
+    schedules = data.get("schedules", [])
+    out = []
+    for problem in problems:
+        parts = problem.field.split(".")
+        if (
+            len(parts) == 3
+            and parts[0] == "schedules"
+            and parts[1].isdigit()
+            and parts[2] == "relax_to"
+            and int(parts[1]) < len(schedules)
+            and problem.reason.startswith("must be at least the floor")
+        ):
+            schedule = schedules[int(parts[1])]
+            try:
+                floor, relax = float(schedule.get("floor")), float(schedule.get("relax_to"))
+                today_value = float(today)
+            except (TypeError, ValueError):
+                out.append(problem)
+                continue
+            if floor > today_value:
+                reason = (
+                    f"{floor:g} {unit} is above today's value ({today_value:g} {unit}): the floor "
+                    f"is the lowest value the cut reaches, at most Relax to ({relax:g} {unit})"
+                ).replace("  ", " ")
+                out.append(Problem(problem.source, f"schedules.{parts[1]}.floor", reason))
+                continue
+        out.append(problem)
+    return out
+
+
+# Command-line options quoted by the planner's messages, in the app's words: whole phrases
+# first, then any option left.
+PHRASE_WORDS = (
+    (re.compile(r"choose one with --[a-z-]+"), "rename the column in the file's header"),
+    (
+        re.compile(r"(check|map one with) --state \S+=COLUMN"),
+        "name that column in the file's header",
+    ),
+    (re.compile(r"hold one of them \(--fit\)"), "hold one of them"),
+    (re.compile(r"\(or fit fewer parameters with --fit\)"), "(or fit fewer parameters)"),
+)
+OPTION_WORDS = {
+    "--time-column": "the time column",
+    "--control-column": "the load column",
+    "--state": "the column of the model variable",
+    "--scenario": "the scenario chosen in the Scenario panel",
+    "--season": "the season of the record",
+    "--fit": "the parameters fitted",
+    "--bootstrap": "the number of bootstrap replicates",
+    "--log": "a log scale",
+    "--out": "the fitted scenario",
+}
+_OPTION = re.compile(r"--[a-z][a-z-]*")
+
+
+def app_words(text: str) -> str:
+    """A planner message with the command-line options it quotes put in the app's words
+    ("...; choose one with --control-column" -> "...; rename the column in the file's header")."""
+    for pattern, words in PHRASE_WORDS:
+        text = pattern.sub(words, text)
+
+    def option_words(match: re.Match) -> str:
+        option = match.group(0)
+        return OPTION_WORDS.get(option, option.removeprefix("--").replace("-", " "))
+
+    return _OPTION.sub(option_words, text)
+
+
+def problem_in_app_words(problem: Problem) -> Problem:
+    """``problem`` with no command-line option left in its source, field or reason."""
+    return Problem(app_words(problem.source), app_words(problem.field), app_words(problem.reason))
+
+
+# ---------------------------------------------------------------------------------------------
+# In-lake measures and model parameters in the editor.
+
+
+def new_measure(data: dict, index: int, measure: str | None = None) -> dict:
+    """A starting in-lake measure for schedule ``index``: the catalogue's first entry (or
+    ``measure``), the lake type the scenario's mean depth suggests (shallow without one), the
+    parameter the measure multiplies in this model kind, one dose when the schedule starts."""
+    from planner.measures import CATALOGUE, default_parameter
+
+    measure = measure or next(iter(CATALOGUE))
+    entry = CATALOGUE[measure]
+    model_kind = data.get("model", {}).get("kind", "")
+    parameter = default_parameter(measure, model_kind) or ""
+    lake_type = "shallow" if "shallow" in entry.lake_types else next(iter(entry.lake_types))
+    schedule = data.get("schedules", [])[index]
+    start = schedule.get("start", 0.0)
+    if schedule.get("kind") == "path":
+        start = 0.0
+    action = {
+        "kind": "in-lake-measure",
+        "name": entry.label,
+        "measure": measure,
+        "lake_type": lake_type,
+        "parameter": parameter,
+        "start": start,
+        "doses": 1,
+        "capital_cost": 0.0,
+        "running_cost": 0.0,
+    }
+    if entry.lake_types[lake_type].longevity is None:
+        action["longevity_years"] = 10.0  # an operated system: how long it is run
+    return action
+
+
+def add_measure(data: dict, index: int) -> dict:
+    """Scenario data with an in-lake measure added to schedule ``index``."""
+    out = copy.deepcopy(data)
+    schedule = out.setdefault("schedules", [])[index]
+    schedule.setdefault("actions", []).append(new_measure(out, index))
+    return out
+
+
+def parameter_label(data: dict, name: str) -> str:
+    """A model parameter as the parameter panel names it: what it means, then its symbol."""
+    info = _parameter_info(data, name)
+    meaning = info.meaning if info is not None else ""
+    return f"{meaning[:1].upper()}{meaning[1:]} ({name})" if meaning else name
+
+
+def _parameter_info(data: dict, name: str) -> ParameterInfo | None:
+    """What a built-in model says of parameter ``name`` (None for a formula's parameters)."""
+    info = BUILTIN_INFO.get(data.get("model", {}).get("kind"))
+    try:
+        return None if info is None else info.parameter_info(name)
+    except KeyError:
+        return None
+
+
+def parameter_rows(data: dict) -> list[dict]:
+    """One row per model parameter for the parameter panel: name, label, meaning, the valid
+    range in words, unit and the value as text."""
+    parameters = data.get("model", {}).get("parameters", {})
+    control = data.get("control", {})
+    rows = []
+    for name, value in parameters.items():
+        info = _parameter_info(data, name)
+        if info is None or info.lower is None:
+            valid = "any number"
+        else:
+            valid = f"{'greater than' if info.strict else 'at least'} {info.lower:g}"
+        is_control = name == control.get("parameter")
+        rows.append(
+            {
+                "name": name,
+                "label": parameter_label(data, name),
+                "valid": valid,
+                "unit": control.get("unit", "") if is_control else "",
+                "control": is_control,
+                "text": number_text(value),
+            }
+        )
+    return rows
+
+
+def merge_parameters(data: dict, values: list[tuple[dict, object]]) -> dict:
+    """Scenario data with the parameter panel's text put in place (``(id, value)`` pairs)."""
+    merged = copy.deepcopy(data)
+    parameters = merged.setdefault("model", {}).setdefault("parameters", {})
+    for ident, value in values:
+        name = ident["name"]
+        if name in parameters:
+            parameters[name] = parse_text(value, "number")
+    return merged
 
 
 def unique_name(base: str, taken: set[str]) -> str:
@@ -329,6 +534,11 @@ def change_words(before: dict, after: dict) -> str:
         keys = [k for k in b if a.get(k) != b.get(k)] + [k for k in a if k not in b]
         words = ", ".join(labels.get(k, k.replace("_", " ")) for k in keys)
         return f"{words} of schedule {number} changed"
+    old_parameters = before.get("model", {}).get("parameters", {})
+    new_parameters = after.get("model", {}).get("parameters", {})
+    changed = [k for k in new_parameters if old_parameters.get(k) != new_parameters.get(k)]
+    if changed:
+        return f"model parameter {', '.join(parameter_label(after, k) for k in changed)} changed"
     blocks = [k for k in after if before.get(k) != after.get(k)]
     blocks += [k for k in before if k not in after]
     return f"{', '.join(blocks) or 'the scenario'} changed"

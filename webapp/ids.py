@@ -222,3 +222,50 @@ def stale_banner(what) -> dict:
 
 ALL_RESULT_STAMPS = result_stamp(ALL)
 ALL_STALE_BANNERS = stale_banner(ALL)
+
+
+# ---------------------------------------------------------------------------------------------
+# The briefing (webapp.views.export) and the text alternatives of the result figures.
+
+BRIEFING_PARTS = "store-briefing-parts"  # {kind: {"kind", "key", "part"}}: results added
+BRIEFING_CONTENTS = "briefing-contents"
+BRIEFING_CLEAR = "briefing-clear"
+BRIEFING_ADD = "briefing-add"
+BRIEFING_ADD_MESSAGE = "briefing-add-message"
+
+
+def briefing_add(kind) -> dict:
+    """A tab's "Add to briefing" button (``kind``: one of planner.briefing.PART_KINDS)."""
+    return {"type": BRIEFING_ADD, "kind": kind}
+
+
+def briefing_add_message(kind) -> dict:
+    return {"type": BRIEFING_ADD_MESSAGE, "kind": kind}
+
+
+def figure_caption(graph_id: str) -> str:
+    """The caption (text alternative) under the result graph ``graph_id``."""
+    return f"{graph_id}-caption"
+
+
+# ---------------------------------------------------------------------------------------------
+# The app shell (tabs, uploads), the model-parameter panel and the editor's background job.
+
+COMPARE_CANCEL = "compare-cancel"  # stops the editor's background comparison
+PARAMETER_PANEL = "parameter-panel"  # the model's parameters, one field each
+PARAMETER_FIELD = "parameter-field"
+PARAMETER_MESSAGE = "parameter-message"
+
+
+def parameter_field(name) -> dict:
+    """The value of model parameter ``name`` in the parameter panel."""
+    return {"type": PARAMETER_FIELD, "name": name}
+
+
+def parameter_message(name) -> dict:
+    """The inline message beside a model parameter's field."""
+    return {"type": PARAMETER_MESSAGE, "name": name}
+
+
+ALL_PARAMETER_FIELDS = parameter_field(ALL)
+ALL_PARAMETER_MESSAGES = parameter_message(ALL)

@@ -23,6 +23,7 @@ from dash import Input, Output, State, ctx, dcc, html, no_update
 from planner.errors import InputError
 from planner.report import verdict_text
 from webapp import compute, drafts, ids
+from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
 from webapp.views.common import money, working_comparison, working_scenario
 
@@ -30,6 +31,13 @@ FAST_LIMIT = 8  # schedules computed within one edit; more go to the background 
 WIDE_STYLES = ("text", "points", "list")
 SHOWN = {"display": "flex"}
 HIDDEN = {"display": "none"}
+COMPARE_JOB = JobIds(
+    run=None,
+    box=ids.COMPARE_PROGRESS_BOX,
+    bar=ids.COMPARE_PROGRESS,
+    text=ids.COMPARE_PROGRESS_TEXT,
+    cancel=ids.COMPARE_CANCEL,
+)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -74,21 +82,21 @@ def layout() -> html.Section:
                 className="hint",
             ),
             html.Div(id=ids.RECOMPUTE_STATUS, className="status-line", **{"aria-live": "polite"}),
-            html.Div(
-                [
-                    html.Label(
-                        "Comparing schedules",
-                        htmlFor=ids.COMPARE_PROGRESS,
-                        className="progress-label",
-                    ),
-                    html.Progress(id=ids.COMPARE_PROGRESS, value="0", max="100"),
-                    html.Span(id=ids.COMPARE_PROGRESS_TEXT, className="progress-text"),
-                ],
-                id=ids.COMPARE_PROGRESS_BOX,
-                className="progress-box",
-                style=HIDDEN,
-            ),
+            job_progress(COMPARE_JOB, "Comparing schedules"),
             html.Div(id=ids.EDITOR, className="schedule-list"),
+            html.Details(
+                [
+                    html.Summary("Model parameters"),
+                    html.P(
+                        "Change a value and press Enter (or leave the field): the diagram and "
+                        "every schedule are computed again. Undo brings the old value back.",
+                        className="hint",
+                    ),
+                    html.Div(id=ids.PARAMETER_PANEL, className="fields-grid"),
+                ],
+                className="parameter-box",
+                open=False,
+            ),
             html.Div(
                 [
                     html.Label(
@@ -210,6 +218,12 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
                         className="button small",
                     ),
                     html.Button(
+                        "Add in-lake measure",
+                        id=ids.schedule_button(index, "measure"),
+                        className="button small",
+                        title="Add an in-lake measure from the catalogue to this schedule",
+                    ),
+                    html.Button(
                         "Delete",
                         id=ids.schedule_button(index, "delete"),
                         className="button small",
@@ -226,6 +240,72 @@ def schedule_card(index: int, schedule: dict, data: dict) -> html.Div:
         className="schedule-card",
         **{"data-schedule": str(index)},
     )
+
+
+def parameter_panel(data: dict) -> list:
+    """One field per model parameter: its meaning and symbol, unit and valid range."""
+    rows = []
+    for row in drafts.parameter_rows(data):
+        hint = f"valid: {row['valid']}"
+        if row["control"]:
+            hint += "; today's value of the control (the schedules move it)"
+        rows.append(
+            html.Div(
+                [
+                    html.Label(
+                        row["label"],
+                        htmlFor=_dom_id(ids.parameter_field(row["name"])),
+                        className="field-label",
+                    ),
+                    html.Div(
+                        [
+                            dcc.Input(
+                                id=ids.parameter_field(row["name"]),
+                                value=row["text"],
+                                type="text",
+                                debounce=True,
+                                className="field-input",
+                                autoComplete="off",
+                            ),
+                            html.Span(row["unit"], className="unit") if row["unit"] else None,
+                        ],
+                        className="input-with-unit",
+                    ),
+                    html.Div(hint, className="hint"),
+                    html.Div(
+                        id=ids.parameter_message(row["name"]),
+                        className="field-message",
+                        role="alert",
+                    ),
+                ],
+                className="field-row",
+            )
+        )
+    return rows
+
+
+def parameter_edit(values, value_ids, message_ids, draft):
+    """A model parameter typed -> (draft store, parameter messages, field classes). The draft
+    store carries the new value to ``recompute`` (the one validation and simulation path);
+    problems with a parameter are shown beside it, named by its label."""
+    blank = [""] * len(message_ids), ["field-input"] * len(value_ids)
+    if not draft:
+        return no_update, *blank
+    data = drafts.merge_parameters(draft["data"], list(zip(value_ids, values, strict=True)))
+    messages: dict[str, list[str]] = {}
+    try:
+        compute.scenario_of(data, draft.get("source", "scenario"))
+    except InputError as error:
+        for problem in error.problems:
+            where = drafts.place(problem, data)
+            if where.kind == "parameter":
+                messages.setdefault(where.field, []).append(
+                    drafts.message_text(problem, where, data)
+                )
+    texts = ["; ".join(messages.get(m["name"], [])) for m in message_ids]
+    classes = ["field-input invalid" if v["name"] in messages else "field-input" for v in value_ids]
+    new = no_update if data == draft["data"] else {**draft, "data": data}
+    return new, texts, classes
 
 
 def render(data: dict) -> list:
@@ -277,6 +357,8 @@ def restructure(
             data = drafts.duplicate(data, index)
         elif trigger["action"] == "delete":
             data = drafts.delete(data, index)
+        elif trigger["action"] == "measure":
+            data = drafts.add_measure(data, index)
         else:
             return no_update, no_update
     else:
@@ -419,7 +501,7 @@ def _problems(
     actions: dict[tuple, list[str]] = {}
     schedules: dict[int, list[str]] = {}
     general: list[str] = []
-    for problem in error.problems:
+    for problem in drafts.blame(list(error.problems), data):
         where = drafts.place(problem, data)
         text = drafts.message_text(problem, where, data)
         if where.kind == "field":
@@ -557,14 +639,20 @@ def compare_in_background(set_progress, pending):
     if not pending:
         return no_update, no_update
     scenario = compute.scenario_of(pending["data"])
-    report = compute.throttled(lambda f, m: set_progress((str(round(100 * f)), f"{f:.0%}: {m}")))
     try:
-        comparison = compute.comparison_of(scenario, progress=report, persist=True)
+        comparison = compute.comparison_of(
+            scenario, progress=progress_reporter(set_progress), persist=True
+        )
     except InputError as error:
         text = "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
         return no_update, html.Span(text, className="status problem")
     text = f"{len(comparison.outcomes)} schedules compared in the background."
     return {"key": pending["key"], "finished": time.time()}, html.Span(text, className="status ok")
+
+
+def compare_stopped(text: str) -> tuple:
+    """The outputs of a background comparison stopped before it finished: why, in the status."""
+    return None, html.Span(text, className="status problem")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -597,7 +685,10 @@ def register_page_script(clientside_callback) -> None:
 def register(callback, settings: Settings) -> None:
     def on_structure(*args):
         value = ctx.triggered[0]["value"] if ctx.triggered else None
-        return structure(*args, trigger=ctx.triggered_id, trigger_value=value)
+        out = structure(*args, trigger=ctx.triggered_id, trigger_value=value)
+        loaded = args[0]
+        redraw = ctx.triggered_id in (ids.LOADED, None) and loaded
+        return *out, parameter_panel(loaded["data"]) if redraw else no_update
 
     callback(
         Output(ids.EDITOR, "children"),
@@ -606,6 +697,7 @@ def register(callback, settings: Settings) -> None:
         Output(ids.DELETE_CONFIRM, "message"),
         Output(ids.DELETE_PENDING, "data"),
         Output(ids.UNDO_MESSAGE, "children"),
+        Output(ids.PARAMETER_PANEL, "children"),
         Input(ids.LOADED, "data"),
         Input(ids.ADD_BUTTON, "n_clicks"),
         Input(ids.ALL_SCHEDULE_BUTTONS, "n_clicks"),
@@ -679,16 +771,27 @@ def register(callback, settings: Settings) -> None:
     )(result_lines)
 
     callback(
-        Output(ids.RESULTS_READY, "data"),
-        Output(ids.RECOMPUTE_STATUS, "children", allow_duplicate=True),
-        Input(ids.PENDING, "data"),
-        background=True,
-        interval=500,
-        progress=[
-            Output(ids.COMPARE_PROGRESS, "value"),
-            Output(ids.COMPARE_PROGRESS_TEXT, "children"),
-        ],
-        progress_default=["0", ""],
-        running=[(Output(ids.COMPARE_PROGRESS_BOX, "style"), SHOWN, HIDDEN)],
+        Output(ids.DRAFT, "data", allow_duplicate=True),
+        Output(ids.ALL_PARAMETER_MESSAGES, "children"),
+        Output(ids.ALL_PARAMETER_FIELDS, "className"),
+        Input(ids.ALL_PARAMETER_FIELDS, "value"),
+        State(ids.ALL_PARAMETER_FIELDS, "id"),
+        State(ids.ALL_PARAMETER_MESSAGES, "id"),
+        State(ids.DRAFT, "data"),
         prevent_initial_call=True,
-    )(compare_in_background)
+    )(parameter_edit)
+
+    register_job(
+        callback,
+        settings,
+        compare_in_background,
+        COMPARE_JOB,
+        name="compare",
+        what="comparison of the schedules",
+        outputs=[
+            Output(ids.RESULTS_READY, "data"),
+            Output(ids.RECOMPUTE_STATUS, "children", allow_duplicate=True),
+        ],
+        inputs=[Input(ids.PENDING, "data")],
+        stopped=compare_stopped,
+    )
