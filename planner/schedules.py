@@ -328,7 +328,7 @@ def check_limits(
 def _pulse_multiplier(pulse: ParameterPulse, t: float | np.ndarray) -> float | np.ndarray:
     """The pulse's multiplier at time(s) t (years); vectorised over t."""
     end = pulse.start + pulse.duration
-    if np.ndim(t) == 0:  # one time: plain floats (the integrator asks at every step)
+    if isinstance(t, float | int) or np.ndim(t) == 0:  # one time: plain floats (every step)
         t = float(t)
         if t < pulse.start:
             return 1.0

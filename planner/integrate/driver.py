@@ -134,6 +134,8 @@ class _Tracker:
         does not depend on the other members."""
         k, level, sign = self.watch.variable, self.watch.level, self.sign
         m = step.x0.shape[1]
+        if m == 1:
+            return np.array([self._locate_single(step, k, level, float(sign))])
         a = np.array(np.broadcast_to(step.t0, (m,))[columns], dtype=float)
         b = np.array(np.broadcast_to(step.t1, (m,))[columns], dtype=float)
         ga = sign * (step.x0[k, columns] - level)
@@ -156,6 +158,29 @@ class _Tracker:
             a, ga = np.where(done, a, new_a), np.where(done, ga, new_ga)
             b, gb = np.where(done, b, c), np.where(done, gb, gc)
             done |= (np.abs(b - a) <= tight) | (gc == 0)
+        return b
+
+    @staticmethod
+    def _locate_single(step: Step, k: int, level: float, sign: float) -> float:
+        """:meth:`_locate` for a single run, in plain floats (the same Illinois iteration)."""
+        a, b = float(np.ravel(step.t0)[0]), float(np.ravel(step.t1)[0])
+        ga = sign * (float(step.x0[k, 0]) - level)
+        gb = sign * (float(step.x1[k, 0]) - level)
+        tight = CROSSING_TOLERANCE * max(1.0, abs(b))
+        if abs(b - a) <= tight or gb == 0:
+            return b
+        for _ in range(ROOT_ITERATIONS):
+            c = b - gb * (b - a) / (gb - ga) if gb != ga else math.nan
+            if not (math.isfinite(c) and min(a, b) <= c <= max(a, b)):
+                c = 0.5 * (a + b)
+            gc = sign * (float(step.at(c)[k, 0]) - level)
+            if math.copysign(1.0, gc) != math.copysign(1.0, gb) and gc != 0 and gb != 0:
+                a, ga = b, gb
+            else:
+                ga = 0.5 * ga
+            b, gb = c, gc
+            if abs(b - a) <= tight or gc == 0:
+                break
         return b
 
     def record(self, x_end: np.ndarray, t_end: np.ndarray, horizon: float) -> WatchRecord:

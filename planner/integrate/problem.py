@@ -229,10 +229,25 @@ class Pieces:
         pulsed = tuple(sorted({pulse.parameter for pulse in self.pulses}))
         self.functions, base = specialise(problem.system, pulsed)
         self.base = dict(zip(self.functions.free, base, strict=True))
+        # a single run's parameters as plain floats: a fading pulse asks for them at every
+        # right-hand side, where numpy's per-call costs would dominate
+        self.floats = (
+            {name: float(value) for name, value in self.base.items()}
+            if all(np.ndim(value) == 0 for value in base)
+            else None
+        )
 
     def _values_at(self, t, index: np.ndarray | None = None) -> tuple:
         """The free parameters at time t, then the values hoisted from them."""
         multipliers = self.problem.actions.multipliers(t, index) if self.pulses else {}
+        if self.floats is not None and isinstance(t, float | int):
+            free = tuple(
+                self.floats[name] * multipliers.get(name, 1.0) for name in self.functions.free
+            )
+            try:
+                return (*free, *self.functions.hoist(*free))
+            except (OverflowError, ZeroDivisionError, ValueError):
+                pass  # the numpy path below gives inf or nan instead
         free = tuple(
             _pick(self.base[name], index) * multipliers.get(name, 1.0)
             for name in self.functions.free
