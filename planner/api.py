@@ -847,8 +847,34 @@ def figure_image(
         "height": height or layout.height or IMAGE_HEIGHT,
         "scale": IMAGE_SCALE if format == "png" else 1,
     }
-    browser = {"mathjax": False, "path": browser_path()}
+    browser = {"mathjax": False, "path": _quiet_browser(browser_path())}
     return kaleido.calc_fig_sync(figure.to_dict(), opts=options, kopts=browser)
+
+
+def _quiet_browser(browser: str) -> str:
+    """A small script that starts ``browser`` with :data:`planner.briefing.CHROMIUM_FLAGS`
+    (no display, off the network), for kaleido, which passes no flags of its own choosing."""
+    import hashlib
+    import shlex
+    import stat
+    import tempfile
+    from pathlib import Path
+
+    from planner.briefing import CHROMIUM_FLAGS
+
+    text = '#!/bin/sh\nexec {} {} "$@"\n'.format(
+        shlex.quote(browser), " ".join(shlex.quote(flag) for flag in CHROMIUM_FLAGS)
+    )
+    digest = hashlib.sha256(text.encode()).hexdigest()[:12]
+    folder = Path(tempfile.gettempdir()) / f"planner-images-{os.getuid()}"
+    folder.mkdir(mode=0o700, exist_ok=True)
+    script = folder / f"chromium-{digest}"
+    if not script.exists():
+        partial = folder / f".{script.name}.{os.getpid()}"
+        partial.write_text(text, encoding="utf-8")
+        partial.chmod(stat.S_IRWXU)
+        partial.replace(script)  # atomic: another process may be writing the same script
+    return str(script)
 
 
 def frame_parquet(frame: pd.DataFrame) -> bytes:

@@ -15,22 +15,12 @@ from pathlib import Path
 
 import pytest
 
+from planner.briefing import CHROMIUM_FLAGS
 from webapp import compute, create_app
 from webapp.files import default_scenario_dir
 
 CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = [
-    "--headless=new",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--disable-dev-shm-usage",
-    "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost, EXCLUDE 127.0.0.1",
-]
+CHROMIUM_ARGS = list(CHROMIUM_FLAGS)  # the planner's own: no display, off the network
 TIMEOUT_MS = 30_000  # generous: CI shares two cores between the server, Chromium and pytest
 
 

@@ -1,102 +1,56 @@
 """Files the user downloads: PNG and HTML of a figure, CSV of the table, the briefing (HTML and
 PDF), and the results each tab offers to the briefing.
 
-PNG goes through plotly's image export (kaleido) on the system Chromium. One export server is
-started on first use and reused (a fresh browser per image takes seconds); Chromium is started
-through a small wrapper that adds the planner's flags keeping it off the network. The briefing's
-PDF is printed by the same Chromium (``planner.briefing.print_pdf``).
+PNG is drawn by ``planner.api.figure_image`` (kaleido on the system Chromium, started with the
+planner's flags that keep it off the network), the one way the project makes images. The
+briefing's PDF is printed by the same Chromium (``planner.briefing.print_pdf``).
 
 A long job's result (sweep, frontier, search, ensemble, fit) becomes a briefing part
 (``planner.briefing.BriefingPart``) as the job ends: :func:`keep_part` files it on the server
 under the identity of the scenario it was computed from (the job runs in a worker process, so the
 file is on disk), and "Add to briefing" (:func:`offered_part`) copies it into the page's briefing
-store. A part whose scenario is not the one in the editor is never offered nor exported.
+store. A part whose scenario is not the one in the editor is never offered nor exported. The
+frontier, search, ensemble and fit jobs file their figure and table for the downloads the same
+way (:func:`keep_result`).
 """
 
 from __future__ import annotations
 
 import os
 import re
-import shlex
-import shutil
-import stat
-import tempfile
 import threading
-import warnings
 from pathlib import Path
 from typing import Any
 
 import plotly.graph_objects as go
 
-from planner.briefing import CHROMIUM_FLAGS, BriefingPart, Section, page
+from planner.briefing import BriefingPart, Section, figure_data, page
 
-CHROMIUM = Path("/usr/lib/chromium/chromium")
-QUIET_FLAGS = " ".join(shlex.quote(flag) for flag in CHROMIUM_FLAGS)
-PNG_SIZE = {"width": 1200, "height": 700}
-_lock = threading.Lock()
-_server_started = False
+PNG_SIZE = {"width": 1200, "height": 700}  # layout pixels of a figure that sets no size
+_lock = threading.Lock()  # one image at a time: each starts a Chromium on two shared cores
 
 
 class PngUnavailableError(RuntimeError):
     """PNG export needs Chromium and kaleido; the message says what is missing."""
 
 
-def _browser_wrapper(folder: Path) -> Path:
-    wrapper = folder / "chromium-quiet"
-    if not wrapper.exists():
-        wrapper.write_text(f'#!/bin/sh\nexec {CHROMIUM} {QUIET_FLAGS} "$@"\n', encoding="utf-8")
-        wrapper.chmod(wrapper.stat().st_mode | stat.S_IXUSR | stat.S_IXGRP | stat.S_IXOTH)
-    return wrapper
-
-
-def _start_server() -> None:
-    global _server_started
-    if _server_started:
-        return
-    try:
-        import kaleido
-    except ImportError:
-        raise PngUnavailableError(
-            "PNG export needs the kaleido package (pip install kaleido)"
-        ) from None
-    if "BROWSER_PATH" not in os.environ:
-        if CHROMIUM.exists():
-            folder = Path(tempfile.gettempdir()) / f"planner-export-{os.getuid()}"
-            folder.mkdir(mode=0o700, exist_ok=True)
-            os.environ["BROWSER_PATH"] = str(_browser_wrapper(folder))
-        elif not (shutil.which("chromium") or shutil.which("google-chrome")):
-            raise PngUnavailableError("PNG export needs Chromium (Debian package 'chromium')")
-    kaleido.start_sync_server(mathjax=False, silence_warnings=True)
-    _server_started = True
-
-
 def stop_png_server() -> None:
-    """Stop the export browser (started on first PNG export); the next export starts it again."""
-    global _server_started
-    with _lock:
-        if _server_started:
-            import kaleido
-
-            kaleido.stop_sync_server(silence_warnings=True)
-            _server_started = False
+    """Nothing to stop: each image is drawn by a browser of its own that ends with it
+    (``planner.api.figure_image``). Kept for callers that tidy up after exports."""
 
 
 def figure_png(figure: go.Figure, *, width: int | None = None, height: int | None = None) -> bytes:
-    """PNG bytes of a figure (kaleido on the system Chromium); one export at a time."""
-    size = dict(PNG_SIZE)
-    layout_height = figure.layout.height
-    if layout_height:
-        size["height"] = int(layout_height)
-    if width:
-        size["width"] = width
-    if height:
-        size["height"] = height
+    """PNG bytes of a figure, drawn by ``planner.api.figure_image`` (kaleido on the system
+    Chromium, off the network); its own height when it sets one, else PNG_SIZE."""
+    from planner.api import figure_image
+
+    width = width or figure.layout.width or PNG_SIZE["width"]
+    height = height or figure.layout.height or PNG_SIZE["height"]
     with _lock:
-        _start_server()
-        with warnings.catch_warnings():
-            # plotly notes that per-call browser options are unused with a running server.
-            warnings.filterwarnings("ignore", message="The kopts argument is ignored")
-            return figure.to_image(format="png", **size)
+        try:
+            return figure_image(figure, "png", width=int(width), height=int(height))
+        except RuntimeError as error:
+            raise PngUnavailableError(str(error)) from None
 
 
 def figure_html(figure: go.Figure, title: str, heading: str) -> str:
@@ -189,3 +143,50 @@ def current_parts(working: dict | None, added: dict | None) -> tuple[list[Briefi
         elif entry:
             left_out.append(kind)
     return kept, left_out
+
+
+# ---------------------------------------------------------------------------------------------
+# Tables of the long jobs' results, for their CSV download
+
+
+def frame_csv(frame) -> str:
+    """A result's table (its ``to_frame()``) as CSV text through ``planner.report.table_csv``
+    (formula-safe cells): each column headed by its name and, where the frame records one in
+    ``attrs["units"]``, its unit in brackets ("floor (t P / yr)"); blank for a missing value."""
+    import math
+
+    from planner.report import table_csv
+
+    units = frame.attrs.get("units", {})
+    header = [f"{name} ({units[name]})" if units.get(name) else str(name) for name in frame]
+    rows = [
+        ["" if isinstance(value, float) and math.isnan(value) else value for value in row]
+        for row in frame.itertuples(index=False, name=None)
+    ]
+    return table_csv(header, rows)
+
+
+def keep_result(working: dict | None, what: str, figure: go.Figure, frame) -> None:
+    """File a job's result for its downloads under the scenario it came from: the figure as
+    shown and its table (``to_frame()``) as CSV text. The job runs in a worker process and the
+    download is made by the server, like :func:`keep_part`."""
+    key = _scenario_key(working)
+    if key is None:
+        return
+    kept = {"figure": figure_data(figure), "csv": frame_csv(frame)}
+    cache = _cache()
+    if cache is None:
+        _parts_memory[_key(f"result-{what}", key)] = kept
+    else:
+        cache.set(_key(f"result-{what}", key), kept, expire=PART_SECONDS)
+
+
+def kept_result(working: dict | None, what: str) -> dict | None:
+    """``{"figure", "csv"}`` of result ``what`` computed for the scenario in the editor (the
+    last run), or None when none was."""
+    key = _scenario_key(working)
+    if key is None:
+        return None
+    cache = _cache()
+    name = _key(f"result-{what}", key)
+    return _parts_memory.get(name) if cache is None else cache.get(name)

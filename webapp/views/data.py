@@ -12,11 +12,18 @@ from planner.errors import InputError
 from planner.figures import fit_figure, fit_hysteresis_figure
 from planner.monitoring import MAX_RECORD_BYTES, Record, parse_record
 from planner.scenario.io import MAX_SCENARIO_BYTES
-from webapp import ids
+from webapp import exports, ids
 from webapp.files import upload_text
 from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure, stopped_figure, working_scenario
+from webapp.views import export
+from webapp.views.captions import captioned_graph, with_captions
+from webapp.views.common import (
+    export_buttons,
+    placeholder_figure,
+    stopped_figure,
+    working_scenario,
+)
 
 JOB = JobIds(
     run=None,  # the upload starts the fit
@@ -55,17 +62,11 @@ def layout() -> html.Div:
             ),
             job_progress(JOB, "Fit progress"),
             html.Div(id=ids.DATA_MESSAGE, className="message-area", role="alert"),
-            dcc.Graph(
-                id=ids.DATA_FIT_GRAPH,
-                figure=placeholder_figure("Upload a record to see the fit"),
-                config={"displaylogo": False},
-            ),
-            dcc.Graph(
-                id=ids.DATA_DIAGRAM_GRAPH,
-                figure=placeholder_figure("Upload a record to see the fitted thresholds"),
-                config={"displaylogo": False},
-            ),
+            captioned_graph(ids.DATA_FIT_GRAPH, "Upload a record to see the fit"),
+            captioned_graph(ids.DATA_DIAGRAM_GRAPH, "Upload a record to see the fitted thresholds"),
             html.Pre(id=ids.DATA_SUMMARY, className="sweep-summary"),
+            export_buttons("fit", "the fit", formats=("png", "csv")),
+            export.briefing_row("fit"),
         ]
     )
 
@@ -86,12 +87,14 @@ def problem_lines(error: InputError) -> html.Ul:
 
 
 def run_fit(set_progress, contents, filename, working):
-    """The job, in its worker process -> (fit figure, diagram figure, summary, message)."""
+    """The job, in its worker process -> (fit figure, diagram figure, summary, message). The
+    result is filed for "Add to briefing" and the CSV download."""
     if not contents:
         return no_update, no_update, no_update, ""
     scenario = working_scenario(working)
     if scenario is None:
         return no_update, no_update, no_update, "Choose a scenario first."
+    from planner.briefing import fit_part
     from planner.calibration import fit_record, fit_text, observations_for
 
     try:
@@ -103,7 +106,9 @@ def run_fit(set_progress, contents, filename, working):
     except InputError as error:
         blank = placeholder_figure("No fit: see the message above")
         return blank, blank, "", problem_lines(error)
+    exports.keep_part(working, fit_part(fit))
     figure = fit_figure(fit)
+    exports.keep_result(working, "fit", figure, fit.to_frame())
     diagram = fit_hysteresis_figure(fit)
     return figure, diagram, fit_text(fit, caution=False), ""
 
@@ -117,13 +122,15 @@ def register(callback, settings: Settings) -> None:
     register_job(
         callback,
         settings,
-        run_fit,
+        with_captions(run_fit, (0, 1)),
         JOB,
         name="fit",
         what="fit",
         outputs=[
             Output(ids.DATA_FIT_GRAPH, "figure"),
+            Output(ids.figure_caption(ids.DATA_FIT_GRAPH), "children"),
             Output(ids.DATA_DIAGRAM_GRAPH, "figure"),
+            Output(ids.figure_caption(ids.DATA_DIAGRAM_GRAPH), "children"),
             Output(ids.DATA_SUMMARY, "children"),
             Output(ids.DATA_MESSAGE, "children"),
         ],
@@ -132,5 +139,5 @@ def register(callback, settings: Settings) -> None:
             State(ids.DATA_UPLOAD, "filename"),
             State(ids.WORKING, "data"),
         ],
-        stopped=stopped,
+        stopped=with_captions(stopped, (0, 1)),
     )

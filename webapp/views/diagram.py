@@ -13,9 +13,10 @@ from planner.report import diagram_text, lake_verdict_words, threshold_words
 from planner.scenario import Scenario
 from webapp import compute, ids
 from webapp.settings import Settings
+from webapp.views.captions import captioned_graph, with_captions
 from webapp.views.common import (
     amount,
-    figure_panel,
+    export_buttons,
     placeholder_figure,
     working_comparison,
     working_scenario,
@@ -41,7 +42,12 @@ def summary_layout() -> html.Div:
 
 
 def layout() -> html.Div:
-    return html.Div(figure_panel(ids.DIAGRAM_GRAPH, "diagram", "Choose a scenario", "this diagram"))
+    return html.Div(
+        [
+            captioned_graph(ids.DIAGRAM_GRAPH, "Choose a scenario"),
+            export_buttons("diagram", "this diagram"),
+        ]
+    )
 
 
 def diagram_figure(scenario: Scenario, comparison: Comparison | None, shown: list[str] | None):
@@ -49,14 +55,10 @@ def diagram_figure(scenario: Scenario, comparison: Comparison | None, shown: lis
     them), so each schedule keeps its colour in every view."""
     diagram, standing = compute.diagram_of(scenario)
     trajectories = trajectories_of(comparison) if comparison is not None else []
-    figure = hysteresis_figure(scenario, diagram, standing=standing, trajectories=trajectories)
-    if shown is not None:
-        hidden = {t.name for t in trajectories} - set(shown)
-        figure.for_each_trace(
-            lambda trace: trace.update(visible="legendonly"),
-            selector=lambda t: t.legendgroup in hidden,
-        )
-    figure.update_layout(uirevision=scenario.name, height=560)
+    figure = hysteresis_figure(
+        scenario, diagram, standing=standing, trajectories=trajectories, shown=shown
+    )
+    figure.update_layout(uirevision=scenario.name)
     return figure
 
 
@@ -83,7 +85,10 @@ def summary(scenario: Scenario) -> html.Div:
         lines.append(html.P(f"Held at today's value, the lake settles in {regime}."))
     lines.append(
         html.Details(
-            [html.Summary("Full summary"), html.Pre(diagram_text(scenario, diagram, standing, caution=False))],
+            [
+                html.Summary("Full summary"),
+                html.Pre(diagram_text(scenario, diagram, standing, caution=False)),
+            ],
             className="details",
         )
     )
@@ -110,6 +115,7 @@ def describe(working):
 
 
 def draw(working, _ready, shown, tab):
+    """The diagram for the tab (its caption is added where the callback is registered)."""
     if tab not in (None, ids.TAB_DIAGRAM):
         return no_update
     scenario = working_scenario(working)
@@ -129,8 +135,9 @@ def register(callback, settings: Settings) -> None:
     callback(Output(ids.SUMMARY, "children"), Input(ids.WORKING, "data"))(describe)
     callback(
         Output(ids.DIAGRAM_GRAPH, "figure"),
+        Output(ids.figure_caption(ids.DIAGRAM_GRAPH), "children"),
         Input(ids.WORKING, "data"),
         Input(ids.RESULTS_READY, "data"),
         Input(ids.SHOWN, "value"),
         Input(ids.TABS, "value"),
-    )(draw)
+    )(with_captions(draw))

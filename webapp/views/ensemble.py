@@ -11,10 +11,17 @@ from dash import Input, Output, State, dcc, html, no_update
 from planner.errors import InputError, Problem
 from planner.figures import ensemble_fan_figure, recovery_by_year_figure
 from planner.scenario import Scenario
-from webapp import compute, ids
+from webapp import compute, exports, ids
 from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import placeholder_figure, stopped_figure, working_scenario
+from webapp.views import export
+from webapp.views.captions import captioned_graph, with_captions
+from webapp.views.common import (
+    export_buttons,
+    placeholder_figure,
+    stopped_figure,
+    working_scenario,
+)
 
 JOB = JobIds(
     run=ids.ENSEMBLE_RUN,
@@ -30,6 +37,8 @@ NO_UNCERTAINTY = (
     "loads, so the chances shown are 0 or 1 (the deterministic case). Add priors to the "
     "scenario file to see the spread."
 )
+RECOVERY_PLACEHOLDER = "Run the ensemble to see the chance of recovery"
+FAN_PLACEHOLDER = "Run the ensemble to see the spread over time"
 
 
 def layout() -> html.Div:
@@ -60,12 +69,10 @@ def layout() -> html.Div:
             ),
             job_progress(JOB, "Ensemble progress"),
             html.Div(id=ids.ENSEMBLE_MESSAGE, className="message-area", role="alert"),
-            dcc.Graph(
-                id=ids.ENSEMBLE_GRAPH,
-                figure=placeholder_figure("Run the ensemble to see the chance of recovery"),
-                config={"displaylogo": False},
-            ),
+            captioned_graph(ids.ENSEMBLE_GRAPH, RECOVERY_PLACEHOLDER),
             html.Div(id=ids.ENSEMBLE_TABLE),
+            export_buttons("ensemble", "this result", formats=("png", "csv")),
+            export.briefing_row("ensemble"),
             html.Div(
                 [
                     html.Label("Schedule", htmlFor=ids.ENSEMBLE_CHOICE, className="field-label"),
@@ -73,11 +80,7 @@ def layout() -> html.Div:
                 ],
                 className="inline-row",
             ),
-            dcc.Graph(
-                id=ids.ENSEMBLE_FAN_GRAPH,
-                figure=placeholder_figure("Run the ensemble to see the spread over time"),
-                config={"displaylogo": False},
-            ),
+            captioned_graph(ids.ENSEMBLE_FAN_GRAPH, FAN_PLACEHOLDER),
             dcc.Store(id=ids.ENSEMBLE_FANS),
         ]
     )
@@ -113,12 +116,12 @@ def table_of(header, rows) -> html.Table:
 
 def run(set_progress, _clicks, working, members_text):
     """The job, in its worker process -> (recovery figure, fan figures, choices, choice, table,
-    message)."""
+    message). The result is filed for "Add to briefing" and the CSV download."""
     scenario = working_scenario(working)
     if scenario is None:
         return (no_update,) * 5 + ("Choose a scenario first.",)
     from planner.ensemble import run_ensemble
-    from planner.ensemble_report import ensemble_rows
+    from planner.ensemble_report import ensemble_part, ensemble_rows
 
     try:
         members = members_of(members_text, scenario)
@@ -129,8 +132,9 @@ def run(set_progress, _clicks, working, members_text):
     except InputError as error:
         message = "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
         return (no_update,) * 5 + (message,)
+    exports.keep_part(working, ensemble_part(ensemble))
     figure = recovery_by_year_figure(ensemble)
-    figure.update_layout(height=480)
+    exports.keep_result(working, "ensemble", figure, ensemble.to_frame())
     names = [s.name for s in ensemble.schedules]
     fans = {name: ensemble_fan_figure(ensemble, name).to_dict() for name in names}
     message = "" if scenario.uncertainty is not None else NO_UNCERTAINTY
@@ -141,7 +145,7 @@ def run(set_progress, _clicks, working, members_text):
 def fan(choice, fans):
     """The fan chart of the chosen schedule from the last run."""
     if not fans or choice not in fans:
-        return placeholder_figure("Run the ensemble to see the spread over time")
+        return placeholder_figure(FAN_PLACEHOLDER)
     return go.Figure(fans[choice])
 
 
@@ -154,12 +158,13 @@ def register(callback, settings: Settings) -> None:
     register_job(
         callback,
         settings,
-        run,
+        with_captions(run),
         JOB,
         name="ensemble",
         what="ensemble",
         outputs=[
             Output(ids.ENSEMBLE_GRAPH, "figure"),
+            Output(ids.figure_caption(ids.ENSEMBLE_GRAPH), "children"),
             Output(ids.ENSEMBLE_FANS, "data"),
             Output(ids.ENSEMBLE_CHOICE, "options"),
             Output(ids.ENSEMBLE_CHOICE, "value"),
@@ -171,10 +176,11 @@ def register(callback, settings: Settings) -> None:
             State(ids.WORKING, "data"),
             State(ids.ENSEMBLE_MEMBERS, "value"),
         ],
-        stopped=stopped,
+        stopped=with_captions(stopped),
     )
     callback(
         Output(ids.ENSEMBLE_FAN_GRAPH, "figure"),
+        Output(ids.figure_caption(ids.ENSEMBLE_FAN_GRAPH), "children"),
         Input(ids.ENSEMBLE_CHOICE, "value"),
         Input(ids.ENSEMBLE_FANS, "data"),
-    )(fan)
+    )(with_captions(fan))

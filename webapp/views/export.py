@@ -32,6 +32,13 @@ TITLES = {
     "side": "Schedules side by side",
     "sweep": "Quasi-static sweep",
 }
+# Long jobs whose figure (PNG) and table (CSV) the job files on the server (exports.keep_result).
+KEPT_RESULTS = {
+    "frontier": ("frontier", "the recovery frontier"),
+    "search": ("schedules-searched", "the search for the cheapest schedule"),
+    "ensemble": ("chance-of-recovery", "the ensemble"),
+    "fit": ("fit", "the fit"),
+}
 PART_LABELS = {
     "ensemble": "the chance of recovery (Uncertainty)",
     "search": "the cheapest option (Recovery frontier)",
@@ -47,21 +54,13 @@ RUN_FIRST = {
     "sweep": "run the sweep",
 }
 
-# Ids of the briefing's own components.
-PARTS_STORE = "store-briefing-parts"  # {kind: {"kind", "key", "part"}}: results added
-BRIEFING_CONTENTS = "briefing-contents"
-BRIEFING_CLEAR = "briefing-clear"
-BRIEFING_ADD = "briefing-add"
-BRIEFING_ADD_MESSAGE = "briefing-add-message"
-
-
-def briefing_add(kind) -> dict:
-    """A tab's "Add to briefing" button (``kind``: one of planner.briefing.PART_KINDS)."""
-    return {"type": BRIEFING_ADD, "kind": kind}
-
-
-def briefing_add_message(kind) -> dict:
-    return {"type": BRIEFING_ADD_MESSAGE, "kind": kind}
+# The briefing's own components (their ids live in webapp.ids; these names are kept for
+# callers that read them from here).
+PARTS_STORE = ids.BRIEFING_PARTS
+BRIEFING_CONTENTS = ids.BRIEFING_CONTENTS
+BRIEFING_CLEAR = ids.BRIEFING_CLEAR
+briefing_add = ids.briefing_add
+briefing_add_message = ids.briefing_add_message
 
 
 def briefing_row(kind: str) -> html.Div:
@@ -168,6 +167,33 @@ def _briefing_export(fmt: str, working, shown, parts, stem: str):
     return download, name + note
 
 
+def _png_download(figure: go.Figure, name: str, width: int | None = None):
+    try:
+        png = exports.figure_png(figure, width=width)
+    except exports.PngUnavailableError as error:
+        raise ExportRefusedError(str(error)) from None
+    return dcc.send_bytes(png, name, type="image/png"), name
+
+
+def _kept_export(what: str, fmt: str, working, stamps, stem: str):
+    """PNG of the figure or CSV of the table of a long job's result (frontier, search,
+    ensemble, fit), refused while the result shown is stale or when none was run for the
+    scenario in the editor."""
+    refused = _stale_refusal(what, working, stamps)
+    if refused:
+        raise ExportRefusedError(refused)
+    kept = exports.kept_result(working, what)
+    if kept is None:
+        raise ExportRefusedError(f"{RUN_FIRST[what]} for the scenario as it is now first")
+    file_stem, _ = KEPT_RESULTS[what]
+    name = f"{stem}-{file_stem}.{fmt}"
+    if fmt == "csv":
+        return dict(content=kept["csv"], filename=name, type="text/csv"), name
+    if fmt == "png":
+        return _png_download(go.Figure(kept["figure"]), name)
+    raise ExportRefusedError(f"unknown format {fmt!r}")
+
+
 def build_export(
     what: str,
     fmt: str,
@@ -189,6 +215,8 @@ def build_export(
     stem = exports.slug(source or scenario.name)
     if what == "briefing":
         return _briefing_export(fmt, working, shown, parts, stem)
+    if what in KEPT_RESULTS:
+        return _kept_export(what, fmt, working, stamps, stem)
     if what == "sweep":
         if not sweep_figure_json or not sweep_figure_json.get("data"):
             raise ExportRefusedError("run the sweep first")
@@ -217,11 +245,7 @@ def build_export(
             raise ExportRefusedError(f"unknown export {what!r}")
     name = f"{stem}-{what}.{fmt}"
     if fmt == "png":
-        try:
-            png = exports.figure_png(figure, width=1400 if what == "side" else None)
-        except exports.PngUnavailableError as error:
-            raise ExportRefusedError(str(error)) from None
-        return dcc.send_bytes(png, name, type="image/png"), name
+        return _png_download(figure, name, width=1400 if what == "side" else None)
     if fmt == "html":
         page = exports.figure_html(figure, f"{scenario.name}: {TITLES[what]}", TITLES[what])
         return dict(content=page, filename=name, type="text/html"), name

@@ -10,10 +10,18 @@ from dash import Input, Output, State, dcc, html, no_update
 
 from planner.errors import InputError, Problem
 from planner.figures import frontier_figure, pareto_figure
-from webapp import compute, ids
+from webapp import compute, exports, ids
 from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import money, placeholder_figure, stopped_figure, working_scenario
+from webapp.views import export, staleness
+from webapp.views.captions import captioned_graph, with_captions
+from webapp.views.common import (
+    export_buttons,
+    money,
+    placeholder_figure,
+    stopped_figure,
+    working_scenario,
+)
 
 FRONTIER_JOB = JobIds(
     run=ids.FRONTIER_RUN,
@@ -55,10 +63,6 @@ def _optional_number(text: str | None, field: str) -> float | None:
         raise InputError([Problem("frontier", field, f"{text[:40]!r} is not a number")]) from None
 
 
-def _graph(graph_id: str, text: str) -> dcc.Graph:
-    return dcc.Graph(id=graph_id, figure=placeholder_figure(text), config={"displaylogo": False})
-
-
 def layout() -> html.Div:
     return html.Div(
         [
@@ -85,11 +89,19 @@ def layout() -> html.Div:
             ),
             job_progress(FRONTIER_JOB, "Frontier progress"),
             html.Div(id=ids.FRONTIER_MESSAGE, className="message-area", role="alert"),
-            _graph(ids.FRONTIER_GRAPH, "Draw the frontier to see the least hold for each depth"),
+            captioned_graph(
+                ids.FRONTIER_GRAPH, "Draw the frontier to see the least hold for each depth"
+            ),
+            export_buttons("frontier", "the frontier", formats=("png", "csv")),
+            export.briefing_row("frontier"),
             job_progress(SEARCH_JOB, "Search progress"),
             html.Div(id=ids.SEARCH_MESSAGE, className="message-area", role="alert"),
-            _graph(ids.SEARCH_GRAPH, "Find the cheapest schedule to see cost against time"),
+            captioned_graph(
+                ids.SEARCH_GRAPH, "Find the cheapest schedule to see cost against time"
+            ),
             html.P(id=ids.SEARCH_SUMMARY, className="hint"),
+            export_buttons("search", "the schedules searched", formats=("png", "csv")),
+            export.briefing_row("search"),
             html.Div(
                 [
                     html.Button(
@@ -106,10 +118,12 @@ def layout() -> html.Div:
 
 def run_frontier(set_progress, _clicks, working, start_text=None, ramp_text=None, depths=None):
     """The job, in its worker process -> (figure, message). ``depths`` (control units) only for
-    tests; the start year and ramp years as typed (blank: the planner's defaults)."""
+    tests; the start year and ramp years as typed (blank: the planner's defaults). The
+    result is filed for "Add to briefing" and the CSV download."""
     scenario = working_scenario(working)
     if scenario is None:
         return no_update, "Choose a scenario first."
+    from planner.briefing import frontier_part
     from planner.frontier import ramp_words, recovery_frontier
 
     diagram, _ = compute.diagram_of(scenario)
@@ -129,16 +143,14 @@ def run_frontier(set_progress, _clicks, working, start_text=None, ramp_text=None
             **options,
         )
     except InputError as error:
-        return placeholder_figure("No frontier for this scenario"), _problems(error)
+        blank = placeholder_figure("No frontier for this scenario")
+        return blank, _problems(error)
+    exports.keep_part(working, frontier_part(scenario, frontier))
     figure = frontier_figure(scenario, frontier)
     # The ramps change the least hold, so the figure says which ones it used.
     used = ramp_words(frontier.family, frontier.unit).replace("; ", "<br>")
-    figure.update_layout(
-        height=560,
-        margin_t=110,
-        title_subtitle_text=used,
-        title_subtitle_font_size=12,
-    )
+    figure.update_layout(margin_t=110, title_subtitle_text=used, title_subtitle_font_size=12)
+    exports.keep_result(working, "frontier", figure, frontier.to_frame())
     return figure, ""
 
 
@@ -155,19 +167,23 @@ def found_text(result, candidate, currency: str) -> str:
 
 def run_search(set_progress, _clicks, working):
     """The job, in its worker process -> (figure, summary, found schedule data, add disabled,
-    message)."""
+    message). The result is filed for "Add to briefing" and the CSV download."""
     scenario = working_scenario(working)
     if scenario is None:
-        return no_update, no_update, no_update, no_update, "Choose a scenario first."
+        return (no_update,) * 4 + ("Choose a scenario first.",)
+    from planner.api import ScenarioSearch
+    from planner.briefing import search_part
     from planner.search import found_schedule, search
 
     diagram, _ = compute.diagram_of(scenario)
     try:
         result = search(scenario, diagram=diagram, progress=progress_reporter(set_progress))
     except InputError as error:
-        return placeholder_figure("No search for this scenario"), "", None, True, _problems(error)
+        blank = placeholder_figure("No search for this scenario")
+        return blank, "", None, True, _problems(error)
+    exports.keep_part(working, search_part(scenario, result))
     figure = pareto_figure(scenario, result)
-    figure.update_layout(height=520)
+    exports.keep_result(working, "search", figure, ScenarioSearch(scenario, result).to_frame())
     if result.cheapest is None:
         return figure, "No admissible schedule was found.", None, True, ""
     schedule = found_schedule(scenario, result.cheapest)
@@ -175,11 +191,16 @@ def run_search(set_progress, _clicks, working):
     return figure, summary, schedule.model_dump(mode="json"), False, ""
 
 
-def add_found(_clicks, working, loaded, found):
-    """Append the found schedule to the working scenario -> (loaded store, message)."""
+def add_found(_clicks, working, loaded, found, stamps=None):
+    """Append the found schedule to the working scenario -> (loaded store, message); refused
+    when the search was run for another version of the scenario (``stamps``: the result
+    stamps, webapp.views.staleness)."""
     scenario = working_scenario(working)
     if scenario is None or not found:
         return no_update, "Find the cheapest schedule first."
+    why = staleness.refusal("search", working, stamps)
+    if why:
+        return no_update, f"Not added: {why}."
     from planner.search import unique_name, with_schedule
 
     named = {**found, "name": unique_name(scenario, found["name"])}
@@ -209,35 +230,40 @@ def register(callback, settings: Settings) -> None:
     register_job(
         callback,
         settings,
-        run_frontier,
+        with_captions(run_frontier),
         FRONTIER_JOB,
         name="frontier",
         what="frontier",
-        outputs=[Output(ids.FRONTIER_GRAPH, "figure"), Output(ids.FRONTIER_MESSAGE, "children")],
+        outputs=[
+            Output(ids.FRONTIER_GRAPH, "figure"),
+            Output(ids.figure_caption(ids.FRONTIER_GRAPH), "children"),
+            Output(ids.FRONTIER_MESSAGE, "children"),
+        ],
         inputs=[
             Input(ids.FRONTIER_RUN, "n_clicks"),
             State(ids.WORKING, "data"),
             State(ids.FRONTIER_START_YEAR, "value"),
             State(ids.FRONTIER_RAMP_YEARS, "value"),
         ],
-        stopped=stopped_frontier,
+        stopped=with_captions(stopped_frontier),
     )
     register_job(
         callback,
         settings,
-        run_search,
+        with_captions(run_search),
         SEARCH_JOB,
         name="search",
         what="search for the cheapest schedule",
         outputs=[
             Output(ids.SEARCH_GRAPH, "figure"),
+            Output(ids.figure_caption(ids.SEARCH_GRAPH), "children"),
             Output(ids.SEARCH_SUMMARY, "children"),
             Output(ids.SEARCH_FOUND, "data"),
             Output(ids.SEARCH_ADD, "disabled"),
             Output(ids.SEARCH_MESSAGE, "children"),
         ],
         inputs=[Input(ids.SEARCH_RUN, "n_clicks"), State(ids.WORKING, "data")],
-        stopped=stopped_search,
+        stopped=with_captions(stopped_search),
     )
     callback(
         Output(ids.LOADED, "data", allow_duplicate=True),
@@ -246,5 +272,6 @@ def register(callback, settings: Settings) -> None:
         State(ids.WORKING, "data"),
         State(ids.LOADED, "data"),
         State(ids.SEARCH_FOUND, "data"),
+        State(ids.ALL_RESULT_STAMPS, "data"),
         prevent_initial_call=True,
     )(add_found)

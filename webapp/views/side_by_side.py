@@ -47,7 +47,7 @@ def choice_problem(chosen: list[str] | None) -> str | None:
 
 def side_figure(comparison: Comparison, chosen: list[str]):
     figure = small_multiples_figure(comparison, chosen)
-    figure.update_layout(uirevision=comparison.scenario.name, height=520, margin={"t": 100})
+    figure.update_layout(uirevision=comparison.scenario.name)
     return figure
 
 

@@ -9,10 +9,12 @@ from planner.errors import InputError
 from planner.figures import sweep_figure
 from planner.report import sweep_text
 from planner.sweep import checked_step
-from webapp import compute, ids
+from webapp import compute, exports, ids
 from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
-from webapp.views.common import figure_panel, stopped_figure
+from webapp.views import export
+from webapp.views.captions import captioned_graph, with_captions
+from webapp.views.common import export_buttons, stopped_figure
 
 JOB = JobIds(
     run=ids.SWEEP_RUN,
@@ -49,8 +51,10 @@ def layout() -> html.Div:
             ),
             job_progress(JOB, "Sweep progress"),
             html.Div(id=ids.SWEEP_MESSAGE, className="message-area", role="alert"),
-            *figure_panel(ids.SWEEP_GRAPH, "sweep", "Run the sweep to see the loop"),
+            captioned_graph(ids.SWEEP_GRAPH, "Run the sweep to see the loop"),
+            export_buttons("sweep", "this figure"),
             html.Pre(id=ids.SWEEP_SUMMARY, className="sweep-summary"),
+            export.briefing_row("sweep"),
         ]
     )
 
@@ -68,7 +72,8 @@ def sweep_step(text: str | None, scenario) -> float | None:
 
 
 def run_sweep(set_progress, _clicks, working, step_text):
-    """The job, in its worker process -> (figure, summary text, message)."""
+    """The job, in its worker process -> (figure, summary text, message). The result is filed
+    for "Add to briefing"."""
     if not working or not working.get("data"):
         return no_update, no_update, "Choose a scenario first."
     scenario = compute.scenario_of(working["data"])
@@ -83,8 +88,10 @@ def run_sweep(set_progress, _clicks, working, step_text):
     except InputError as error:
         return no_update, no_update, "; ".join(f"{p.field}: {p.reason}" for p in error.problems)
     diagram, _ = compute.diagram_of(scenario)
+    from planner.briefing import sweep_part
+
+    exports.keep_part(working, sweep_part(scenario, sweep, diagram))
     figure = sweep_figure(scenario, sweep, diagram)
-    figure.update_layout(height=560)
     return figure, sweep_text(scenario, sweep, caution=False), ""  # the page shows it once
 
 
@@ -97,12 +104,13 @@ def register(callback, settings: Settings) -> None:
     register_job(
         callback,
         settings,
-        run_sweep,
+        with_captions(run_sweep),
         JOB,
         name="sweep",
         what="sweep",
         outputs=[
             Output(ids.SWEEP_GRAPH, "figure"),
+            Output(ids.figure_caption(ids.SWEEP_GRAPH), "children"),
             Output(ids.SWEEP_SUMMARY, "children"),
             Output(ids.SWEEP_MESSAGE, "children"),
         ],
@@ -111,5 +119,5 @@ def register(callback, settings: Settings) -> None:
             State(ids.WORKING, "data"),
             State(ids.SWEEP_STEP, "value"),
         ],
-        stopped=stopped,
+        stopped=with_captions(stopped),
     )
