@@ -129,7 +129,9 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     shot("time-series")
     page.get_by_text("Side by side", exact=True).click()
     expect(page.locator(f"#{ids.SIDE_GRAPH} .gtitle")).to_contain_text("side by side")
-    expect(page.locator(f"#{ids.SIDE_GRAPH} .cartesianlayer > .subplot")).to_have_count(2)
+    # two panels, and the lake TP (ug/L) axis overlaid on the last one (the demo has a lake)
+    expect(page.locator(f"#{ids.SIDE_GRAPH} .cartesianlayer > .subplot")).to_have_count(3)
+    expect(page.locator(f"#{ids.SIDE_GRAPH} .g-y3title")).to_contain_text("ug/L")
     shot("side-by-side")
     page.get_by_text("Equilibrium diagram", exact=True).click()
 

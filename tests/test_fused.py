@@ -74,7 +74,8 @@ def test_one_attempt_equals_the_numpy_stages_to_rounding():
     coefficient tables (Hairer, Norsett & Wanner 1993, Solving Ordinary Differential Equations
     I, section II.10; the tables of scipy.integrate's DOP853): new state, slope and error norm
     per member agree to rounding (the error estimate, a
-    difference of nearly equal sums, to 1e-5), on a two-variable model with per-member parameters."""
+    difference of nearly equal sums, to 1e-5), on a two-variable model with per-member
+    parameters."""
     from scipy.integrate._ivp import dop853_coefficients as tables
 
     spec = formula_spec(

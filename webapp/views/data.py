@@ -12,7 +12,7 @@ from planner.errors import InputError
 from planner.figures import fit_figure, fit_hysteresis_figure
 from planner.monitoring import MAX_RECORD_BYTES, Record, parse_record
 from planner.scenario.io import MAX_SCENARIO_BYTES
-from webapp import exports, ids
+from webapp import drafts, exports, ids
 from webapp.files import upload_text
 from webapp.jobs import JobIds, job_progress, progress_reporter, register_job
 from webapp.settings import Settings
@@ -80,8 +80,9 @@ def read_record_upload(contents: str, filename: str | None) -> Record:
 
 def problem_lines(error: InputError) -> html.Ul:
     """One line per problem: file, row and column, reason."""
+    problems = [drafts.problem_in_app_words(p) for p in error.problems]  # no CLI options
     return html.Ul(
-        [html.Li(f"{p.source}: {p.field}: {p.reason}") for p in error.problems],
+        [html.Li(f"{p.source}: {p.field}: {p.reason}") for p in problems],
         className="problem-list",
     )
 
