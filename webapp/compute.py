@@ -76,21 +76,47 @@ _diagram_lock = threading.Lock()  # one diagram computed at a time: concurrent r
 # One comparison at a time per process: the integrations hold the interpreter lock anyway, and
 # twenty requests time-slicing it finish later, on average, than twenty served in turn.
 _compute_slot = threading.Lock()
-_disk_folder: Path | None = None
-_disk: Any = None
-_disk_pid: int | None = None
+
+
+class DiskCache:
+    """A diskcache.Cache in a folder, opened lazily by each process that uses it (a handle
+    inherited through a fork is never used: the child opens its own)."""
+
+    def __init__(self, size_limit: int):
+        self.size_limit = size_limit
+        self.folder: Path | None = None
+        self._cache: Any = None
+        self._pid: int | None = None
+
+    def use(self, folder: str | os.PathLike[str] | None) -> None:
+        """Keep entries in ``folder`` (None: nowhere; callers then keep them in memory)."""
+        self.folder = None if folder is None else Path(folder)
+        self._cache, self._pid = None, None
+
+    def get(self):
+        """The open cache, or None without a folder."""
+        if self.folder is None:
+            return None
+        if self._cache is None or self._pid != os.getpid():
+            import diskcache
+
+            self._cache = diskcache.Cache(str(self.folder), size_limit=self.size_limit)
+            self._pid = os.getpid()
+        return self._cache
+
+
+_disk = DiskCache(DISK_SIZE_LIMIT)
 _share_all = False
 _counts = {"diagrams": 0, "outcomes": 0}
 
 
 def _after_fork_in_child() -> None:
     """A lock held by another thread at fork time would stay held forever in the child."""
-    global _diagram_lock, _compute_slot, _disk, _disk_pid
+    global _diagram_lock, _compute_slot
     for cache in (_diagrams, _outcomes, _scenarios):
         cache._after_fork()
     _diagram_lock = threading.Lock()
     _compute_slot = threading.Lock()
-    _disk, _disk_pid = None, None
 
 
 os.register_at_fork(after_in_child=_after_fork_in_child)
@@ -102,23 +128,14 @@ def use_disk(folder: str | os.PathLike[str] | None, *, share_all: bool = False) 
     With ``share_all`` every outcome is written there, for server processes that serve the
     same users (a write costs a few milliseconds, so a single process does not pay it).
     """
-    global _disk_folder, _disk, _disk_pid, _share_all
-    _disk_folder = None if folder is None else Path(folder)
-    _disk, _disk_pid = None, None
+    global _share_all
+    _disk.use(folder)
     _share_all = share_all
 
 
 def _disk_cache():
-    """The disk cache opened by this process (a fresh handle after a fork)."""
-    global _disk, _disk_pid
-    if _disk_folder is None:
-        return None
-    if _disk is None or _disk_pid != os.getpid():
-        import diskcache
-
-        _disk = diskcache.Cache(str(_disk_folder), size_limit=DISK_SIZE_LIMIT)
-        _disk_pid = os.getpid()
-    return _disk
+    """The outcomes' disk cache opened by this process."""
+    return _disk.get()
 
 
 def clear(*, keep_diagrams: bool = False) -> None:

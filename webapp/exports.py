@@ -19,12 +19,11 @@ from __future__ import annotations
 import os
 import re
 import threading
-from pathlib import Path
-from typing import Any
 
 import plotly.graph_objects as go
 
 from planner.briefing import BriefingPart, Section, figure_data, page
+from webapp import compute
 
 PNG_SIZE = {"width": 1200, "height": 700}  # layout pixels of a figure that sets no size
 _lock = threading.Lock()  # one image at a time: each starts a Chromium on two shared cores
@@ -70,30 +69,18 @@ def slug(text: str) -> str:
 
 PART_SECONDS = 24 * 3600  # how long a finished job's part waits on the server to be added
 PART_BYTES = 64 * 2**20  # the parts kept on disk, at most (oldest dropped first)
-_parts_folder: Path | None = None
-_parts_cache: Any = None
-_parts_pid: int | None = None
+_parts = compute.DiskCache(PART_BYTES)
 _parts_memory: dict[str, dict] = {}  # without a folder (a single process: tests, notebooks)
 
 
 def use_parts_folder(folder: str | os.PathLike[str] | None) -> None:
     """Keep offered parts in ``folder`` (None: in this process's memory only)."""
-    global _parts_folder, _parts_cache, _parts_pid
-    _parts_folder = None if folder is None else Path(folder)
-    _parts_cache, _parts_pid = None, None
+    _parts.use(folder)
 
 
 def _cache():
     """The parts' disk cache opened by this process (a fresh handle after a fork)."""
-    global _parts_cache, _parts_pid
-    if _parts_folder is None:
-        return None
-    if _parts_cache is None or _parts_pid != os.getpid():
-        import diskcache
-
-        _parts_cache = diskcache.Cache(str(_parts_folder), size_limit=PART_BYTES)
-        _parts_pid = os.getpid()
-    return _parts_cache
+    return _parts.get()
 
 
 def _key(kind: str, scenario_key: str) -> str:
