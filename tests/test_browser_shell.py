@@ -96,7 +96,7 @@ def test_result_tabs_work_from_the_keyboard_and_the_page_has_a_language(page, ui
     tablist = page.locator(f"#{ids.TABS}")
     expect(tablist).to_have_attribute("role", "tablist")
     tabs = tablist.locator("[role=tab]")
-    expect(tabs).to_have_count(7)
+    expect(tabs).to_have_count(8)
     expect(tabs.nth(0)).to_have_attribute("aria-selected", "true")
     expect(tabs.nth(1)).to_have_attribute("aria-selected", "false")
     expect(page.locator("[role=tabpanel]")).to_have_count(1)

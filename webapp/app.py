@@ -45,6 +45,7 @@ from webapp.views import (
     staleness,
     sweep,
     table,
+    two_scenarios,
 )
 
 TITLE = "Lake recovery planner"
@@ -166,6 +167,11 @@ def page(settings: Settings) -> html.Div:
                         label="Monitoring data",
                         value=ids.TAB_DATA,
                         children=[staleness.banner("fit"), data.layout()],
+                    ),
+                    dcc.Tab(
+                        label="Two scenarios",
+                        value=ids.TAB_TWO,
+                        children=two_scenarios.layout(options),
                     ),
                 ],
                 className="result-tabs",
@@ -344,6 +350,7 @@ def create_app(
     # registers through this app's own ``callback``, which takes the same arguments.
     for view in VIEWS:
         view.register(app.callback, settings)
+    two_scenarios.register(app.callback, settings)
     staleness.register(app.callback, settings, app.clientside_callback)
     app.clientside_callback(
         PAGE_SCRIPT_JS, Output(ids.PAGE_SCRIPT, "data"), Input(ids.UNSAVED, "data")

@@ -269,3 +269,19 @@ def parameter_message(name) -> dict:
 
 ALL_PARAMETER_FIELDS = parameter_field(ALL)
 ALL_PARAMETER_MESSAGES = parameter_message(ALL)
+
+
+# ---------------------------------------------------------------------------------------------
+# Two scenarios side by side: the open one and a second file chosen from the listed folders.
+
+TAB_TWO = "two-scenarios"
+TWO_CHOICE = "two-choice"  # the second scenario file (a picker value, never a path)
+TWO_MESSAGE = "two-message"  # why the second file was not loaded
+TWO_OPEN_TITLE = "two-open-title"
+TWO_OTHER_TITLE = "two-other-title"
+TWO_OPEN_GRAPH = "two-open-graph"
+TWO_OTHER_GRAPH = "two-other-graph"
+TWO_OPEN_WORDS = "two-open-words"
+TWO_OTHER_WORDS = "two-other-words"
+TWO_OPEN_TABLE = "two-open-table"
+TWO_OTHER_TABLE = "two-other-table"
