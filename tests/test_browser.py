@@ -171,7 +171,18 @@ def test_walk_through_the_app(page, served, shots, tmp_path):
     saved = load_scenario(saved_file)
     assert len(saved.schedules) == 6 and saved.schedules[1].floor == 0.13
     written = saved_file.read_bytes()
-    page.locator(f"#{ids.SAVE_BUTTON}").click()
+    # Right after "Save as" the editor reloads the new file; a save pressed before it has
+    # caught up writes nothing and says "press the button again", as a user then would.
+    confirm_text = page.locator(f"#{ids.SAVE_CONFIRM_TEXT}")
+    answered = (
+        "() => document.getElementById('save-confirm-text').textContent.includes('exists') || "
+        "document.getElementById('save-message').textContent.includes('still updating')"
+    )
+    for _ in range(10):
+        page.locator(f"#{ids.SAVE_BUTTON}").click()
+        page.wait_for_function(answered)
+        if "exists already" in (confirm_text.text_content() or ""):
+            break
     expect(page.locator(f"#{ids.SAVE_CONFIRM}")).to_contain_text("exists already")
     shot("overwrite-question")
     page.locator(f"#{ids.SAVE_CANCEL}").click()
