@@ -180,7 +180,7 @@ def test_units_are_compared_by_pint_not_by_spelling():
 
 def _pandas_decimal_year(text: str) -> float:
     stamp = pd.Timestamp(text)
-    return stamp.year + (stamp.dayofyear - 1) / (366 if stamp.is_leap_year else 365)
+    return stamp.year + (stamp.day_of_year - 1) / (366 if stamp.is_leap_year else 365)
 
 
 @settings(max_examples=60, deadline=None)
