@@ -22,6 +22,10 @@ import sympy
 
 # --------------------------------------------------------------------------------------------
 # real-valued functions
+#
+# Each class's ``eval`` classmethod is sympy's hook for folding a call whose argument is
+# already a built expression object (a number here); no text is ever evaluated: formulas reach
+# these classes only through the whitelist walk in planner/models/formula.py.
 
 
 class _RealFunction(sympy.Function):
